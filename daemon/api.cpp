@@ -1,0 +1,120 @@
+#include "api.h"
+
+#include <nlohmann/json.hpp>
+
+#include "core/secret.h"
+#include "core/wall_clock.h"
+#include "ingest_server.h"
+#include "store/sample_writer.h"
+
+namespace lyapcast {
+namespace {
+
+using nlohmann::json;
+
+HttpResponse Json(int status, const json& body) {
+  HttpResponse r;
+  r.status = status;
+  r.body = body.dump();
+  r.body += '\n';
+  return r;
+}
+
+HttpResponse Error(int status, std::string_view code, std::string message) {
+  return Json(status, json{{"error", {{"code", code}, {"message", std::move(message)}}}});
+}
+
+json TimeJson(DataTime t) { return json{{"epoch_s", ToEpochSeconds(t)}, {"rfc3339", FormatRfc3339(t)}}; }
+
+class Api {
+ public:
+  explicit Api(ApiContext c) : c_(std::move(c)) {}
+
+  HttpResponse operator()(const HttpRequest& req) const {
+    if (req.path == "/v1/health/live") return Only(req, "GET", [&] { return Live(); });
+    if (auto denied = CheckAccess(req)) return *denied;
+    if (req.path == "/v1/feeds") return Only(req, "GET", [&] { return Feeds(); });
+    return Error(404, "not-found", "no such endpoint: " + req.path + " (see the README's HTTP API section)");
+  }
+
+ private:
+  template <typename F>
+  HttpResponse Only(const HttpRequest& req, const char* method, F&& f) const {
+    if (req.method != method && !(req.method == "HEAD" && std::string_view(method) == "GET")) {
+      HttpResponse r = Error(405, "method-not-allowed", req.method + " is not allowed on " + req.path + "; use " + method);
+      r.headers.emplace_back("Allow", method);
+      return r;
+    }
+    return f();
+  }
+
+  // GET needs the read (or admin) token when one is configured; anything
+  // else needs the admin token when one is configured.
+  std::optional<HttpResponse> CheckAccess(const HttpRequest& req) const {
+    const bool read_only = req.method == "GET" || req.method == "HEAD";
+    if (!c_.read_token && !c_.admin_token) return std::nullopt;
+    if (read_only && !c_.read_token) return std::nullopt;
+    constexpr std::string_view kBearer = "Bearer ";
+    if (req.authorization.size() <= kBearer.size() || req.authorization.compare(0, kBearer.size(), kBearer) != 0) {
+      HttpResponse r = Error(401, "unauthorized", "this endpoint needs 'Authorization: Bearer <token>'");
+      r.headers.emplace_back("WWW-Authenticate", "Bearer realm=\"lyapcast\"");
+      return r;
+    }
+    const std::string_view token = std::string_view(req.authorization).substr(kBearer.size());
+    const bool admin = c_.admin_token && ConstantTimeEquals(token, *c_.admin_token);
+    const bool reader = c_.read_token && ConstantTimeEquals(token, *c_.read_token);
+    if (read_only ? (admin || reader) : admin) return std::nullopt;
+    if (reader || admin) return Error(403, "forbidden", "this token may read but not change anything; use the admin token");
+    HttpResponse r = Error(401, "unauthorized", "the bearer token is not valid");
+    r.headers.emplace_back("WWW-Authenticate", "Bearer realm=\"lyapcast\", error=\"invalid_token\"");
+    return r;
+  }
+
+  HttpResponse Live() const {
+    const DataTime now = WallNowMicros();
+    return Json(200, json{{"status", "live"},
+                          {"version", c_.version},
+                          {"uptime_s", static_cast<double>(now - c_.started_wall) / 1e6},
+                          {"storage_available", c_.writer->storage_available()}});
+  }
+
+  HttpResponse Feeds() const {
+    json feeds = json::array();
+    for (std::size_t i = 0; i < c_.config->feeds.size(); ++i) {
+      const FeedConfig& f = c_.config->feeds[i];
+      const FeedExtent e = c_.writer->extent(static_cast<std::uint32_t>(i));
+      json channels = json::array();
+      for (std::size_t ch = 0; ch < f.channels.size(); ++ch) {
+        channels.push_back({{"name", f.channels[ch]}, {"unit", ch < f.units.size() ? f.units[ch] : ""}});
+      }
+      json window = {{"samples", e.count}};
+      window["oldest"] = e.count ? TimeJson(e.oldest) : json(nullptr);
+      window["newest"] = e.count ? TimeJson(e.newest) : json(nullptr);
+      feeds.push_back({{"id", f.id},
+                       {"channels", std::move(channels)},
+                       {"step_s", static_cast<double>(f.step) / 1e6},
+                       {"dynamics_known", f.dynamics.has_value()},
+                       {"retention_s", static_cast<double>(c_.config->storage.retention) / 1e6},
+                       {"window", std::move(window)}});
+    }
+    json body = {{"feeds", std::move(feeds)}, {"storage_available", c_.writer->storage_available()}};
+    if (c_.ingest != nullptr) {
+      const IngestCounters& k = c_.ingest->counters();
+      body["ingest"] = {{"connections", c_.ingest->active_connections()},
+                        {"lines", k.lines.load()},
+                        {"accepted", k.accepted.load()}};
+    }
+    return Json(200, body);
+  }
+
+  ApiContext c_;
+};
+
+}  // namespace
+
+HttpHandler MakeApiHandler(ApiContext context) {
+  auto api = std::make_shared<Api>(std::move(context));
+  return [api](const HttpRequest& req) { return (*api)(req); };
+}
+
+}  // namespace lyapcast

@@ -1,0 +1,193 @@
+#include <utility>  // before Asio: Boost 1.74 needs std::exchange (PITFALLS.md)
+
+#include "daemon.h"
+
+#include <spdlog/spdlog.h>
+#include <unistd.h>
+
+#include <boost/asio.hpp>
+#include <fstream>
+#include <iostream>
+#include <thread>
+#include <vector>
+
+#include "api.h"
+#include "config/config.h"
+#include "core/secret.h"
+#include "core/wall_clock.h"
+#include "http_server.h"
+#include "ingest_server.h"
+#include "store/sample_writer.h"
+#include "store/window_store.h"
+
+namespace lyapcast {
+namespace {
+
+namespace asio = boost::asio;
+
+std::optional<std::string> LoadToken(const std::optional<std::filesystem::path>& file, const char* key, bool* ok) {
+  if (!file) return std::nullopt;
+  auto token = ReadTokenFile(*file);
+  if (!token.ok()) {
+    spdlog::error("auth.{}: {}", key, token.status().message());
+    *ok = false;
+    return std::nullopt;
+  }
+  return std::move(token).value();
+}
+
+// Written to a temporary name and renamed, so a reader never sees half a file.
+Status WriteReadyFile(const std::filesystem::path& path, std::uint16_t ingest_port, std::uint16_t http_port) {
+  const std::filesystem::path tmp = path.string() + ".tmp";
+  {
+    std::ofstream out(tmp, std::ios::trunc);
+    if (!out) return Status::Io("cannot write ready file " + tmp.string());
+    out << fmt::format(R"({{"pid":{},"ingest_port":{},"http_port":{}}})", ::getpid(), ingest_port, http_port) << '\n';
+    if (!out.flush()) return Status::Io("cannot write ready file " + tmp.string());
+  }
+  std::error_code ec;
+  std::filesystem::rename(tmp, path, ec);
+  if (ec) return Status::Io("cannot rename ready file to " + path.string() + ": " + ec.message());
+  return Status::Ok();
+}
+
+std::vector<FeedLayout> Layouts(const Config& config) {
+  std::vector<FeedLayout> out;
+  for (const FeedConfig& f : config.feeds) out.push_back({f.id, f.channels, f.step});
+  return out;
+}
+
+}  // namespace
+
+int CheckConfig(const std::filesystem::path& file) {
+  auto config = LoadConfig(file);
+  if (!config.ok()) {
+    std::cerr << "lyapcastd: invalid config: " << config.status().message() << '\n';
+    return kExitConfigInvalid;
+  }
+  std::cout << "config " << file.string() << " is valid\n" << DescribeConfig(*config);
+  return kExitOk;
+}
+
+int RunDaemon(const DaemonOptions& options) {
+  auto loaded = LoadConfig(options.config);
+  if (!loaded.ok()) {
+    spdlog::error("invalid config: {}", loaded.status().message());
+    return kExitConfigInvalid;
+  }
+  const Config config = std::move(loaded).value();
+  bool tokens_ok = true;
+  const auto ingest_token = LoadToken(config.auth.ingest_token_file, "ingest_token_file", &tokens_ok);
+  const auto read_token = LoadToken(config.auth.read_token_file, "read_token_file", &tokens_ok);
+  const auto admin_token = LoadToken(config.auth.admin_token_file, "admin_token_file", &tokens_ok);
+  if (!tokens_ok) return kExitConfigInvalid;
+
+  spdlog::info("lyapcastd {} starting (pid {}), config {}", kVersion, ::getpid(), options.config.string());
+  for (std::string_view rest = DescribeConfig(config); !rest.empty();) {
+    const auto nl = rest.find('\n');
+    spdlog::info("  {}", rest.substr(0, nl));
+    if (nl == std::string_view::npos) break;
+    rest = rest.substr(nl + 1);
+  }
+  if (config.listen.allow_remote_without_tokens &&
+      (!IsLoopbackHost(config.listen.ingest.host) || !IsLoopbackHost(config.listen.http.host))) {
+    spdlog::warn("listening beyond loopback without tokens (listen.allow_remote_without_tokens: true): "
+                 "anyone who can reach these ports can send samples and read forecasts");
+  }
+
+  auto store = WindowStore::Open(StoreOptions{config.storage.path, false, 5000});
+  if (!store.ok()) {
+    spdlog::error("cannot open the store: {}", store.status().message());
+    return store.status().code() == StatusCode::kFailedPrecondition ? kExitConfigInvalid : kExitFailure;
+  }
+  if (Status s = (*store)->RegisterFeeds(Layouts(config)); !s.ok()) {
+    spdlog::error("{}", s.message());
+    return s.code() == StatusCode::kFailedPrecondition ? kExitConfigInvalid : kExitFailure;
+  }
+  spdlog::info("store {} open (schema version {})", config.storage.path.string(), (*store)->schema_version());
+
+  WriterOptions wopts;
+  wopts.commit_every = config.limits.commit_every;
+  wopts.commit_batch = config.limits.commit_batch;
+  wopts.retention = config.storage.retention;
+  SampleWriter writer(std::move(store).value(), static_cast<int>(config.feeds.size()), wopts);
+  if (Status s = writer.Start(); !s.ok()) {
+    spdlog::error("cannot start the store writer: {}", s.message());
+    return kExitFailure;
+  }
+  for (std::size_t i = 0; i < config.feeds.size(); ++i) {
+    const FeedExtent e = writer.extent(static_cast<std::uint32_t>(i));
+    if (e.count > 0) {
+      spdlog::info("feed {}: {} samples stored, {} .. {}", config.feeds[i].id, e.count, FormatRfc3339(e.oldest),
+                   FormatRfc3339(e.newest));
+    }
+  }
+
+  asio::io_context io;
+  IngestServerOptions iopts;
+  iopts.endpoint = config.listen.ingest;
+  iopts.max_line = config.limits.max_line;
+  iopts.max_connections = config.limits.max_connections;
+  iopts.idle_timeout = config.limits.idle_timeout;
+  iopts.max_future_skew = config.limits.max_future_skew;
+  iopts.token = ingest_token;
+  iopts.max_outstanding = static_cast<std::size_t>(std::max(2 * config.limits.commit_batch, 1024));
+  IngestServer ingest(io, config, writer, iopts);
+
+  HttpServerOptions hopts;
+  hopts.endpoint = config.listen.http;
+  ApiContext api{&config, &writer, &ingest, read_token, admin_token, WallNowMicros(), kVersion};
+  HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
+
+  if (Status s = ingest.Listen(); !s.ok()) {
+    spdlog::error("{}", s.message());
+    writer.Stop();
+    return kExitFailure;
+  }
+  if (Status s = http.Listen(); !s.ok()) {
+    spdlog::error("{}", s.message());
+    writer.Stop();
+    return kExitFailure;
+  }
+  ingest.StartAccepting();
+  http.StartAccepting();
+  spdlog::info("listening: ingest on {}:{}, HTTP on {}:{}", config.listen.ingest.host, ingest.port(),
+               config.listen.http.host, http.port());
+
+  asio::signal_set signals(io, SIGINT, SIGTERM);
+  signals.async_wait([&](boost::system::error_code ec, int signo) {
+    if (ec) return;
+    spdlog::info("received {}; stopping: no new connections, finishing received lines", signo == SIGINT ? "SIGINT" : "SIGTERM");
+    http.Shutdown();
+    ingest.Shutdown([&io] { io.stop(); });
+  });
+
+  if (options.ready_file) {
+    if (Status s = WriteReadyFile(*options.ready_file, ingest.port(), http.port()); !s.ok()) {
+      spdlog::error("{}", s.message());
+      writer.Stop();
+      return kExitFailure;
+    }
+  }
+
+  std::vector<std::thread> threads;
+  for (int i = 1; i < options.io_threads; ++i) threads.emplace_back([&io] { io.run(); });
+  io.run();
+  for (auto& t : threads) t.join();
+
+  writer.Stop();
+  const WriterStats stats = writer.stats();
+  const IngestCounters& k = ingest.counters();
+  spdlog::info("writer: committed {} samples in {} transactions ({} failed commits, {} rows pruned)",
+               stats.samples_committed, stats.transactions, stats.failed_commits, stats.rows_pruned);
+  spdlog::info("ingest: {} lines on {} connections, {} accepted", k.lines.load(), k.connections_accepted.load(),
+               k.accepted.load());
+  if (options.ready_file) {
+    std::error_code ec;
+    std::filesystem::remove(*options.ready_file, ec);
+  }
+  spdlog::info("lyapcastd stopped");
+  return kExitOk;
+}
+
+}  // namespace lyapcast

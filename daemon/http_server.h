@@ -1,0 +1,49 @@
+// HttpServer: Boost.Beast HTTP/1.1 listener on the daemon's io_context.
+// Parses requests within limits, hands them to an HttpHandler as plain
+// values and writes the response; keep-alive; read/write timeouts. Requests
+// over the limits get a JSON error (413 body too large, 431 headers, 400
+// malformed) and the connection closes.
+// Threads: constructor and Listen() before io_context::run; the rest on io threads.
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <memory>
+
+#include "config/config.h"
+#include "core/status.h"
+#include "http_types.h"
+
+namespace boost::asio {
+class io_context;
+}
+
+namespace lyapcast {
+
+struct HttpServerOptions {
+  Endpoint endpoint;
+  std::uint32_t max_body = 64 * 1024;      // bytes
+  std::uint32_t max_header = 16 * 1024;    // bytes of the request line + headers
+  Micros read_timeout = 30 * kMicrosPerSecond;   // per request, headers and body
+  Micros write_timeout = 30 * kMicrosPerSecond;
+  Micros keep_alive = 60 * kMicrosPerSecond;     // idle time between requests
+  int max_connections = 512;
+};
+
+class HttpServer {
+ public:
+  HttpServer(boost::asio::io_context& io, HttpServerOptions options, HttpHandler handler);
+  ~HttpServer();
+  [[nodiscard]] Status Listen();
+  std::uint16_t port() const;
+  void StartAccepting();
+  // Stops accepting and closes idle keep-alive connections; requests in
+  // flight finish.
+  void Shutdown();
+
+ private:
+  struct Impl;
+  std::shared_ptr<Impl> impl_;
+};
+
+}  // namespace lyapcast

@@ -1,0 +1,177 @@
+// lyapcast configuration: the YAML file parsed into validated structs.
+//
+// Every key has a documented default (the member initializers below and the
+// README's config reference say the same). LoadConfig() rejects unknown keys,
+// duplicate keys, wrong types, ids outside the grammar, duplicate feed or
+// channel ids, non-positive steps, unparsable durations and sizes, and
+// listening beyond loopback without tokens (unless explicitly allowed). Each
+// error names the file, line, key path and what is allowed, e.g.
+//   config/demo.yaml:14: feeds[0].step: must be a positive duration such as
+//   500ms or 2s; got '-1s'
+// Relative paths are resolved against the config file's folder.
+// Thread safety: the structs are plain values; LoadConfig is reentrant.
+#pragma once
+
+#include <cstdint>
+#include <filesystem>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <vector>
+
+#include "core/data_time.h"
+#include "core/status.h"
+
+namespace lyapcast {
+
+struct Endpoint {
+  std::string host = "127.0.0.1";  // IPv4/IPv6 literal or "localhost"
+  std::uint16_t port = 0;          // 0 = the OS picks a free port
+  std::string ToString() const;    // "127.0.0.1:7301", "[::1]:7301"
+};
+
+struct ListenConfig {
+  Endpoint ingest{"127.0.0.1", 7301};
+  Endpoint http{"127.0.0.1", 7302};
+  // Without this, a non-loopback listener requires the matching tokens
+  // (ingest: ingest token; http: read and admin tokens).
+  bool allow_remote_without_tokens = false;
+};
+
+struct LimitsConfig {
+  std::uint64_t max_line = 64 * 1024;           // bytes per ingest line, excluding the newline
+  int max_connections = 256;                    // concurrent ingest connections
+  Micros idle_timeout = 5 * 60 * kMicrosPerSecond;  // close ingest connections silent this long
+  Micros commit_every = 5'000;                  // group commit after this long ...
+  int commit_batch = 4096;                      // ... or this many samples, whichever first
+  Micros max_future_skew = 10 * kMicrosPerSecond;  // samples newer than wall time + this: future-time
+};
+
+struct StorageConfig {
+  std::filesystem::path path = "var/lyapcast.db";  // resolved against the config folder
+  Micros retention = 6 * 3600 * kMicrosPerSecond;  // data time kept per feed
+  int keep_models = 200;                           // retired/rejected versions kept per feed
+};
+
+struct AuthConfig {
+  std::optional<std::filesystem::path> ingest_token_file;
+  std::optional<std::filesystem::path> read_token_file;
+  std::optional<std::filesystem::path> admin_token_file;
+};
+
+struct TrainingConfig {
+  int threads = 1;        // concurrent retraining jobs
+  bool lockstep = false;  // ingest waits at each due retrain (replays, tests)
+};
+
+struct AnnealSchedule {
+  double mid = 0.5;     // midpoint of the sigmoid, as a fraction of the iteration budget
+  double width = 0.05;  // width of the sigmoid, as a fraction of the budget
+};
+
+enum class ConstraintKind { kVelocity, kResidual };
+const char* ConstraintKindName(ConstraintKind kind);  // "velocity", "residual"
+
+struct ConstraintConfig {
+  ConstraintKind kind = ConstraintKind::kVelocity;
+  double weight = 1.0;  // maximum weight reached by the anneal schedule
+  AnnealSchedule anneal;
+};
+
+struct DynamicsConfig {
+  Micros time_unit = kMicrosPerSecond;  // one unit of model time in data time
+  // One expression per channel, in the feed's channel order: (channel, expr).
+  std::vector<std::pair<std::string, std::string>> equations;
+  std::vector<std::pair<std::string, double>> constants;  // in file order
+  std::vector<ConstraintConfig> constraints;
+};
+
+enum class Activation { kTanh, kSilu };
+const char* ActivationName(Activation a);  // "tanh", "silu"
+
+struct ModelConfig {
+  std::vector<int> hidden = {64, 64};  // hidden layer widths
+  Activation activation = Activation::kTanh;
+  int rollout = 4;  // unrolled steps trained on contiguous data
+  int max_gap = 8;  // longest composition G^k trained across gaps
+};
+
+struct RetrainConfig {
+  double lyapunov_fraction = 0.5;  // retrain after this many Lyapunov times of new data
+  Micros min_interval = 30 * kMicrosPerSecond;
+  Micros max_interval = 3600 * kMicrosPerSecond;
+  int min_pairs = 500;       // cold start once the window holds this many pairs
+  double replay = 0.3;       // fraction of older window data mixed into a chunk
+  double validation = 0.2;   // newest fraction held out for validation
+  int iterations = 2000;
+  int batch = 256;
+  double learning_rate = 1e-3;
+  double weight_decay = 0.0;
+  double clip = 1.0;         // global gradient-norm clip
+  Micros time_budget = 60 * kMicrosPerSecond;  // wall time per retrain (ignored in lockstep)
+  double promote_tolerance = 0.05;
+};
+
+struct MonitorConfig {
+  double horizon_tol = 0.5;        // normalized error defining the predictability horizon
+  double change_threshold = 8.0;   // change-test alarm threshold
+  double change_drift = 0.05;      // change-test drift allowance
+};
+
+struct HealthConfig {
+  double drift_warn = 2.0;
+  double drift_crit = 5.0;
+  Micros data_age_warn = 30 * kMicrosPerSecond;
+  Micros data_age_crit = 5 * 60 * kMicrosPerSecond;
+  double model_age_warn_lyapunov = 2.0;
+  double model_age_crit_lyapunov = 10.0;
+};
+
+struct FeedConfig {
+  std::string id;                     // [a-z0-9][a-z0-9_-]{0,63}; required
+  std::vector<std::string> channels;  // [A-Za-z_][A-Za-z0-9_]{0,63}, not "t"; 1..64; required
+  std::vector<std::string> units;     // empty, or one per channel
+  Micros step = kMicrosPerSecond;     // model step dt in data time; > 0
+  std::optional<DynamicsConfig> dynamics;
+  ModelConfig model;
+  RetrainConfig retrain;
+  MonitorConfig monitor;
+  HealthConfig health;
+
+  // Index of a channel by name, or -1.
+  int ChannelIndex(std::string_view name) const;
+};
+
+struct Config {
+  std::filesystem::path source;  // the file it was loaded from ("" for strings)
+  ListenConfig listen;
+  LimitsConfig limits;
+  StorageConfig storage;
+  AuthConfig auth;
+  TrainingConfig training;
+  std::vector<FeedConfig> feeds;  // at least one
+
+  // Index of a feed by id, or -1.
+  int FeedIndex(std::string_view id) const;
+};
+
+// Reads and validates a config file. Errors name file, line, key and what is
+// allowed (StatusCode::kInvalidArgument), or the I/O failure (kIoError).
+[[nodiscard]] Result<Config> LoadConfig(const std::filesystem::path& file);
+
+// Same for YAML text; `source` names it in messages and its parent folder
+// anchors relative paths (use "" to keep relative paths as they are).
+[[nodiscard]] Result<Config> ParseConfig(std::string_view yaml, const std::filesystem::path& source);
+
+// True for 127.0.0.0/8, ::1 and "localhost".
+bool IsLoopbackHost(std::string_view host);
+
+// Identifier grammars (DESIGN.md "Identifiers and paths").
+bool IsValidFeedId(std::string_view id);
+bool IsValidChannelName(std::string_view name);
+
+// Multi-line human summary for the start-up banner and --check-config.
+std::string DescribeConfig(const Config& config);
+
+}  // namespace lyapcast

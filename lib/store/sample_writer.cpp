@@ -1,0 +1,320 @@
+#include "store/sample_writer.h"
+
+#include <algorithm>
+#include <limits>
+#include <span>
+#include <utility>
+
+namespace lyapcast {
+namespace {
+
+using Clock = std::chrono::steady_clock;
+
+// Completes submissions that never reached the writer thread (Stop() before
+// Start()): each accepted Submit still gets its one completion.
+WriteOutcome ShuttingDown() { return {false, RejectReason::kShuttingDown}; }
+
+WriteOutcome Accepted() {
+  WriteOutcome o;
+  o.accepted = true;
+  return o;
+}
+
+}  // namespace
+
+SampleWriter::SampleWriter(std::unique_ptr<WindowStore> store, int feed_count, WriterOptions options)
+    : store_(std::move(store)),
+      feed_count_(std::max(feed_count, 0)),
+      options_(options),
+      extents_(static_cast<size_t>(std::max(feed_count, 0))) {}
+
+SampleWriter::~SampleWriter() { Stop(); }
+
+Status SampleWriter::Start() {
+  if (store_ == nullptr) return Status::Precondition("the sample writer has no store");
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_) return Status::Precondition("the sample writer was stopped; it cannot start again");
+  }
+  if (thread_.joinable()) return Status::Precondition("the sample writer is already running");
+  std::vector<FeedExtent> loaded;
+  loaded.reserve(static_cast<size_t>(feed_count_));
+  for (int f = 0; f < feed_count_; ++f) {
+    auto extent = store_->Extent(static_cast<std::uint32_t>(f));
+    if (!extent.ok()) return extent.status();
+    loaded.push_back(*extent);
+  }
+  {
+    std::lock_guard lock(mu_);
+    extents_ = std::move(loaded);
+  }
+  thread_ = std::jthread([this](std::stop_token stop) { Run(std::move(stop)); });
+  return Status::Ok();
+}
+
+bool SampleWriter::Submit(std::vector<FeedSample> samples, WriteCompletion done) {
+  const size_t n = samples.size();
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_) return false;
+    queue_.push_back(Submission{std::move(samples), std::move(done), Clock::now()});
+    queued_samples_.fetch_add(n, std::memory_order_relaxed);
+  }
+  cv_.notify_all();
+  return true;
+}
+
+void SampleWriter::Subscribe(std::function<void(const CommittedBatch&)> subscriber) {
+  subscribers_.push_back(std::move(subscriber));
+}
+
+void SampleWriter::Stop() {
+  std::lock_guard stop_lock(stop_mu_);
+  {
+    std::lock_guard lock(mu_);
+    stopping_ = true;
+  }
+  cv_.notify_all();
+  if (thread_.joinable()) {
+    thread_.request_stop();
+    thread_.join();  // Run() drains the queue before returning
+    return;
+  }
+  std::deque<Submission> left;
+  {
+    std::lock_guard lock(mu_);
+    left.swap(queue_);
+    queued_samples_.store(0, std::memory_order_relaxed);
+  }
+  for (Submission& s : left) {
+    if (s.done) s.done(std::vector<WriteOutcome>(s.samples.size(), ShuttingDown()));
+  }
+}
+
+FeedExtent SampleWriter::extent(std::uint32_t feed) const {
+  std::lock_guard lock(mu_);
+  return feed < extents_.size() ? extents_[feed] : FeedExtent{};
+}
+
+WriterStats SampleWriter::stats() const {
+  std::lock_guard lock(mu_);
+  return stats_;
+}
+
+bool SampleWriter::PruneNeededLocked() const {
+  if (options_.prune_batch <= 0) return false;  // pruning disabled
+  for (const FeedExtent& e : extents_) {
+    if (e.count > 0 && e.newest - options_.retention > e.oldest) return true;
+  }
+  return false;
+}
+
+// Stop() signals through stopping_ (guarded by mu_, which the waits below
+// already hold) rather than the stop token, so one predicate covers both
+// "new work" and "drain and exit".
+void SampleWriter::Run(std::stop_token) {
+  const auto commit_every = std::chrono::microseconds(std::max<Micros>(options_.commit_every, 0));
+  const auto prune_every = std::chrono::microseconds(std::max<Micros>(options_.prune_every, 0));
+  const auto retry_after = std::chrono::microseconds(std::max<Micros>(options_.retry_after_failure, 0));
+  const size_t batch = static_cast<size_t>(std::max(options_.commit_batch, 1));
+  Clock::time_point prune_at = Clock::now();  // a first pass right away prunes what piled up while stopped
+
+  while (true) {
+    std::vector<Submission> group;
+    bool stopping = false;
+    {
+      std::unique_lock lock(mu_);
+      const auto has_work = [this] { return stopping_ || !queue_.empty(); };
+      // Sleep until work arrives, or until the next prune step when the
+      // window holds rows past retention.
+      if (PruneNeededLocked()) {
+        cv_.wait_until(lock, prune_at, has_work);
+      } else {
+        cv_.wait(lock, has_work);
+      }
+      if (!queue_.empty()) {
+        // Group commit: one fsync for everything that arrives within
+        // commit_every of the first queued submission, or up to commit_batch.
+        const auto deadline = queue_.front().queued_at + commit_every;
+        cv_.wait_until(lock, deadline, [this, batch] {
+          return stopping_ || queued_samples_.load(std::memory_order_relaxed) >= batch;
+        });
+        size_t taken = 0;
+        while (!queue_.empty() && taken < batch) {  // whole submissions only
+          taken += queue_.front().samples.size();
+          group.push_back(std::move(queue_.front()));
+          queue_.pop_front();
+        }
+        queued_samples_.fetch_sub(taken, std::memory_order_relaxed);
+      }
+      stopping = stopping_;
+      if (stopping && group.empty()) return;  // queue drained
+    }
+
+    if (!group.empty() && !CommitGroup(group)) {
+      // Back off so a full disk is not hammered; Stop() cuts the wait short
+      // so the remaining queue is still answered promptly.
+      std::unique_lock lock(mu_);
+      cv_.wait_for(lock, retry_after, [this] { return stopping_; });
+    }
+
+    if (!stopping && Clock::now() >= prune_at) {
+      // One batch per feed per loop iteration: a big backlog (e.g. after a
+      // restart) is pruned in steps with commits in between.
+      const bool more = PruneSome();
+      prune_at = more ? Clock::now() : Clock::now() + prune_every;
+    }
+  }
+}
+
+bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
+  std::vector<std::vector<WriteOutcome>> results(group.size());
+  std::vector<FeedSample> candidates;
+  std::vector<std::pair<size_t, size_t>> origin;  // candidate -> (submission, sample)
+
+  // Too-old is decided against the newest time known so far, including
+  // earlier samples of this group, so the verdict does not depend on how
+  // samples happened to be grouped.
+  std::vector<FeedExtent> known;
+  {
+    std::lock_guard lock(mu_);
+    known = extents_;
+  }
+  for (size_t i = 0; i < group.size(); ++i) {
+    std::vector<FeedSample>& samples = group[i].samples;
+    results[i].assign(samples.size(), WriteOutcome{});
+    for (size_t j = 0; j < samples.size(); ++j) {
+      FeedSample& fs = samples[j];
+      // Ingest validates feed and channel count; checking here keeps one bad
+      // sample from failing the whole group's transaction.
+      if (fs.feed >= static_cast<std::uint32_t>(feed_count_)) {
+        results[i][j] = {false, RejectReason::kUnknownFeed};
+        continue;
+      }
+      const int channels = store_->channel_count(fs.feed);
+      const std::uint64_t channel_bits = channels >= 64 ? ~std::uint64_t{0} : (std::uint64_t{1} << channels) - 1;
+      if (fs.sample.values.size() != static_cast<size_t>(channels) || (fs.sample.missing_mask & ~channel_bits) != 0) {
+        results[i][j] = {false, RejectReason::kFieldCount};
+        continue;
+      }
+      FeedExtent& e = known[fs.feed];
+      if (e.count > 0 && fs.sample.t < e.newest - options_.retention) {
+        results[i][j] = {false, RejectReason::kTooOld};
+        continue;
+      }
+      if (e.count == 0 || fs.sample.t > e.newest) e.newest = fs.sample.t;
+      e.count = std::max<std::int64_t>(e.count, 1);
+      // Completions only receive outcomes, so the samples can move.
+      candidates.push_back(std::move(fs));
+      origin.emplace_back(i, j);
+    }
+  }
+
+  bool committed = true;
+  CommittedBatch batch;
+  if (!candidates.empty()) {
+    std::vector<InsertOutcome> inserted;
+    const Status status = store_->InsertBatch(candidates, &inserted);
+    if (!status.ok()) {
+      committed = false;
+      // The whole group shares the failed transaction's fate: nothing of it
+      // is acknowledged, and the senders are told to retry later.
+      for (auto& r : results) std::fill(r.begin(), r.end(), WriteOutcome{false, RejectReason::kStorageUnavailable});
+      storage_available_.store(false, std::memory_order_relaxed);
+      std::lock_guard lock(mu_);
+      ++stats_.failed_commits;
+    } else {
+      storage_available_.store(true, std::memory_order_relaxed);
+      std::vector<FeedExtent> extents;
+      {
+        std::lock_guard lock(mu_);
+        extents = extents_;
+      }
+      for (size_t k = 0; k < candidates.size(); ++k) {
+        const auto [i, j] = origin[k];
+        switch (inserted[k]) {
+          case InsertOutcome::kInserted: {
+            results[i][j] = Accepted();
+            FeedExtent& e = extents[candidates[k].feed];
+            const DataTime t = candidates[k].sample.t;
+            if (e.count == 0) {
+              e.oldest = e.newest = t;
+            } else {
+              e.oldest = std::min(e.oldest, t);
+              e.newest = std::max(e.newest, t);
+            }
+            ++e.count;
+            batch.samples.push_back(std::move(candidates[k]));
+            break;
+          }
+          case InsertOutcome::kDuplicateSame:
+            results[i][j] = Accepted();
+            break;
+          case InsertOutcome::kDuplicateConflict:
+            results[i][j] = {false, RejectReason::kDuplicateTime};
+            break;
+        }
+      }
+      std::lock_guard lock(mu_);
+      extents_ = std::move(extents);
+      stats_.samples_committed += batch.samples.size();
+      ++stats_.transactions;
+    }
+  }
+
+  // Completions only after the outcome is durable (or definitely failed),
+  // in submission order; then the subscribers see what is newly stored.
+  for (size_t i = 0; i < group.size(); ++i) {
+    if (group[i].done) group[i].done(std::move(results[i]));
+  }
+  if (!batch.samples.empty()) {
+    for (const auto& subscriber : subscribers_) subscriber(batch);
+  }
+  return committed;
+}
+
+bool SampleWriter::PruneSome() {
+  if (options_.prune_batch <= 0) return false;
+  std::vector<FeedExtent> snapshot;
+  {
+    std::lock_guard lock(mu_);
+    snapshot = extents_;
+  }
+  bool more = false;
+  for (size_t f = 0; f < snapshot.size(); ++f) {
+    const FeedExtent& e = snapshot[f];
+    if (e.count == 0) continue;
+    const DataTime cutoff = e.newest - options_.retention;
+    if (cutoff <= e.oldest) continue;
+    const auto feed = static_cast<std::uint32_t>(f);
+    auto deleted = store_->PruneBatch(feed, cutoff, options_.prune_batch);
+    if (!deleted.ok()) continue;  // tried again at the next pass; commits report storage trouble
+    // Only the oldest end moved and this thread is the only writer, so the
+    // count is adjusted and the new oldest row read with one b-tree descent
+    // instead of recounting the whole window.
+    FeedExtent updated = e;
+    updated.count -= *deleted;
+    bool found = false;
+    const Status read = store_->ReadRange(feed, std::numeric_limits<DataTime>::min(),
+                                          std::numeric_limits<DataTime>::max(), 1,
+                                          [&](std::span<const Sample> rows) {
+                                            updated.oldest = rows.front().t;
+                                            found = true;
+                                            return false;
+                                          });
+    if (!read.ok() || (found ? updated.count <= 0 : updated.count != 0)) {
+      // Fall back to the store's own figures if the bookkeeping disagrees.
+      auto fresh = store_->Extent(feed);
+      if (fresh.ok()) updated = *fresh;
+    } else if (!found) {
+      updated = FeedExtent{};
+    }
+    if (updated.count > 0 && updated.oldest < cutoff) more = true;
+    std::lock_guard lock(mu_);
+    extents_[f] = updated;
+    stats_.rows_pruned += static_cast<std::uint64_t>(*deleted);
+  }
+  return more;
+}
+
+}  // namespace lyapcast

@@ -1,0 +1,133 @@
+// SampleWriter: the single store writer thread with group commit.
+//
+// Sessions Submit() parsed samples with a completion; the writer gathers
+// submissions into one transaction until `commit_batch` samples are queued or
+// `commit_every` has passed since the first one, commits, then calls each
+// completion with one outcome per sample, and after that hands the newly
+// stored samples to the subscribers. An outcome is known only after its
+// transaction committed, so `ok` is never sent for an uncommitted sample.
+//
+// Too old: a sample older than (the feed's newest stored time - retention)
+// is rejected kTooOld without touching SQLite. Retention pruning runs on the
+// writer thread between commits in batches of `prune_batch` rows, so a large
+// prune never holds the write lock long enough to stall ingest.
+//
+// Storage failure: when a commit fails (disk full, I/O error), every sample
+// of that group gets kStorageUnavailable, storage_available() turns false,
+// and later groups keep trying (after `retry_after_failure`); the first
+// successful commit turns it true again. Nothing is ever acknowledged that
+// was not committed.
+//
+// Threads: Submit, Subscribe-free getters and Stop may be called from any
+// thread. Completions and subscribers run on the writer thread and must be
+// quick (post work elsewhere). Subscribe only before Start.
+#pragma once
+
+#include <atomic>
+#include <chrono>
+#include <condition_variable>
+#include <cstdint>
+#include <deque>
+#include <functional>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <thread>
+#include <vector>
+
+#include "core/reject_reason.h"
+#include "core/sample.h"
+#include "store/window_store.h"
+
+namespace lyapcast {
+
+struct WriterOptions {
+  Micros commit_every = 5'000;  // group window after the first queued sample
+  int commit_batch = 4096;      // commit as soon as this many samples are queued
+  Micros retention = 6 * 3600 * kMicrosPerSecond;
+  int prune_batch = 1000;                       // rows per prune transaction
+  Micros prune_every = kMicrosPerSecond;        // wall time between prune passes
+  Micros retry_after_failure = 200'000;         // wait before retrying after a failed commit
+};
+
+// Per-sample result: accepted (stored now or an identical resend) or why not.
+struct WriteOutcome {
+  bool accepted = false;
+  RejectReason reason = RejectReason::kStorageUnavailable;  // when !accepted
+};
+
+using WriteCompletion = std::function<void(std::vector<WriteOutcome>)>;
+
+// Newly stored samples of one committed transaction (identical resends and
+// rejected samples are not included).
+struct CommittedBatch {
+  std::vector<FeedSample> samples;
+};
+
+struct WriterStats {
+  std::uint64_t samples_committed = 0;  // inserted rows
+  std::uint64_t transactions = 0;       // successful commits
+  std::uint64_t failed_commits = 0;
+  std::uint64_t rows_pruned = 0;
+};
+
+class SampleWriter {
+ public:
+  // Takes ownership of the store, which must have its feeds registered.
+  SampleWriter(std::unique_ptr<WindowStore> store, int feed_count, WriterOptions options);
+  ~SampleWriter();  // Stop()s if still running
+  SampleWriter(const SampleWriter&) = delete;
+  SampleWriter& operator=(const SampleWriter&) = delete;
+
+  // Loads each feed's extent and starts the writer thread.
+  [[nodiscard]] Status Start();
+
+  // Queues samples; `done` is called exactly once from the writer thread.
+  // Returns false (and does not call `done`) after Stop() began. Never
+  // blocks: callers bound how much they keep outstanding (backpressure).
+  bool Submit(std::vector<FeedSample> samples, WriteCompletion done);
+
+  // Adds a subscriber for committed batches. Only before Start().
+  void Subscribe(std::function<void(const CommittedBatch&)> subscriber);
+
+  // Commits and completes everything submitted so far, then joins the thread.
+  void Stop();
+
+  bool storage_available() const { return storage_available_.load(std::memory_order_relaxed); }
+  std::size_t queued_samples() const { return queued_samples_.load(std::memory_order_relaxed); }
+  FeedExtent extent(std::uint32_t feed) const;  // snapshot
+  WriterStats stats() const;                    // snapshot
+
+ private:
+  struct Submission {
+    std::vector<FeedSample> samples;
+    WriteCompletion done;
+    std::chrono::steady_clock::time_point queued_at;  // starts the commit_every window
+  };
+  void Run(std::stop_token stop);
+  // Returns false when the commit failed (storage unavailable).
+  bool CommitGroup(std::vector<Submission>& group);
+  // One prune batch per feed that has rows below its cutoff; returns true
+  // when some feed still has rows to prune after this step.
+  bool PruneSome();
+  bool PruneNeededLocked() const;  // requires mu_
+
+  std::unique_ptr<WindowStore> store_;
+  const int feed_count_;
+  const WriterOptions options_;
+  std::vector<std::function<void(const CommittedBatch&)>> subscribers_;
+
+  mutable std::mutex mu_;
+  std::condition_variable cv_;
+  std::deque<Submission> queue_;  // guarded by mu_
+  bool stopping_ = false;         // guarded by mu_
+  std::vector<FeedExtent> extents_;  // guarded by mu_
+  WriterStats stats_;                // guarded by mu_
+
+  std::mutex stop_mu_;  // serializes Stop() so two callers never join at once
+  std::atomic<bool> storage_available_{true};
+  std::atomic<std::size_t> queued_samples_{0};
+  std::jthread thread_;
+};
+
+}  // namespace lyapcast

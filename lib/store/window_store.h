@@ -1,0 +1,118 @@
+// WindowStore: the rolling SQLite window of samples (one connection).
+//
+// Schema (versioned by PRAGMA user_version, migrated forward on open):
+//   feeds(feed_id, name, channels, step_us, created_at)
+//   samples(feed_id, t_us, mask, vals) WITHOUT ROWID, primary key (feed_id, t_us)
+// `vals` holds only the present channels as little-endian float64, in channel
+// order; `mask` has bit c set when channel c is missing.
+//
+// Duplicate timestamps: a sample whose (feed, t) is already stored is accepted
+// as an idempotent resend when its values and mask are identical (stored once),
+// and rejected as kDuplicateConflict when they differ (the stored one stays).
+// A client that resends after a lost connection therefore never duplicates
+// data, and conflicting data is never overwritten silently.
+//
+// Journal: WAL, synchronous=FULL (a commit survives power loss).
+// Thread safety: an instance is used by one thread at a time. The writer
+// thread owns one instance; each reader (training, queries) opens its own.
+#pragma once
+
+#include <cstdint>
+#include <filesystem>
+#include <functional>
+#include <memory>
+#include <span>
+#include <string>
+#include <vector>
+
+#include "core/data_time.h"
+#include "core/sample.h"
+#include "core/status.h"
+
+struct sqlite3;
+
+namespace lyapcast {
+
+// What the store records about a feed, compared at every start.
+struct FeedLayout {
+  std::string id;
+  std::vector<std::string> channels;
+  Micros step = 0;
+};
+
+// Stored samples of a feed. When count == 0, oldest/newest are 0.
+struct FeedExtent {
+  std::int64_t count = 0;
+  DataTime oldest = 0;
+  DataTime newest = 0;
+};
+
+enum class InsertOutcome {
+  kInserted,           // new row
+  kDuplicateSame,      // identical row already stored: accepted, stored once
+  kDuplicateConflict,  // a different row is stored at that time: rejected
+};
+
+struct StoreOptions {
+  std::filesystem::path path;  // parent folder is created if missing
+  bool read_only = false;      // readers open read-only; requires an existing file
+  int busy_timeout_ms = 5000;  // wait for locks this long before failing
+};
+
+inline constexpr int kSchemaVersion = 1;
+
+class WindowStore {
+ public:
+  // Opens (creating if needed) and migrates the schema to kSchemaVersion.
+  // Errors: kIoError (cannot open), kFailedPrecondition (file from a newer
+  // lyapcast: user_version > kSchemaVersion), kCorruption.
+  [[nodiscard]] static Result<std::unique_ptr<WindowStore>> Open(const StoreOptions& options);
+  ~WindowStore();
+  WindowStore(const WindowStore&) = delete;
+  WindowStore& operator=(const WindowStore&) = delete;
+
+  // Binds feeds in config order: feed index i in the calls below means
+  // feeds[i]. New feeds are recorded; a known feed whose channels or step
+  // differ is refused (kFailedPrecondition) with a message that says what
+  // changed and what to do. Feeds stored but absent from `feeds` are kept.
+  [[nodiscard]] Status RegisterFeeds(const std::vector<FeedLayout>& feeds);
+
+  int schema_version() const;
+
+  // Inserts all samples in one transaction and fills outcomes[i] per sample.
+  // On a non-ok Status (disk full: kUnavailable; other failures: kIoError)
+  // the transaction is rolled back and nothing of the batch is stored.
+  [[nodiscard]] Status InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes);
+
+  // Deletes at most max_rows of the feed's oldest samples with t < cutoff,
+  // in one short transaction. Returns the number of rows deleted.
+  [[nodiscard]] Result<int> PruneBatch(std::uint32_t feed, DataTime cutoff, int max_rows);
+
+  [[nodiscard]] Result<FeedExtent> Extent(std::uint32_t feed);
+
+  // Streams samples with from <= t < to in time order, in slices of at most
+  // slice_rows, each read in its own short read transaction (so WAL
+  // checkpoints are never starved). `visit` returns false to stop early.
+  [[nodiscard]] Status ReadRange(std::uint32_t feed, DataTime from, DataTime to, int slice_rows,
+                                 const std::function<bool(std::span<const Sample>)>& visit);
+
+  // Number of channels of a registered feed.
+  int channel_count(std::uint32_t feed) const;
+
+  // The raw handle for this connection's own pragmas in tests (e.g.
+  // max_page_count to simulate a full disk). Owned by the store.
+  sqlite3* raw_handle() { return db_; }
+
+ private:
+  WindowStore() = default;
+  struct Statements;
+  sqlite3* db_ = nullptr;  // owned; closed in the destructor
+  std::unique_ptr<Statements> stmts_;
+  std::vector<std::int64_t> feed_ids_;  // config index -> feeds.feed_id
+  std::vector<int> channel_counts_;
+  int schema_version_ = 0;
+  std::filesystem::path path_;  // for messages
+  bool read_only_ = false;
+};
+
+}  // namespace lyapcast

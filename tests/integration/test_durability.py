@@ -1,0 +1,150 @@
+"""Durability: a SIGKILL loses nothing acknowledged, and a full disk makes the
+daemon refuse (never acknowledge) until room returns, then recover by itself."""
+
+import os
+import re
+import subprocess
+import threading
+import time
+import unittest
+
+from harness import Daemon, t_text, now_us
+
+
+def stream_until(client, lines, stop_event, chunk=500):
+    for s in range(0, len(lines), chunk):
+        if stop_event.is_set():
+            return
+        try:
+            client.send_lines(lines[s:s + chunk])
+        except OSError:
+            return
+        time.sleep(0.002)
+
+
+class CrashTest(unittest.TestCase):
+    def test_sigkill_mid_stream_keeps_every_acknowledged_sample(self):
+        with Daemon() as d:
+            d.start()
+            base = now_us() - 3_600_000_000
+            lines = [f"loop-a,{t_text(base + i * 10_000)},{i},1,2" for i in range(200_000)]
+            c = d.connect()
+            stop = threading.Event()
+            sender = threading.Thread(target=stream_until, args=(c, lines, stop), daemon=True)
+            sender.start()
+            # Kill once a good number of samples were acknowledged, mid-stream.
+            replies = c.wait_replies(20_000, timeout=120)
+            self.assertGreaterEqual(len(replies), 20_000)
+            d.kill()
+            stop.set()
+            c.wait_closed()
+            replies = c.wait_replies(0)
+            acked = []
+            for i, r in enumerate(replies):
+                self.assertEqual(r, f"ok {i + 1}")
+                acked.append(base + i * 10_000)  # replies are in line order
+            c.close()
+
+            d.start()  # same folder, same database
+            stored = set(d.stored_times("loop-a"))
+            missing = [t for t in acked if t not in stored]
+            self.assertEqual(missing, [], "every sample acknowledged before the kill is present")
+            self.assertEqual(d.sql("PRAGMA integrity_check"), [["ok"]])
+            # The restarted daemon keeps ingesting.
+            c2 = d.connect()
+            c2.send_lines([f"loop-a,{t_text(base + 300_000 * 10_000)},1,2,3"])
+            self.assertEqual(c2.wait_replies(1), ["ok 1"])
+            c2.close()
+            self.assertEqual(d.stop(), 0)
+
+
+@unittest.skipUnless(os.geteuid() == 0, "needs root to mount a small tmpfs as a full disk")
+class StorageFullTest(unittest.TestCase):
+    """A real full disk: the database lives on a tiny tmpfs that fills up."""
+
+    def setUp(self):
+        self.mnt = None
+        d = Daemon()
+        self.daemon = d
+        self.mnt = os.path.join(d.dir, "disk")
+        os.makedirs(self.mnt)
+        r = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=1m", "tmpfs", self.mnt], capture_output=True, text=True)
+        if r.returncode != 0:
+            self.mnt = None
+            d.__exit__(None, None, None)
+            self.skipTest("cannot mount tmpfs here: " + r.stderr.strip())
+        with open(d.config_path) as f:
+            text = f.read()
+        d.db = os.path.join(self.mnt, "window.db")
+        with open(d.config_path, "w") as f:
+            f.write(text.replace(os.path.join(d.dir, "window.db"), d.db))
+
+    def tearDown(self):
+        try:
+            self.daemon.__exit__(None, None, None)
+        finally:
+            if self.mnt:
+                subprocess.run(["umount", "-l", self.mnt])
+
+    def test_full_disk_refuses_then_recovers(self):
+        d = self.daemon
+        d.start()
+        base = now_us() - 3_600_000_000
+        c = d.connect()
+        i = 0
+        acked, refused = [], []
+        # Fill the disk: send in rounds until replies say storage-unavailable.
+        for _ in range(400):
+            lines = [f"loop-a,{t_text(base + (i + k) * 10_000)},{i + k},1.25,-3.5" for k in range(500)]
+            c.send_lines(lines)
+            replies = c.wait_replies(i + len(lines), timeout=60)
+            for k in range(len(lines)):
+                r = replies[i + k]
+                if r.startswith("ok "):
+                    acked.append(base + (i + k) * 10_000)
+                else:
+                    self.assertRegex(r, r"^error \d+ storage-unavailable ")
+                    refused.append(base + (i + k) * 10_000)
+            i += len(lines)
+            if refused:
+                break
+        self.assertTrue(refused, "the 1 MiB disk filled up")
+        status, body = d.http_get("/v1/health/live")
+        self.assertEqual(status, 200)
+        self.assertFalse(body["storage_available"])
+
+        # While full, nothing is acknowledged.
+        lines = [f"loop-a,{t_text(base + (i + k) * 10_000)},{i + k},1,1" for k in range(200)]
+        c.send_lines(lines)
+        replies = c.wait_replies(i + len(lines), timeout=60)
+        for k in range(len(lines)):
+            self.assertRegex(replies[i + k], r"^error \d+ storage-unavailable ")
+            refused.append(base + (i + k) * 10_000)
+        i += len(lines)
+
+        # Room returns: ingest recovers by itself on the same connection.
+        subprocess.run(["mount", "-o", "remount,size=64m", self.mnt], check=True)
+        recovered = False
+        for _ in range(100):
+            t_us = base + i * 10_000
+            c.send_lines([f"loop-a,{t_text(t_us)},{i},2,2"])
+            r = c.wait_replies(i + 1, timeout=30)[i]
+            i += 1
+            if r.startswith("ok "):
+                acked.append(t_us)
+                recovered = True
+                break
+            refused.append(t_us)
+            time.sleep(0.1)
+        self.assertTrue(recovered, "ingest resumed after the disk had room again")
+        status, body = d.http_get("/v1/health/live")
+        self.assertTrue(body["storage_available"])
+        self.assertEqual(d.stop(), 0, d.read_log())
+        stored = set(d.stored_times("loop-a"))
+        self.assertTrue(set(acked) <= stored, "every acknowledged sample is stored")
+        self.assertFalse(set(refused) & stored, "no refused sample is stored")
+        self.assertEqual(d.sql("PRAGMA integrity_check"), [["ok"]])
+
+
+if __name__ == "__main__":
+    unittest.main()
