@@ -83,7 +83,8 @@ int RunDaemon(const DaemonOptions& options) {
   if (!tokens_ok) return kExitConfigInvalid;
 
   spdlog::info("lyapcastd {} starting (pid {}), config {}", kVersion, ::getpid(), options.config.string());
-  for (std::string_view rest = DescribeConfig(config); !rest.empty();) {
+  const std::string summary = DescribeConfig(config);
+  for (std::string_view rest = summary; !rest.empty();) {
     const auto nl = rest.find('\n');
     spdlog::info("  {}", rest.substr(0, nl));
     if (nl == std::string_view::npos) break;

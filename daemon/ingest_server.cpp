@@ -117,7 +117,7 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
   }
 
   void DoRead() {
-    if (reading_ || draining_ || closed_ || eof_) return;
+    if (reading_ || draining_ || closed_ || eof_ || close_after_flush_) return;
     if (outstanding_ > server_->options.max_outstanding || PendingOutput() > server_->options.max_pending_output) {
       return;  // backpressure: resumed from OnCommitted / OnWritten
     }

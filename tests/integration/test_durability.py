@@ -113,16 +113,43 @@ class StorageFullTest(unittest.TestCase):
         self.assertEqual(status, 200)
         self.assertFalse(body["storage_available"])
 
-        # While full, nothing is acknowledged.
-        lines = [f"loop-a,{t_text(base + (i + k) * 10_000)},{i + k},1,1" for k in range(200)]
-        c.send_lines(lines)
-        replies = c.wait_replies(i + len(lines), timeout=60)
-        for k in range(len(lines)):
-            self.assertRegex(replies[i + k], r"^error \d+ storage-unavailable ")
-            refused.append(base + (i + k) * 10_000)
-        i += len(lines)
+        # A smaller commit could still fit in what is left, so take the rest
+        # of the disk, as another process writing logs would.
+        filler = os.path.join(self.mnt, "filler")
+        fd = os.open(filler, os.O_WRONLY | os.O_CREAT)
+        try:
+            while os.write(fd, b"\0" * 4096) > 0:
+                pass
+        except OSError:
+            pass  # ENOSPC: the disk is full
+        os.close(fd)
+        # Commits that fit in space SQLite already holds (its WAL file) may
+        # still succeed and are acknowledged honestly; once nothing fits,
+        # every line is refused. Send rounds until a whole round is refused.
+        whole_round_refused = False
+        for _ in range(50):
+            lines = [f"loop-a,{t_text(base + (i + k) * 10_000)},{i + k},1,1" for k in range(200)]
+            c.send_lines(lines)
+            replies = c.wait_replies(i + len(lines), timeout=60)
+            round_refused = 0
+            for k in range(len(lines)):
+                r = replies[i + k]
+                if r.startswith("ok "):
+                    acked.append(base + (i + k) * 10_000)
+                else:
+                    self.assertRegex(r, r"^error \d+ storage-unavailable ")
+                    refused.append(base + (i + k) * 10_000)
+                    round_refused += 1
+            i += len(lines)
+            if round_refused == len(lines):
+                whole_round_refused = True
+                break
+        self.assertTrue(whole_round_refused, "a full disk refuses every line")
+        status, body = d.http_get("/v1/health/live")
+        self.assertFalse(body["storage_available"])
 
         # Room returns: ingest recovers by itself on the same connection.
+        os.remove(filler)
         subprocess.run(["mount", "-o", "remount,size=64m", self.mnt], check=True)
         recovered = False
         for _ in range(100):

@@ -6,6 +6,7 @@ import json
 import os
 import re
 import threading
+import time
 import unittest
 
 from harness import Daemon, t_text, now_us
@@ -189,6 +190,11 @@ class IngestProtocolTest(unittest.TestCase):
         self.assertTrue(extra.wait_closed())
         for c in clients + [extra]:
             c.close()
+        # Wait until the daemon has seen the closes, so later tests can connect.
+        for _ in range(500):
+            if self.d.http_get("/v1/feeds")[1]["ingest"]["connections"] == 0:
+                break
+            time.sleep(0.02)
 
     def test_http_feeds_and_live(self):
         status, body = self.d.http_get("/v1/health/live")
@@ -266,7 +272,8 @@ class ConfigRefusalTest(unittest.TestCase):
                 f.write(text.replace("channels: [x, v]", "channels: [x, v, a]"))
             import subprocess
             from harness import LYAPCASTD
-            out = subprocess.run([LYAPCASTD, "--config", d.config_path], capture_output=True, text=True, timeout=30)
+            out = subprocess.run([LYAPCASTD, "--config", d.config_path], capture_output=True, text=True,
+                                 errors="replace", timeout=30)
             self.assertEqual(out.returncode, 2)
             self.assertIn("rig-b", out.stdout + out.stderr)
 
