@@ -58,6 +58,7 @@ bool SampleWriter::Submit(std::vector<FeedSample> samples, WriteCompletion done)
     std::lock_guard lock(mu_);
     if (stopping_) return false;
     queue_.push_back(Submission{std::move(samples), std::move(done), Clock::now()});
+    ++submissions_;
     queued_samples_.fetch_add(n, std::memory_order_relaxed);
   }
   cv_.notify_all();
@@ -114,6 +115,7 @@ bool SampleWriter::PruneNeededLocked() const {
 // "new work" and "drain and exit".
 void SampleWriter::Run(std::stop_token) {
   const auto commit_every = std::chrono::microseconds(std::max<Micros>(options_.commit_every, 0));
+  const auto commit_quiet = std::chrono::microseconds(std::max<Micros>(options_.commit_quiet, 0));
   const auto prune_every = std::chrono::microseconds(std::max<Micros>(options_.prune_every, 0));
   const auto retry_after = std::chrono::microseconds(std::max<Micros>(options_.retry_after_failure, 0));
   const size_t batch = static_cast<size_t>(std::max(options_.commit_batch, 1));
@@ -135,10 +137,19 @@ void SampleWriter::Run(std::stop_token) {
       if (!queue_.empty()) {
         // Group commit: one fsync for everything that arrives within
         // commit_every of the first queued submission, or up to commit_batch.
+        // When nothing new arrives for commit_quiet, waiting longer only
+        // delays the senders (a single client waiting for its replies sends
+        // nothing more), so the group is committed at once.
         const auto deadline = queue_.front().queued_at + commit_every;
-        cv_.wait_until(lock, deadline, [this, batch] {
+        const auto full = [this, batch] {
           return stopping_ || queued_samples_.load(std::memory_order_relaxed) >= batch;
-        });
+        };
+        while (!full()) {
+          const std::uint64_t seen = submissions_;
+          const auto quiet_until = std::min(deadline, Clock::now() + commit_quiet);
+          if (cv_.wait_until(lock, quiet_until, full)) break;
+          if (Clock::now() >= deadline || submissions_ == seen) break;
+        }
         size_t taken = 0;
         while (!queue_.empty() && taken < batch) {  // whole submissions only
           taken += queue_.front().samples.size();

@@ -2,7 +2,8 @@
 //
 // Sessions Submit() parsed samples with a completion; the writer gathers
 // submissions into one transaction until `commit_batch` samples are queued or
-// `commit_every` has passed since the first one, commits, then calls each
+// `commit_every` has passed since the first one (or no new submission came
+// for `commit_quiet`), commits, then calls each
 // completion with one outcome per sample, and after that hands the newly
 // stored samples to the subscribers. An outcome is known only after its
 // transaction committed, so `ok` is never sent for an uncommitted sample.
@@ -44,6 +45,7 @@ namespace lyapcast {
 struct WriterOptions {
   Micros commit_every = 5'000;  // group window after the first queued sample
   int commit_batch = 4096;      // commit as soon as this many samples are queued
+  Micros commit_quiet = 300;    // ... or when no submission arrived for this long
   Micros retention = 6 * 3600 * kMicrosPerSecond;
   int prune_batch = 1000;                       // rows per prune transaction
   Micros prune_every = kMicrosPerSecond;        // wall time between prune passes
@@ -121,6 +123,7 @@ class SampleWriter {
   std::condition_variable cv_;
   std::deque<Submission> queue_;  // guarded by mu_
   bool stopping_ = false;         // guarded by mu_
+  std::uint64_t submissions_ = 0;  // guarded by mu_; counts Submit() calls
   std::vector<FeedExtent> extents_;  // guarded by mu_
   WriterStats stats_;                // guarded by mu_
 

@@ -138,6 +138,7 @@ TEST(SampleWriter, GroupsManySubmissionsIntoFewTransactions) {
   // the generous commit_every runs out.
   options.commit_batch = kSubmissions;
   options.commit_every = 20 * kMicrosPerSecond;
+  options.commit_quiet = 20 * kMicrosPerSecond;
   SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
   ASSERT_TRUE(writer.Start().ok());
   Completions done;
@@ -151,6 +152,23 @@ TEST(SampleWriter, GroupsManySubmissionsIntoFewTransactions) {
   EXPECT_EQ(stats.samples_committed, static_cast<std::uint64_t>(kSubmissions));
   EXPECT_EQ(writer.extent(0).count, kSubmissions);
   EXPECT_EQ(writer.queued_samples(), 0U);
+}
+
+// A lone sender waits for its replies before sending more, so holding its
+// group open for the whole commit_every would only slow it down: the group
+// closes once nothing new arrived for commit_quiet. With commit_every at 60 s
+// and the 30 s wait below, the completion arrives only through the quiet gap.
+TEST(SampleWriter, CommitsEarlyWhenNoMoreSubmissionsArrive) {
+  TempDir dir;
+  WriterOptions options = FastOptions();
+  options.commit_every = 60 * kMicrosPerSecond;
+  options.commit_quiet = 1'000;
+  SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
+  ASSERT_TRUE(writer.Start().ok());
+  Completions done;
+  ASSERT_TRUE(writer.Submit({Make(Sec(1), 1)}, done.Callback(0)));
+  ASSERT_TRUE(done.WaitFor(1));
+  EXPECT_EQ(writer.stats().transactions, 1U);
 }
 
 TEST(SampleWriter, CompletesInSubmissionOrderWithOneOutcomePerSample) {
