@@ -239,6 +239,31 @@ class AuthTest(unittest.TestCase):
             self.assertNotIn("s3cret-token", d.read_log(), "tokens are never logged")
 
 
+class HttpAccessTest(unittest.TestCase):
+    def test_read_token_guards_get(self):
+        with Daemon() as d:
+            for name, token in (("read", "reader-token"), ("admin", "admin-token")):
+                with open(os.path.join(d.dir, f"{name}.token"), "w") as f:
+                    f.write(token + "\n")
+            with open(d.config_path, "a") as f:
+                f.write(f"auth:\n  read_token_file: {d.dir}/read.token\n  admin_token_file: {d.dir}/admin.token\n")
+            d.start()
+            status, body = d.http_get("/v1/feeds")
+            self.assertEqual(status, 401)
+            self.assertEqual(body["error"]["code"], "unauthorized")
+            status, body = d.http_get("/v1/feeds", {"Authorization": "Bearer wrong"})
+            self.assertEqual(status, 401)
+            for token in ("reader-token", "admin-token"):
+                status, body = d.http_get("/v1/feeds", {"Authorization": f"Bearer {token}"})
+                self.assertEqual(status, 200, token)
+            status, _ = d.http_get("/v1/health/live")
+            self.assertEqual(status, 200, "liveness needs no token")
+            self.assertEqual(d.stop(), 0)
+            log = d.read_log()
+            self.assertNotIn("reader-token", log)
+            self.assertNotIn("admin-token", log)
+
+
 class ShutdownTest(unittest.TestCase):
     def test_sigterm_answers_everything_received(self):
         with Daemon() as d:
