@@ -239,6 +239,52 @@ class AuthTest(unittest.TestCase):
             self.assertNotIn("s3cret-token", d.read_log(), "tokens are never logged")
 
 
+class BackpressureTest(unittest.TestCase):
+    def test_client_that_does_not_read_is_slowed_not_dropped(self):
+        """A sender that never reads its replies fills the daemon's bounded
+        reply buffer; the daemon then stops reading, TCP buffers fill, and the
+        sender blocks. Once it reads again, every line is answered and stored."""
+        import socket
+        with Daemon(extra_config="limits: {commit_batch: 256}") as d:
+            d.start()
+            base = now_us() - 3_600_000_000
+            total = 1_500_000  # ~16 MB of replies: more than every buffer on the way holds
+            payload = "".join(f"rig-b,{t_text(base + i * 1000)},{i},0\n" for i in range(total)).encode()
+            sock = socket.create_connection(("127.0.0.1", d.ingest_port), timeout=60)
+            sock.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 64 * 1024)
+            sock.settimeout(3.0)
+            sent = 0
+            blocked = False
+            try:
+                while sent < len(payload):
+                    sent += sock.send(payload[sent:sent + 65536])
+            except socket.timeout:
+                blocked = True
+            self.assertTrue(blocked, "the sender was slowed down by TCP backpressure")
+            self.assertLess(sent, len(payload))
+            # Read replies while sending the rest.
+            replies = bytearray()
+            sock.settimeout(60)
+
+            def reader():
+                while replies.count(b"\n") < total:
+                    chunk = sock.recv(1 << 20)
+                    if not chunk:
+                        break
+                    replies.extend(chunk)
+
+            t = threading.Thread(target=reader)
+            t.start()
+            sock.sendall(payload[sent:])
+            t.join(timeout=300)
+            lines = replies.decode().splitlines()
+            self.assertEqual(len(lines), total)
+            self.assertEqual(lines[-1], f"ok {total}", "nothing was dropped")
+            sock.close()
+            self.assertEqual(d.stop(), 0)
+            self.assertEqual(len(d.stored_times("rig-b")), total)
+
+
 class HttpAccessTest(unittest.TestCase):
     def test_read_token_guards_get(self):
         with Daemon() as d:
