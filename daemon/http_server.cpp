@@ -1,6 +1,7 @@
 #include <utility>  // before Asio/Beast: Boost 1.74 needs std::exchange (PITFALLS.md)
 
 #include "http_server.h"
+#include "listen.h"
 
 #include <spdlog/spdlog.h>
 
@@ -219,24 +220,7 @@ HttpServer::HttpServer(asio::io_context& io, HttpServerOptions options, HttpHand
 
 HttpServer::~HttpServer() = default;
 
-Status HttpServer::Listen() {
-  const Endpoint& ep = impl_->options.endpoint;
-  beast::error_code ec;
-  const std::string host = ep.host == "localhost" ? "127.0.0.1" : ep.host;
-  const auto address = asio::ip::make_address(host, ec);
-  if (ec) return Status::Invalid(fmt::format("listen.http: '{}' is not an IP address", ep.host));
-  const tcp::endpoint endpoint(address, ep.port);
-  auto& acc = impl_->acceptor;
-  if (acc.open(endpoint.protocol(), ec); ec) return Status::Io(fmt::format("http socket: {}", ec.message()));
-  acc.set_option(tcp::acceptor::reuse_address(true), ec);
-  if (acc.bind(endpoint, ec); ec) {
-    return Status::Io(fmt::format("cannot listen for HTTP on {}: {}", ep.ToString(), ec.message()));
-  }
-  if (acc.listen(asio::socket_base::max_listen_connections, ec); ec) {
-    return Status::Io(fmt::format("cannot listen for HTTP on {}: {}", ep.ToString(), ec.message()));
-  }
-  return Status::Ok();
-}
+Status HttpServer::Listen() { return BindAndListen(impl_->acceptor, impl_->options.endpoint, "listen.http"); }
 
 std::uint16_t HttpServer::port() const {
   beast::error_code ec;

@@ -1,6 +1,7 @@
 #include <utility>  // before Asio: Boost 1.74 needs std::exchange (PITFALLS.md)
 
 #include "ingest_server.h"
+#include "listen.h"
 
 #include <spdlog/spdlog.h>
 
@@ -462,24 +463,7 @@ IngestServer::IngestServer(asio::io_context& io, const Config& config, SampleWri
 
 IngestServer::~IngestServer() = default;
 
-Status IngestServer::Listen() {
-  const Endpoint& ep = impl_->options.endpoint;
-  boost::system::error_code ec;
-  const std::string host = ep.host == "localhost" ? "127.0.0.1" : ep.host;
-  const auto address = asio::ip::make_address(host, ec);
-  if (ec) return Status::Invalid(fmt::format("listen.ingest: '{}' is not an IP address", ep.host));
-  const tcp::endpoint endpoint(address, ep.port);
-  auto& acc = impl_->acceptor;
-  if (acc.open(endpoint.protocol(), ec); ec) return Status::Io(fmt::format("ingest socket: {}", ec.message()));
-  acc.set_option(tcp::acceptor::reuse_address(true), ec);
-  if (acc.bind(endpoint, ec); ec) {
-    return Status::Io(fmt::format("cannot listen for ingest on {}: {}", ep.ToString(), ec.message()));
-  }
-  if (acc.listen(asio::socket_base::max_listen_connections, ec); ec) {
-    return Status::Io(fmt::format("cannot listen for ingest on {}: {}", ep.ToString(), ec.message()));
-  }
-  return Status::Ok();
-}
+Status IngestServer::Listen() { return BindAndListen(impl_->acceptor, impl_->options.endpoint, "listen.ingest"); }
 
 std::uint16_t IngestServer::port() const {
   boost::system::error_code ec;

@@ -100,7 +100,8 @@ class PathResolver {
  public:
   explicit PathResolver(const std::filesystem::path& source) : base_(source.parent_path()) {}
   std::filesystem::path Resolve(const std::filesystem::path& p) const {
-    return p.is_relative() && !base_.empty() ? base_ / p : p;
+    // Normalized so logs show config/../var/x.db as var/x.db.
+    return p.is_relative() && !base_.empty() ? (base_ / p).lexically_normal() : p;
   }
 
  private:

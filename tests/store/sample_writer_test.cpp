@@ -5,6 +5,8 @@
 #include "store/sample_writer.h"
 
 #include <gtest/gtest.h>
+
+#include "support/temp_dir.h"
 #include <sqlite3.h>
 #include <unistd.h>
 
@@ -24,24 +26,10 @@ using namespace std::chrono_literals;
 
 constexpr auto kTimeout = 30s;
 
-class TempDir {
+// A fresh folder per test, removed afterwards.
+class TempDir : public lyapcast::testing::TempDir {
  public:
-  TempDir() {
-    static std::atomic<int> counter{0};
-    const auto ticks = std::chrono::steady_clock::now().time_since_epoch().count();
-    path_ = fs::temp_directory_path() /
-            ("lyapcast-writer-test-" + std::to_string(::getpid()) + "-" + std::to_string(counter++) + "-" +
-             std::to_string(ticks));
-    fs::create_directories(path_);
-  }
-  ~TempDir() {
-    std::error_code ec;
-    fs::remove_all(path_, ec);
-  }
-  const fs::path& path() const { return path_; }
-
- private:
-  fs::path path_;
+  TempDir() : lyapcast::testing::TempDir("lyapcast-writer-test") {}
 };
 
 DataTime Sec(double s) { return static_cast<DataTime>(std::llround(s * 1e6)); }

@@ -3,6 +3,8 @@
 #include "store/window_store.h"
 
 #include <gtest/gtest.h>
+
+#include "support/temp_dir.h"
 #include <sqlite3.h>
 #include <unistd.h>
 
@@ -20,25 +22,10 @@ namespace {
 
 namespace fs = std::filesystem;
 
-// A fresh folder under the system temp dir, removed with everything in it.
-class TempDir {
+// A fresh folder per test, removed afterwards.
+class TempDir : public lyapcast::testing::TempDir {
  public:
-  TempDir() {
-    static std::atomic<int> counter{0};
-    const auto ticks = std::chrono::steady_clock::now().time_since_epoch().count();
-    path_ = fs::temp_directory_path() /
-            ("lyapcast-store-test-" + std::to_string(::getpid()) + "-" + std::to_string(counter++) + "-" +
-             std::to_string(ticks));
-    fs::create_directories(path_);
-  }
-  ~TempDir() {
-    std::error_code ec;
-    fs::remove_all(path_, ec);
-  }
-  const fs::path& path() const { return path_; }
-
- private:
-  fs::path path_;
+  TempDir() : lyapcast::testing::TempDir("lyapcast-store-test") {}
 };
 
 // Runs the sqlite3 shell on a database and returns its output, trailing
