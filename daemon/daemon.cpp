@@ -17,6 +17,7 @@
 #include "core/wall_clock.h"
 #include "http_server.h"
 #include "ingest_server.h"
+#include "physics/dynamics.h"
 #include "store/sample_writer.h"
 #include "store/window_store.h"
 
@@ -57,12 +58,24 @@ std::vector<FeedLayout> Layouts(const Config& config) {
   return out;
 }
 
+// LoadConfig checks the shape of `dynamics`; compiling the expressions finds
+// unknown variables and syntax errors, which are config errors too.
+Status CompileAllDynamics(const Config& config) {
+  for (const FeedConfig& feed : config.feeds) {
+    if (!feed.dynamics) continue;
+    auto compiled = Dynamics::Compile(feed);
+    if (!compiled.ok()) return Status::Invalid(config.source.string() + ": " + compiled.status().message());
+  }
+  return Status::Ok();
+}
+
 }  // namespace
 
 int CheckConfig(const std::filesystem::path& file) {
   auto config = LoadConfig(file);
-  if (!config.ok()) {
-    std::cerr << "lyapcastd: invalid config: " << config.status().message() << '\n';
+  Status dynamics = config.ok() ? CompileAllDynamics(*config) : config.status();
+  if (!dynamics.ok()) {
+    std::cerr << "lyapcastd: invalid config: " << dynamics.message() << '\n';
     return kExitConfigInvalid;
   }
   std::cout << "config " << file.string() << " is valid\n" << DescribeConfig(*config);
@@ -76,6 +89,10 @@ int RunDaemon(const DaemonOptions& options) {
     return kExitConfigInvalid;
   }
   const Config config = std::move(loaded).value();
+  if (Status s = CompileAllDynamics(config); !s.ok()) {
+    spdlog::error("invalid config: {}", s.message());
+    return kExitConfigInvalid;
+  }
   bool tokens_ok = true;
   const auto ingest_token = LoadToken(config.auth.ingest_token_file, "ingest_token_file", &tokens_ok);
   const auto read_token = LoadToken(config.auth.read_token_file, "read_token_file", &tokens_ok);

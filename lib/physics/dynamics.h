@@ -22,7 +22,7 @@
 // No method throws: parser exceptions are caught inside this module.
 #pragma once
 
-#include "physics/eigen.h"  // first, instead of <Eigen/Core>: see there
+#include "core/eigen.h"  // first, instead of <Eigen/Core>: see there
 
 #include <memory>
 #include <optional>

@@ -15,7 +15,7 @@
 // No function throws (unless f does).
 #pragma once
 
-#include "physics/eigen.h"  // first, instead of <Eigen/Core>: see there
+#include "core/eigen.h"  // first, instead of <Eigen/Core>: see there
 
 #include <cstdint>
 #include <functional>

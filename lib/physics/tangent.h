@@ -17,7 +17,7 @@
 // is no more thread-safe than `d`: use it on the thread that owns `d`.
 #pragma once
 
-#include "physics/eigen.h"  // first, instead of <Eigen/Core>: see there
+#include "core/eigen.h"  // first, instead of <Eigen/Core>: see there
 
 #include <vector>
 

@@ -360,6 +360,24 @@ class ConfigRefusalTest(unittest.TestCase):
             self.assertEqual(bad.returncode, 2)
             self.assertIn("bogus_key", bad.stderr)
 
+    def test_expression_errors_are_config_errors(self):
+        import subprocess
+        from harness import LYAPCASTD
+        with Daemon() as d:
+            with open(d.config_path) as f:
+                text = f.read()
+            with open(d.config_path, "w") as f:
+                f.write(text.replace("    step: 0.05s\n", "    step: 0.05s\n    dynamics:\n"
+                                     "      equations: {x: \"v\", v: \"-k*x + vv\"}\n      constants: {k: 2}\n"))
+            bad = subprocess.run([LYAPCASTD, "--check-config", d.config_path], capture_output=True, text=True)
+            self.assertEqual(bad.returncode, 2, bad.stdout)
+            self.assertIn("'rig-b'", bad.stderr)
+            self.assertIn("equations.v", bad.stderr)
+            self.assertIn("'vv'", bad.stderr)
+            self.assertIn("position", bad.stderr)
+            run = subprocess.run([LYAPCASTD, "--config", d.config_path], capture_output=True, text=True, timeout=30)
+            self.assertEqual(run.returncode, 2)
+
 
 if __name__ == "__main__":
     unittest.main()

@@ -1,0 +1,91 @@
+// Model files: a trained flow map with everything needed to serve it, in a
+// versioned little-endian binary format (lyapcast model file, version 1).
+//
+//   offset  size  field
+//   0       8     magic "LYAPMODL"
+//   8       4     u32 format version = 1
+//   12      4     u32 header length = 24 (bytes before the body)
+//   16      8     u64 body length N
+//   24      N     body
+//   24+N    8     u64 checksum: FNV-1a 64 over bytes [0, 24+N)
+//
+// Body, in order (str = u32 byte length + bytes; values = raw IEEE-754 of
+// the model's scalar type, little-endian, so round trips are bit-exact):
+//   u8  scalar type: 4 = float32, 8 = float64 (bytes per value)
+//   u8  activation: 0 = tanh, 1 = silu
+//   u32 channel count C, then C channel names (str)
+//   u32 hidden layer count H, then H widths (u32)
+//   f64 dt (model step in model time units)
+//   i64 data step in microseconds; i64 model time unit in microseconds
+//   values m[C], s[C], S[C], mu[C]
+//   u64 P = number of network values, then P values: the Mlp flat layout
+//       (per layer W column-major (out x in), then b; layers in order)
+//   u32 metadata count K, then K pairs (key str, value str)
+//
+// Checksum choice: FNV-1a 64 (Fowler/Noll/Vo, IETF draft-eastlake-fnv):
+// table-free, any single-byte change always changes it, easy to recompute in
+// Python. It detects accidents (torn or flipped bytes), not tampering.
+//
+// Readers validate before they allocate: every count is checked against the
+// bytes that remain, shapes against ValidateMlpShape. Errors:
+//   kInvalidArgument  not a model file (magic), a newer format version, or
+//                     (Serialize/SaveModel) inconsistent contents;
+//   kCorruption       truncated, checksum mismatch, impossible sizes or
+//                     values (with what and where);
+//   kNotFound / kIoError  from the file system (LoadModel/SaveModel).
+// Thread safety: all functions are reentrant; SaveModel is atomic with
+// respect to readers (temp file + fsync + rename + directory fsync).
+#pragma once
+
+#include <cstdint>
+#include <filesystem>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <variant>
+#include <vector>
+
+#include "core/data_time.h"
+#include "core/status.h"
+#include "learn/flow_map.h"
+
+namespace lyapcast {
+
+inline constexpr char kModelFileMagic[8] = {'L', 'Y', 'A', 'P', 'M', 'O', 'D', 'L'};
+inline constexpr std::uint32_t kModelFileVersion = 1;
+inline constexpr std::uint32_t kModelFileHeaderLength = 24;
+inline constexpr std::uint64_t kMaxModelFileBytes = std::uint64_t{1} << 30;  // LoadModel refuses larger files
+
+struct ModelFileContents {
+  std::vector<std::string> channels;  // one valid, unique name per model channel, in model order
+  Micros step_micros = 0;             // the feed's data step (> 0)
+  Micros time_unit_micros = kMicrosPerSecond;  // one unit of model time in data time (> 0)
+  // Architecture (channels, hidden widths, activation), dt, m, s, S, mu and
+  // weights; the alternative held is the stored scalar type.
+  std::variant<FlowMap<float>, FlowMap<double>> model;
+  // Training metadata (feed id, data range, losses, ...), in order; keys
+  // non-empty and unique.
+  std::vector<std::pair<std::string, std::string>> metadata;
+
+  bool is_float32() const { return std::holds_alternative<FlowMap<float>>(model); }
+};
+
+// FNV-1a 64 of `bytes` (the file checksum).
+std::uint64_t Fnv1a64(std::string_view bytes);
+
+// The file bytes, or kInvalidArgument if `contents` is inconsistent (empty
+// model, name count != channels, bad or duplicate names, non-positive
+// steps, non-finite values, empty or duplicate metadata keys).
+[[nodiscard]] Result<std::string> Serialize(const ModelFileContents& contents);
+
+// Parses and validates file bytes (see the error classes above).
+[[nodiscard]] Result<ModelFileContents> Deserialize(std::string_view bytes);
+
+// Serialize, then write `path` atomically: a temp file in the same folder,
+// fsync, rename over `path`, fsync of the folder. The folder must exist.
+[[nodiscard]] Status SaveModel(const std::filesystem::path& path, const ModelFileContents& contents);
+
+// Reads and Deserializes `path`; messages start with the path.
+[[nodiscard]] Result<ModelFileContents> LoadModel(const std::filesystem::path& path);
+
+}  // namespace lyapcast

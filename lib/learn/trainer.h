@@ -1,0 +1,116 @@
+// Fit: trains a FlowMap<float> on gap-aware trajectories of a grid series,
+// optionally with physics constraints from known dynamics.
+//
+// Each iteration draws a batch of trajectories of one horizon h (buckets by
+// horizon, chosen in proportion to their size, so no work is spent unrolling
+// short trajectories to a longer one's length), unrolls G h times from the
+// complete data state, and takes the data loss at every present target:
+//
+//   L_data = mean over present (step, sample, channel) of ((G^k(x) - y) / s_c)^2
+//
+// with s_c the model's per-channel standard deviation, so channels in
+// different units weigh alike. Constraint terms (DESIGN.md "Learning"), on the
+// first step z -> G(z) of every trajectory, each multiplied by
+//   w(i) = weight / (1 + exp(-(i / iterations - mid) / width)):
+//   velocity:  mean ((f(G(z)) - f(y1)) / fs_c)^2      (y1 the complete target one step on)
+//   residual:  mean ((G(z) - z - dt f(z) - mu dt (f(G(z)) - f(z))) / (dt fs_c))^2
+// where fs_c is the standard deviation of f_c over the training states, so
+// every term is a squared relative error of comparable size. Both
+// backpropagate through f's Jacobian (central differences, Dynamics::Jacobian);
+// the residual term also trains mu.
+//
+// Then global-norm clipping, AdamW with decoupled weight decay and a cosine
+// learning-rate schedule. Validation (one-step normalized RMSE per channel on
+// the validation trajectories) runs every `validate_every` iterations and at
+// the end; early stopping keeps the best weights seen.
+//
+// Threads: Fit runs on the calling thread and uses exactly one thread (Eigen
+// is built without OpenMP here); `training.threads` is the number of such
+// jobs the daemon runs concurrently. `cancel` may be set from another thread
+// and is checked every iteration.
+#pragma once
+
+#include <atomic>
+#include <cstdint>
+#include <functional>
+#include <limits>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "config/config.h"
+#include "core/status.h"
+#include "learn/flow_map.h"
+#include "learn/pairs.h"
+#include "physics/dynamics.h"
+
+namespace lyapcast {
+
+struct FitOptions {
+  int iterations = 2000;
+  int batch = 256;
+  double learning_rate = 1e-3;
+  double lr_floor_fraction = 0.1;  // cosine decay to this fraction of learning_rate
+  double weight_decay = 0.0;
+  double clip = 1.0;               // global gradient norm
+  double time_budget_s = 0;        // wall seconds; 0 = none
+  int validate_every = 100;        // iterations between validation checks
+  int patience = 0;                // checks without improvement before stopping; 0 = off
+  std::uint64_t seed = 1;          // batch sampling (and weights on a cold start)
+  // Known dynamics for constraint terms; the terms are skipped when null.
+  // Fit uses it from its own thread only (Dynamics is not thread-safe).
+  const Dynamics* dynamics = nullptr;
+  std::vector<ConstraintConfig> constraints;
+  const std::atomic<bool>* cancel = nullptr;
+};
+
+struct FitProgress {
+  int iteration = 0;  // 1-based, after the update
+  int iterations = 0;
+  double loss = 0;    // weighted total
+  double data = 0;
+  double velocity = 0;  // unweighted term values (0 when not used)
+  double residual = 0;
+  double learning_rate = 0;
+  double grad_norm = 0;
+  std::optional<double> validation;  // set on iterations that validated
+};
+
+enum class FitStop { kIterations, kTimeBudget, kEarlyStopping, kCancelled };
+const char* FitStopName(FitStop s);
+
+struct FitResult {
+  int iterations = 0;  // updates done
+  double seconds = 0;
+  FitStop stop = FitStop::kIterations;
+  FitProgress last;                        // losses of the last iteration
+  std::vector<double> validation_rmse;     // per channel, normalized by s_c (NaN if no validation data)
+  double validation_error = std::numeric_limits<double>::quiet_NaN();  // mean over channels
+  int best_iteration = 0;                  // weights kept from here (early stopping)
+  std::int64_t train_trajectories = 0;
+  std::int64_t validation_trajectories = 0;
+};
+
+// Per-channel mean and std of the complete states of the training span, and
+// increment scale S_c = std of one-step increments / dt. Fails when there are
+// fewer than 2 complete states or a channel is constant.
+struct Normalization {
+  Eigen::VectorXd mean, stddev, increment_scale;
+};
+[[nodiscard]] Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t end, double dt);
+
+// Trains `model` in place from its current weights (a warm start; for a cold
+// start, SetNormalization and InitRandom first). Fails (kInvalidArgument) on
+// no training trajectories or options out of range, and (kInternal) when the
+// loss stops being finite: the message names the iteration and what to try;
+// the model then holds the best weights seen before the divergence.
+[[nodiscard]] Result<FitResult> Fit(FlowMap<float>& model, const GridSeries& grid, const TrajectorySet& set,
+                                    const FitOptions& options,
+                                    const std::function<void(const FitProgress&)>& progress = {});
+
+// One-step normalized RMSE per channel of `model` on the first step of the
+// given trajectories (targets present at start + 1). NaN where no target.
+std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& grid,
+                                 const std::vector<Trajectory>& trajectories);
+
+}  // namespace lyapcast

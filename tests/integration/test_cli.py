@@ -1,0 +1,123 @@
+"""The lyapcast CLI's offline commands end to end: simulate -> train ->
+forecast on files, and simulate --send into a real daemon."""
+
+import os
+import shutil
+import subprocess
+import tempfile
+import unittest
+
+from harness import Daemon
+
+CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
+
+LORENZ = """
+feeds:
+  - id: lorenz
+    channels: [x, y, z]
+    step: 10ms
+    dynamics:
+      equations: {x: "s*(y - x)", y: "x*(r - z) - y", z: "x*y - b*z"}
+      constants: {s: 10, r: 28, b: 2.6666666666666667}
+      constraints:
+        - {kind: velocity, weight: 1.0, anneal: {mid: 0.3, width: 0.05}}
+"""
+
+
+def run(*args, check=True):
+    out = subprocess.run([CLI, *args], capture_output=True, text=True, timeout=300)
+    if check and out.returncode != 0:
+        raise AssertionError(f"lyapcast {' '.join(args)} exited {out.returncode}:\n{out.stderr}")
+    return out
+
+
+class OfflineCommandsTest(unittest.TestCase):
+    def setUp(self):
+        self.dir = tempfile.mkdtemp(prefix="lyapcast-cli-")
+        self.addCleanup(shutil.rmtree, self.dir, ignore_errors=True)
+        self.config = os.path.join(self.dir, "lorenz.yaml")
+        with open(self.config, "w") as f:
+            f.write(LORENZ)
+
+    def simulate(self, name, *extra):
+        path = os.path.join(self.dir, name)
+        run("simulate", "-c", self.config, "--duration", "20s", "--transient", "20s", "--start",
+            "2026-01-01T00:00:00Z", "--seed", "3", "-o", path, *extra)
+        with open(path) as f:
+            return f.read().splitlines()
+
+    def test_simulate_is_deterministic_and_drops_what_it_is_told(self):
+        a = self.simulate("a.csv", "--noise", "0.01", "--gap-rate", "0.2", "--missing-rate", "0.1")
+        b = self.simulate("b.csv", "--noise", "0.01", "--gap-rate", "0.2", "--missing-rate", "0.1")
+        self.assertEqual(a, b, "same seed, same samples")
+        clean = self.simulate("c.csv")
+        self.assertEqual(len(clean), 2000)
+        self.assertTrue(clean[0].startswith("lorenz,1767225600.000000,"))
+        self.assertLess(abs(len(a) / 2000 - 0.8), 0.05, "about 20 % dropped")
+        missing = sum(1 for line in a if ",," in line or line.endswith(","))
+        self.assertLess(abs(missing / len(a) - 0.1), 0.04, "about 10 % with a missing channel")
+
+    def test_parameter_change_changes_the_trajectory(self):
+        base = self.simulate("base.csv")
+        changed = self.simulate("chg.csv", "--change", "r=40@10s")
+        self.assertEqual(base[:1000], changed[:1000], "identical before the change")
+        self.assertNotEqual(base[1500:], changed[1500:])
+        bad = run("simulate", "-c", self.config, "--duration", "1s", "--change", "q=1@1s", check=False)
+        self.assertEqual(bad.returncode, 2)
+        self.assertIn("'q' is not a constant", bad.stderr)
+        bad = run("simulate", "-c", self.config, "--duration", "1s", "--change", "r=1..2@5s", check=False)
+        self.assertEqual(bad.returncode, 2)
+        self.assertIn("NAME=A..B@T1..T2", bad.stderr)
+
+    def test_train_then_forecast(self):
+        self.simulate("train.csv", "--noise", "0.005", "--gap-rate", "0.1")
+        model = os.path.join(self.dir, "lorenz.model")
+        out = run("train", "-c", self.config, "--csv", os.path.join(self.dir, "train.csv"), "--out", model,
+                  "--iterations", "400")
+        self.assertIn("one-step validation error per channel", out.stdout)
+        self.assertIn("velocity", out.stderr, "progress shows the loss by term")
+        self.assertTrue(os.path.getsize(model) > 1000)
+        fc = run("forecast", "--model", model, "--from", "1,1,20", "--steps", "50")
+        lines = fc.stdout.splitlines()
+        self.assertEqual(lines[0], "step,seconds,x,y,z")
+        self.assertEqual(len(lines), 51)
+        self.assertTrue(lines[50].startswith("50,0.500000,"))
+        bad = run("forecast", "--model", model, "--from", "1,1", check=False)
+        self.assertEqual(bad.returncode, 2)
+        self.assertIn("expected 3", bad.stderr)
+        with open(model, "r+b") as f:
+            f.seek(100)
+            f.write(b"\xff\xff")
+        corrupt = run("forecast", "--model", model, "--from", "1,1,20", check=False)
+        self.assertEqual(corrupt.returncode, 2)
+        self.assertIn("checksum", corrupt.stderr)
+
+
+class SendTest(unittest.TestCase):
+    def test_simulate_streams_into_a_daemon(self):
+        with Daemon() as d:
+            d.start()
+            out = run("simulate", "-c", d.config_path, "--feed", "rig-b", "--duration", "30s",
+                      "--send", f"127.0.0.1:{d.ingest_port}", check=False)
+            # rig-b has no dynamics in the harness config: a clear refusal.
+            self.assertEqual(out.returncode, 2)
+            self.assertIn("no dynamics", out.stderr)
+            self.assertEqual(d.stop(), 0)
+        cfg = tempfile.mkdtemp(prefix="lyapcast-cli-send-")
+        db = os.path.join(cfg, "w.db")
+        text = f"listen: {{ingest: 127.0.0.1:0, http: 127.0.0.1:0}}\nstorage: {{path: {db}}}\n" + LORENZ
+        with Daemon(workdir=cfg, config_text=text) as d:
+            d.db = db
+            d.start()
+            out = run("simulate", "-c", d.config_path, "--duration", "30s", "--gap-rate", "0.1", "--seed", "9",
+                      "--send", f"127.0.0.1:{d.ingest_port}")
+            self.assertIn("rejected", out.stderr)
+            sent = int(out.stderr.split("sent ")[1].split()[0])
+            self.assertIn(f"{sent} accepted, 0 rejected", out.stderr)
+            self.assertEqual(d.stop(), 0)
+            self.assertEqual(len(d.stored_times("lorenz")), sent)
+        shutil.rmtree(cfg, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    unittest.main()

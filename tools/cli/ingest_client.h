@@ -1,0 +1,51 @@
+// IngestClient: a TCP client for the daemon's ingest port that keeps up to
+// `window` lines in flight and tallies the replies (`ok <n>` / `error <line>
+// <code> <text>`). Used by `lyapcast simulate --send` (and replay later).
+// Single-threaded: Send() reads replies whenever the window is full.
+#pragma once
+
+#include <cstdint>
+#include <map>
+#include <string>
+#include <vector>
+
+#include "core/status.h"
+
+namespace lyapcast::cli {
+
+class IngestClient {
+ public:
+  IngestClient() = default;
+  ~IngestClient();
+  IngestClient(const IngestClient&) = delete;
+  IngestClient& operator=(const IngestClient&) = delete;
+
+  // host:port, e.g. "127.0.0.1:7301". With a token, sends `auth <token>` first.
+  [[nodiscard]] Status Connect(const std::string& endpoint, const std::string& token = {}, int window = 1000);
+  // Queues one line (without newline). Blocks while `window` lines await replies.
+  [[nodiscard]] Status Send(const std::string& line);
+  // Sends what is queued, half-closes, and reads every remaining reply.
+  [[nodiscard]] Status Finish();
+
+  std::int64_t sent() const { return sent_; }
+  std::int64_t accepted() const { return accepted_; }
+  std::int64_t rejected() const { return rejected_; }
+  // Rejections by code, and the first reply of each code.
+  const std::map<std::string, std::int64_t>& rejected_by_code() const { return by_code_; }
+  const std::vector<std::string>& first_errors() const { return first_errors_; }
+
+ private:
+  Status Pump(bool wait_for_reply);  // writes pending bytes, reads replies
+  void OnReply(const std::string& reply);
+
+  int fd_ = -1;
+  int window_ = 1000;
+  std::string out_;
+  std::size_t out_pos_ = 0;
+  std::string in_;
+  std::int64_t sent_ = 0, replies_ = 0, accepted_ = 0, rejected_ = 0;
+  std::map<std::string, std::int64_t> by_code_;
+  std::vector<std::string> first_errors_;
+};
+
+}  // namespace lyapcast::cli
