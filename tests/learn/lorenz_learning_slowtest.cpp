@@ -20,6 +20,7 @@
 #include "learn/trainer.h"
 #include "physics/dynamics.h"
 #include "physics/integrators.h"
+#include "support/feeds.h"
 
 namespace lyapcast {
 namespace {
@@ -27,17 +28,7 @@ namespace {
 constexpr double kDt = 0.01;
 constexpr Micros kStep = 10'000;
 
-FeedConfig LorenzFeed() {
-  FeedConfig f;
-  f.id = "lorenz";
-  f.channels = {"x", "y", "z"};
-  f.step = kStep;
-  DynamicsConfig d;
-  d.equations = {{"x", "s*(y - x)"}, {"y", "x*(r - z) - y"}, {"z", "x*y - b*z"}};
-  d.constants = {{"s", 10.0}, {"r", 28.0}, {"b", 8.0 / 3.0}};
-  f.dynamics = d;
-  return f;
-}
+using testing::LorenzFeed;
 
 struct SimRun {
   std::vector<Sample> samples;

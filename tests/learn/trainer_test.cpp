@@ -12,23 +12,14 @@
 #include "learn/trainer.h"
 #include "learn/trajectory_loss.h"
 #include "learn_test_util.h"
+#include "support/feeds.h"
 #include "physics/dynamics.h"
 #include "physics/integrators.h"
 
 namespace lyapcast {
 namespace {
 
-FeedConfig LorenzFeed() {
-  FeedConfig f;
-  f.id = "lorenz";
-  f.channels = {"x", "y", "z"};
-  f.step = 10'000;  // 0.01 s = 0.01 model time units with time_unit 1 s
-  DynamicsConfig d;
-  d.equations = {{"x", "s*(y - x)"}, {"y", "x*(r - z) - y"}, {"z", "x*y - b*z"}};
-  d.constants = {{"s", 10.0}, {"r", 28.0}, {"b", 8.0 / 3.0}};
-  f.dynamics = d;
-  return f;
-}
+using testing::LorenzFeed;
 
 // n samples of Lorenz-63 every dt model units from a point on the attractor;
 // every `drop`-th sample removed and every `mask_every`-th missing channel 1.

@@ -5,6 +5,8 @@
 
 #include <gtest/gtest.h>
 
+#include "support/feeds.h"
+
 #include <cmath>
 #include <string>
 #include <thread>
@@ -14,36 +16,11 @@
 namespace lyapcast {
 namespace {
 
-FeedConfig MakeFeed(std::string id, std::vector<std::string> channels,
-                    std::vector<std::pair<std::string, std::string>> equations,
-                    std::vector<std::pair<std::string, double>> constants = {}) {
-  FeedConfig f;
-  f.id = std::move(id);
-  f.channels = std::move(channels);
-  DynamicsConfig d;
-  d.equations = std::move(equations);
-  d.constants = std::move(constants);
-  f.dynamics = std::move(d);
-  return f;
-}
+using testing::MakeFeed;
+using testing::MustCompile;
+constexpr double kSigma = testing::kLorenzSigma, kRho = testing::kLorenzRho, kBeta = testing::kLorenzBeta;
 
-// Lorenz-63, the parameters of REFERENCES.md (Sprott 2003: s = 10, r = 28, b = 8/3).
-constexpr double kSigma = 10.0, kRho = 28.0, kBeta = 8.0 / 3.0;
-
-FeedConfig LorenzFeed(double rho = kRho) {
-  return MakeFeed("lorenz", {"x", "y", "z"},
-                  {{"x", "sigma*(y - x)"}, {"y", "x*(rho - z) - y"}, {"z", "x*y - beta*z"}},
-                  {{"sigma", kSigma}, {"rho", rho}, {"beta", kBeta}});
-}
-
-Dynamics MustCompile(const FeedConfig& feed) {
-  Result<Dynamics> r = Dynamics::Compile(feed);
-  if (!r.ok()) {
-    ADD_FAILURE() << r.status().ToString();
-    std::abort();
-  }
-  return std::move(r).value();
-}
+FeedConfig LorenzFeed(double rho = kRho) { return testing::LorenzFeed(rho); }
 
 void LorenzRhs(const double* p, double* f, double rho = kRho) {
   f[0] = kSigma * (p[1] - p[0]);

@@ -4,19 +4,14 @@
 
 #include <gtest/gtest.h>
 
+#include "support/feeds.h"
+
 #include <cmath>
 
 namespace lyapcast {
 namespace {
 
-Dynamics MustCompile(const FeedConfig& feed) {
-  Result<Dynamics> r = Dynamics::Compile(feed);
-  if (!r.ok()) {
-    ADD_FAILURE() << r.status().ToString();
-    std::abort();
-  }
-  return std::move(r).value();
-}
+using testing::MustCompile;
 
 FeedConfig Feed(std::vector<std::string> channels, std::vector<std::pair<std::string, std::string>> equations,
                 std::vector<std::pair<std::string, double>> constants) {
