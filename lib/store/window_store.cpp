@@ -46,8 +46,33 @@ Status CreateWindowTables(sqlite3* db) {
                       "creating the window tables (schema version 1)");
 }
 
+Status CreateModelTables(sqlite3* db) {
+  // One row per model version of a feed (ModelRegistry). `file` holds the
+  // model file bytes (learn/model_file.h: weights, normalization, mu);
+  // `details` a JSON object of losses, per-channel errors, Lyapunov
+  // estimates and timings, for people and the API. At most one row per feed
+  // is 'active' (the partial unique index enforces it).
+  return sqlite::Exec(db,
+                      "CREATE TABLE models("
+                      "  feed_id INTEGER NOT NULL REFERENCES feeds(feed_id),"
+                      "  version INTEGER NOT NULL,"
+                      "  status TEXT NOT NULL CHECK (status IN ('active', 'retired', 'rejected')),"
+                      "  reason TEXT NOT NULL,"
+                      "  parent INTEGER,"
+                      "  created_at TEXT NOT NULL,"
+                      "  trained_from_us INTEGER NOT NULL,"
+                      "  trained_to_us INTEGER NOT NULL,"
+                      "  validation_error REAL,"
+                      "  lyapunov_max REAL,"
+                      "  details TEXT NOT NULL,"
+                      "  file BLOB NOT NULL,"
+                      "  PRIMARY KEY (feed_id, version));"
+                      "CREATE UNIQUE INDEX models_one_active ON models(feed_id) WHERE status = 'active';",
+                      "creating the model registry (schema version 2)");
+}
+
 using Migration = Status (*)(sqlite3*);
-constexpr Migration kMigrations[] = {&CreateWindowTables};
+constexpr Migration kMigrations[] = {&CreateWindowTables, &CreateModelTables};
 static_assert(std::size(kMigrations) == kSchemaVersion, "one migration per schema version");
 
 Result<int> ReadUserVersion(sqlite3* db) {

@@ -3,6 +3,7 @@
 // Schema (versioned by PRAGMA user_version, migrated forward on open):
 //   feeds(feed_id, name, channels, step_us, created_at)
 //   samples(feed_id, t_us, mask, vals) WITHOUT ROWID, primary key (feed_id, t_us)
+//   models(feed_id, version, status, ...)  (version 2; see ModelRegistry)
 // `vals` holds only the present channels as little-endian float64, in channel
 // order; `mask` has bit c set when channel c is missing.
 //
@@ -59,7 +60,7 @@ struct StoreOptions {
   int busy_timeout_ms = 5000;  // wait for locks this long before failing
 };
 
-inline constexpr int kSchemaVersion = 1;
+inline constexpr int kSchemaVersion = 2;  // 1: window tables; 2: model registry
 
 class WindowStore {
  public:
@@ -98,6 +99,9 @@ class WindowStore {
 
   // Number of channels of a registered feed.
   int channel_count(std::uint32_t feed) const;
+  // The feeds.feed_id row of a registered feed (for other tables' keys).
+  std::int64_t feed_row_id(std::uint32_t feed) const { return feed_ids_[feed]; }
+  std::size_t feed_count() const { return feed_ids_.size(); }
 
   // The raw handle for this connection's own pragmas in tests (e.g.
   // max_page_count to simulate a full disk). Owned by the store.

@@ -92,7 +92,7 @@ std::vector<InsertOutcome> InsertOk(WindowStore& store, const std::vector<FeedSa
   return outcomes;
 }
 
-TEST(WindowStoreSchema, MigratesAnEmptyFileToVersionOne) {
+TEST(WindowStoreSchema, MigratesAnEmptyFileToTheCurrentVersion) {
   TempDir dir;
   const fs::path db = dir.path() / "nested" / "window.db";  // parent folder created on open
   fs::create_directories(db.parent_path());
@@ -101,10 +101,10 @@ TEST(WindowStoreSchema, MigratesAnEmptyFileToVersionOne) {
   {
     auto store = OpenOrDie(db);
     ASSERT_NE(store, nullptr);
-    EXPECT_EQ(store->schema_version(), 1);
+    EXPECT_EQ(store->schema_version(), kSchemaVersion);
   }
-  EXPECT_EQ(Shell(db, "PRAGMA user_version"), "1");
-  EXPECT_EQ(Shell(db, "SELECT name FROM sqlite_schema WHERE type='table' ORDER BY name"), "feeds\nsamples");
+  EXPECT_EQ(Shell(db, "PRAGMA user_version"), std::to_string(kSchemaVersion));
+  EXPECT_EQ(Shell(db, "SELECT name FROM sqlite_schema WHERE type='table' ORDER BY name"), "feeds\nmodels\nsamples");
   EXPECT_EQ(Shell(db, "PRAGMA journal_mode"), "wal");
 }
 
@@ -128,13 +128,13 @@ TEST(WindowStoreSchema, ReopenIsIdempotentAndKeepsData) {
   for (int i = 0; i < 2; ++i) {
     auto store = OpenOrDie(db);
     ASSERT_NE(store, nullptr);
-    EXPECT_EQ(store->schema_version(), 1);
+    EXPECT_EQ(store->schema_version(), kSchemaVersion);
     ASSERT_TRUE(store->RegisterFeeds({LoopA()}).ok());
     auto extent = store->Extent(0);
     ASSERT_TRUE(extent.ok());
     EXPECT_EQ(extent->count, 1);
   }
-  EXPECT_EQ(Shell(db, "PRAGMA user_version"), "1");
+  EXPECT_EQ(Shell(db, "PRAGMA user_version"), std::to_string(kSchemaVersion));
   EXPECT_EQ(Shell(db, "SELECT count(*) FROM feeds"), "1");
 }
 
@@ -142,8 +142,8 @@ TEST(WindowStoreSchema, RefusesAFileFromANewerLyapcast) {
   TempDir dir;
   const fs::path db = dir.path() / "w.db";
   { ASSERT_NE(OpenOrDie(db), nullptr); }
-  Shell(db, "PRAGMA user_version = 2");
-  ASSERT_EQ(Shell(db, "PRAGMA user_version"), "2");
+  Shell(db, "PRAGMA user_version = 99");
+  ASSERT_EQ(Shell(db, "PRAGMA user_version"), "99");
   StoreOptions options;
   options.path = db;
   auto store = WindowStore::Open(options);
@@ -151,7 +151,7 @@ TEST(WindowStoreSchema, RefusesAFileFromANewerLyapcast) {
   EXPECT_EQ(store.status().code(), StatusCode::kFailedPrecondition);
   EXPECT_NE(store.status().message().find("newer lyapcast"), std::string::npos) << store.status().message();
   EXPECT_NE(store.status().message().find(db.string()), std::string::npos) << store.status().message();
-  EXPECT_EQ(Shell(db, "PRAGMA user_version"), "2");  // left as it was
+  EXPECT_EQ(Shell(db, "PRAGMA user_version"), "99");  // left as it was
 }
 
 TEST(WindowStoreSchema, RefusesAnotherProgramsDatabase) {

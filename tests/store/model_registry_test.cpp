@@ -1,0 +1,142 @@
+// ModelRegistry: versions per feed, one active version at a time, rejected
+// candidates recorded with their reason, activation (pin / roll back),
+// pruning that spares the active version and its parent, and the forward
+// migration of a schema-version-1 file (built with the sqlite3 shell).
+#include "store/model_registry.h"
+
+#include <gtest/gtest.h>
+
+#include <cstdio>
+#include <cstdlib>
+#include <string>
+
+#include "support/temp_dir.h"
+
+namespace lyapcast {
+namespace {
+
+namespace fs = std::filesystem;
+
+std::string Shell(const fs::path& db, const std::string& sql) {
+  const char* shell = std::getenv("LYAPCAST_SQLITE3");
+  const std::string cmd = std::string(shell ? shell : "sqlite3") + " '" + db.string() + "' \"" + sql + "\"";
+  std::string out;
+  if (FILE* p = popen(cmd.c_str(), "r")) {
+    char buf[256];
+    while (std::fgets(buf, sizeof buf, p)) out += buf;
+    pclose(p);
+  }
+  while (!out.empty() && out.back() == '\n') out.pop_back();
+  return out;
+}
+
+std::unique_ptr<WindowStore> Open(const fs::path& db) {
+  auto store = WindowStore::Open(StoreOptions{db, false, 5000});
+  EXPECT_TRUE(store.ok()) << store.status().ToString();
+  EXPECT_TRUE((*store)->RegisterFeeds({{"loop-a", {"flow", "dtemp_h"}, 500'000}, {"rig-b", {"x"}, 100'000}}).ok());
+  return std::move(store).value();
+}
+
+ModelRecord Candidate(ModelStatus status, const std::string& reason, std::optional<std::int64_t> parent = {},
+                      std::uint32_t feed = 0) {
+  ModelRecord r;
+  r.feed = feed;
+  r.status = status;
+  r.reason = reason;
+  r.parent = parent;
+  r.trained_from = 1'000'000;
+  r.trained_to = 2'000'000;
+  r.validation_error = 0.01;
+  r.details = R"({"iterations":10})";
+  r.file = std::string("LYAPMODL") + std::string(40, '\x01') + reason;
+  return r;
+}
+
+class ModelRegistryTest : public ::testing::Test {
+ protected:
+  testing::TempDir dir_{"lyapcast-registry-test"};
+  fs::path db_ = dir_.path() / "w.db";
+  ModelRegistry registry_{Open(db_)};
+};
+
+TEST_F(ModelRegistryTest, VersionsCountPerFeedAndPromotionRetiresTheActiveOne) {
+  EXPECT_FALSE(registry_.Active(0)->has_value());
+  EXPECT_EQ(*registry_.Insert(Candidate(ModelStatus::kActive, "first model")), 1);
+  EXPECT_EQ(*registry_.Insert(Candidate(ModelStatus::kActive, "rig first", {}, 1)), 1);
+  EXPECT_EQ(*registry_.Insert(Candidate(ModelStatus::kRejected, "validation 0.02 > 0.0105", 1)), 2);
+  EXPECT_EQ(*registry_.Insert(Candidate(ModelStatus::kActive, "promoted", 1)), 3);
+  auto active = registry_.Active(0);
+  ASSERT_TRUE(active.ok() && active->has_value());
+  EXPECT_EQ((*active)->version, 3);
+  EXPECT_EQ((*active)->file.substr(0, 8), "LYAPMODL");
+  EXPECT_EQ((*active)->parent, 1);
+  auto list = registry_.List(0, 10);
+  ASSERT_TRUE(list.ok());
+  ASSERT_EQ(list->size(), 3u);
+  EXPECT_EQ((*list)[0].version, 3);
+  EXPECT_TRUE((*list)[0].file.empty()) << "listings leave the file out";
+  EXPECT_EQ((*list)[1].status, ModelStatus::kRejected);
+  EXPECT_EQ((*list)[1].reason, "validation 0.02 > 0.0105");
+  EXPECT_EQ((*list)[2].status, ModelStatus::kRetired);
+  EXPECT_EQ((*list)[2].reason, "replaced by version 3");
+  // Outside view: exactly one active row per feed.
+  EXPECT_EQ(Shell(db_, "SELECT feed_id, count(*) FROM models WHERE status = 'active' GROUP BY feed_id"), "1|1\n2|1");
+}
+
+TEST_F(ModelRegistryTest, ActivatePinsOrRollsBack) {
+  ASSERT_TRUE(registry_.Insert(Candidate(ModelStatus::kActive, "v1")).ok());
+  ASSERT_TRUE(registry_.Insert(Candidate(ModelStatus::kActive, "v2", 1)).ok());
+  ASSERT_TRUE(registry_.Activate(0, 1, "operator rollback").ok());
+  auto active = registry_.Active(0);
+  EXPECT_EQ((*active)->version, 1);
+  EXPECT_EQ((*active)->reason, "operator rollback");
+  EXPECT_EQ(registry_.Get(0, 2)->status, ModelStatus::kRetired);
+  EXPECT_EQ(registry_.Activate(0, 9, "x").code(), StatusCode::kNotFound);
+  EXPECT_EQ(registry_.Get(0, 9).status().code(), StatusCode::kNotFound);
+}
+
+TEST_F(ModelRegistryTest, PruneSparesTheActiveVersionAndItsParent) {
+  ASSERT_TRUE(registry_.Insert(Candidate(ModelStatus::kActive, "v1")).ok());
+  for (int i = 0; i < 5; ++i) ASSERT_TRUE(registry_.Insert(Candidate(ModelStatus::kRejected, "worse", 1)).ok());
+  ASSERT_TRUE(registry_.Insert(Candidate(ModelStatus::kActive, "v7", 1)).ok());  // retires v1, its parent
+  auto pruned = registry_.Prune(0, 2);
+  ASSERT_TRUE(pruned.ok());
+  // Non-active: v1 (parent of the active, kept), v2..v6 rejected; keep the newest 2 (v6, v5) -> delete v2, v3, v4.
+  EXPECT_EQ(*pruned, 3);
+  EXPECT_EQ(Shell(db_, "SELECT group_concat(version) FROM (SELECT version FROM models ORDER BY version)"), "1,5,6,7");
+}
+
+TEST_F(ModelRegistryTest, RefusesAVersionWithoutItsFile) {
+  ModelRecord r = Candidate(ModelStatus::kActive, "empty");
+  r.file.clear();
+  EXPECT_EQ(registry_.Insert(r).status().code(), StatusCode::kInvalidArgument);
+}
+
+TEST(ModelRegistryMigration, AVersionOneFileGainsTheRegistryAndKeepsItsSamples) {
+  testing::TempDir dir("lyapcast-migration-test");
+  const fs::path db = dir.path() / "old.db";
+  // The version-1 schema exactly as the first release created it.
+  Shell(db,
+        "PRAGMA journal_mode=WAL;"
+        "CREATE TABLE feeds(feed_id INTEGER PRIMARY KEY, name TEXT NOT NULL UNIQUE, channels TEXT NOT NULL,"
+        " step_us INTEGER NOT NULL, created_at TEXT);"
+        "CREATE TABLE samples(feed_id INTEGER NOT NULL REFERENCES feeds(feed_id), t_us INTEGER NOT NULL,"
+        " mask INTEGER NOT NULL, vals BLOB NOT NULL, PRIMARY KEY(feed_id, t_us)) WITHOUT ROWID;"
+        "INSERT INTO feeds VALUES (1, 'loop-a', 'flow,dtemp_h', 500000, '2026-01-01');"
+        "INSERT INTO samples VALUES (1, 42, 2, zeroblob(8));"
+        "PRAGMA user_version = 1;");
+  ASSERT_EQ(Shell(db, "PRAGMA user_version"), "1");
+  {
+    auto store = Open(db);
+    EXPECT_EQ(store->schema_version(), kSchemaVersion);
+    EXPECT_EQ(store->Extent(0)->count, 1);
+    ModelRegistry registry(std::move(store));
+    EXPECT_EQ(*registry.Insert(Candidate(ModelStatus::kActive, "first")), 1);
+  }
+  EXPECT_EQ(Shell(db, "PRAGMA user_version"), std::to_string(kSchemaVersion));
+  EXPECT_EQ(Shell(db, "SELECT count(*) FROM samples"), "1");
+  EXPECT_EQ(Shell(db, "PRAGMA integrity_check"), "ok");
+}
+
+}  // namespace
+}  // namespace lyapcast
