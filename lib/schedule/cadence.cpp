@@ -1,0 +1,61 @@
+#include "schedule/cadence.h"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+#include <cmath>
+
+namespace lyapcast {
+
+const char* LyapunovSourceName(LyapunovSource s) {
+  switch (s) {
+    case LyapunovSource::kModel: return "model";
+    case LyapunovSource::kDynamics: return "dynamics";
+    case LyapunovSource::kData: return "data";
+  }
+  return "?";
+}
+
+std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& e, bool has_model) {
+  const auto usable = [](const std::optional<double>& v) { return v.has_value() && std::isfinite(*v); };
+  if (has_model && usable(e.model)) return ChosenExponent{*e.model, LyapunovSource::kModel};
+  if (usable(e.dynamics)) return ChosenExponent{*e.dynamics, LyapunovSource::kDynamics};
+  if (usable(e.data)) return ChosenExponent{*e.data, LyapunovSource::kData};
+  return std::nullopt;
+}
+
+CadenceDecision NextRetrain(const RetrainConfig& config, const LyapunovEstimates& estimates, bool has_model,
+                            DataTime since) {
+  CadenceDecision d;
+  d.exponent = ChooseExponent(estimates, has_model);
+  const Micros lo = config.min_interval, hi = std::max(config.max_interval, config.min_interval);
+  if (!d.exponent) {
+    d.interval = hi;
+    d.reason = fmt::format("no Lyapunov estimate yet: max_interval {}", FormatDuration(hi));
+  } else if (d.exponent->lambda_max <= 0) {
+    d.interval = hi;
+    d.reason = fmt::format("largest Lyapunov exponent {:.3g}/s from the {} is not positive (no chaos to pace by): "
+                           "max_interval {}",
+                           d.exponent->lambda_max, LyapunovSourceName(d.exponent->source), FormatDuration(hi));
+  } else {
+    const double lyapunov_time_s = 1.0 / d.exponent->lambda_max;
+    const double wanted_s = config.lyapunov_fraction * lyapunov_time_s;
+    // Clamp in double first: a tiny exponent gives a huge interval.
+    const double clamped_us = std::clamp(wanted_s * 1e6, static_cast<double>(lo), static_cast<double>(hi));
+    d.interval = static_cast<Micros>(std::llround(clamped_us));
+    const std::string base = fmt::format("{:g} Lyapunov times (T = {:.3g}s from the {}) = {:.3g}s",
+                                         config.lyapunov_fraction, lyapunov_time_s,
+                                         LyapunovSourceName(d.exponent->source), wanted_s);
+    if (wanted_s * 1e6 < static_cast<double>(lo)) {
+      d.reason = base + ", raised to min_interval " + FormatDuration(lo);
+    } else if (wanted_s * 1e6 > static_cast<double>(hi)) {
+      d.reason = base + ", lowered to max_interval " + FormatDuration(hi);
+    } else {
+      d.reason = base;
+    }
+  }
+  d.due = since + d.interval;
+  return d;
+}
+
+}  // namespace lyapcast

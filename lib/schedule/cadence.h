@@ -1,0 +1,51 @@
+// Cadence: when a feed's next retrain is due, in data time (DESIGN.md
+// "Lyapunov time and cadence").
+//
+// The Lyapunov time T = 1 / lambda_max comes from the best source at hand:
+// the active model once one exists; before that the known dynamics when the
+// feed has them, else the raw data. The next retrain is due after
+// lyapunov_fraction * T of new data time since the last one, clamped to
+// [min_interval, max_interval]; lambda_max <= 0 (or no estimate at all)
+// uses max_interval. Every decision carries its reason in words, for logs
+// and the status endpoint. Pure functions; thread-safe.
+#pragma once
+
+#include <optional>
+#include <string>
+
+#include "config/config.h"
+#include "core/data_time.h"
+
+namespace lyapcast {
+
+enum class LyapunovSource { kModel, kDynamics, kData };
+const char* LyapunovSourceName(LyapunovSource s);  // "model", "dynamics", "data"
+
+// Largest exponents per second of data time from each source, when known.
+struct LyapunovEstimates {
+  std::optional<double> model;
+  std::optional<double> dynamics;
+  std::optional<double> data;
+};
+
+struct ChosenExponent {
+  double lambda_max = 0;  // per second of data time
+  LyapunovSource source = LyapunovSource::kData;
+};
+
+// The estimate to pace by: the model's when `has_model` and it is known,
+// otherwise the dynamics', otherwise the data's; nullopt when none is known.
+std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& estimates, bool has_model);
+
+struct CadenceDecision {
+  DataTime due = 0;      // data time at which the next retrain is due
+  Micros interval = 0;   // due - since
+  std::optional<ChosenExponent> exponent;
+  std::string reason;    // e.g. "0.5 Lyapunov times (T = 11.0s from the model) = 5.5s, raised to min_interval 30s"
+};
+
+// Next retrain after one that ended at data time `since`.
+CadenceDecision NextRetrain(const RetrainConfig& config, const LyapunovEstimates& estimates, bool has_model,
+                            DataTime since);
+
+}  // namespace lyapcast

@@ -1,0 +1,60 @@
+// Cadence in data time: source priority, the lyapunov_fraction * T rule,
+// clamping to [min_interval, max_interval], and non-positive exponents.
+#include "schedule/cadence.h"
+
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+namespace lyapcast {
+namespace {
+
+RetrainConfig Config() {
+  RetrainConfig c;
+  c.lyapunov_fraction = 0.5;
+  c.min_interval = 30 * kMicrosPerSecond;
+  c.max_interval = 3600 * kMicrosPerSecond;
+  return c;
+}
+
+TEST(ChooseExponent, ModelFirstOnceOneExistsThenDynamicsThenData) {
+  LyapunovEstimates e{0.1, 0.2, 0.3};
+  EXPECT_EQ(ChooseExponent(e, true)->source, LyapunovSource::kModel);
+  EXPECT_EQ(ChooseExponent(e, false)->source, LyapunovSource::kDynamics);
+  e.dynamics.reset();
+  EXPECT_EQ(ChooseExponent(e, false)->source, LyapunovSource::kData);
+  EXPECT_EQ(ChooseExponent(e, false)->lambda_max, 0.3);
+  e.data.reset();
+  EXPECT_FALSE(ChooseExponent(e, false).has_value());
+  const LyapunovEstimates nan_model{std::nan(""), 0.2, std::nullopt};
+  EXPECT_EQ(ChooseExponent(nan_model, true)->source, LyapunovSource::kDynamics) << "NaN is no estimate";
+}
+
+TEST(NextRetrain, FractionOfTheLyapunovTime) {
+  // lambda = 0.01/s -> T = 100 s; half of it is 50 s, inside [30 s, 1 h].
+  const CadenceDecision d = NextRetrain(Config(), {0.01, {}, {}}, true, 1'000'000);
+  EXPECT_EQ(d.interval, 50 * kMicrosPerSecond);
+  EXPECT_EQ(d.due, 1'000'000 + 50 * kMicrosPerSecond);
+  EXPECT_NE(d.reason.find("T = 100s from the model"), std::string::npos) << d.reason;
+}
+
+TEST(NextRetrain, ClampsToTheConfiguredBounds) {
+  const CadenceDecision fast = NextRetrain(Config(), {{}, 1.0, {}}, false, 0);  // 0.5 s wanted
+  EXPECT_EQ(fast.interval, 30 * kMicrosPerSecond);
+  EXPECT_NE(fast.reason.find("raised to min_interval 30s"), std::string::npos) << fast.reason;
+  const CadenceDecision slow = NextRetrain(Config(), {{}, {}, 1e-9}, false, 0);  // years wanted
+  EXPECT_EQ(slow.interval, 3600 * kMicrosPerSecond);
+  EXPECT_NE(slow.reason.find("lowered to max_interval 1h"), std::string::npos) << slow.reason;
+}
+
+TEST(NextRetrain, NonPositiveOrMissingExponentUsesMaxInterval) {
+  const CadenceDecision zero = NextRetrain(Config(), {0.0, {}, {}}, true, 0);
+  EXPECT_EQ(zero.interval, 3600 * kMicrosPerSecond);
+  EXPECT_NE(zero.reason.find("not positive"), std::string::npos);
+  const CadenceDecision none = NextRetrain(Config(), {}, false, 0);
+  EXPECT_EQ(none.interval, 3600 * kMicrosPerSecond);
+  EXPECT_NE(none.reason.find("no Lyapunov estimate"), std::string::npos);
+}
+
+}  // namespace
+}  // namespace lyapcast
