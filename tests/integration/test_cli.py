@@ -93,6 +93,31 @@ class OfflineCommandsTest(unittest.TestCase):
         self.assertIn("checksum", corrupt.stderr)
 
 
+class LyapunovCommandTest(unittest.TestCase):
+    def test_three_sources_side_by_side(self):
+        d = tempfile.mkdtemp(prefix="lyapcast-cli-lyap-")
+        self.addCleanup(shutil.rmtree, d, ignore_errors=True)
+        config = os.path.join(d, "lorenz.yaml")
+        with open(config, "w") as f:
+            f.write(LORENZ)
+        csv = os.path.join(d, "l.csv")
+        run("simulate", "-c", config, "--duration", "100s", "--transient", "20s", "--start",
+            "2026-01-01T00:00:00Z", "-o", csv)
+        model = os.path.join(d, "l.model")
+        run("train", "-c", config, "--csv", csv, "--out", model, "--iterations", "300")
+        out = run("lyapunov", "-c", config, "--csv", csv, "--model", model, "--time-units", "300").stdout
+        rows = {line.split(" (")[0]: line for line in out.splitlines()[1:]}
+        self.assertEqual(sorted(rows), ["data", "dynamics", "model"], out)
+        largest = {k: float(v.split(")")[1].split()[0]) for k, v in rows.items()}
+        # Lorenz-63 largest exponent 0.9056 (Sprott 2003): tangent dynamics within
+        # 5 % on this short run, Rosenstein within 25 % (REFERENCES.md).
+        self.assertLess(abs(largest["dynamics"] / 0.9056 - 1), 0.05, out)
+        self.assertLess(abs(largest["data"] / 0.9056 - 1), 0.25, out)
+        self.assertIn("R^2", rows["data"])
+        bad = run("lyapunov", check=False)
+        self.assertEqual(bad.returncode, 2)
+
+
 class SendTest(unittest.TestCase):
     def test_simulate_streams_into_a_daemon(self):
         with Daemon() as d:

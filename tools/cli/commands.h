@@ -11,5 +11,6 @@ namespace lyapcast::cli {
 void AddSimulateCommand(CLI::App& app, int* exit_code);
 void AddTrainCommand(CLI::App& app, int* exit_code);
 void AddForecastCommand(CLI::App& app, int* exit_code);
+void AddLyapunovCommand(CLI::App& app, int* exit_code);
 
 }  // namespace lyapcast::cli

@@ -14,6 +14,7 @@ int main(int argc, char** argv) {
   lyapcast::cli::AddSimulateCommand(app, &exit_code);
   lyapcast::cli::AddTrainCommand(app, &exit_code);
   lyapcast::cli::AddForecastCommand(app, &exit_code);
+  lyapcast::cli::AddLyapunovCommand(app, &exit_code);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
