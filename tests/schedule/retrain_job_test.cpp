@@ -1,0 +1,132 @@
+// One retraining job end to end on a real SQLite window: cold start waits for
+// enough pairs, the first model is promoted, a warm start records its parent
+// and both validation errors, a worse candidate is rejected and the active
+// version stays, and lockstep jobs are deterministic to the byte.
+// Data: Lorenz-63 (REFERENCES.md constants) from the project's RK4.
+#include "schedule/retrain_job.h"
+
+#include <gtest/gtest.h>
+
+#include "physics/integrators.h"
+#include "support/feeds.h"
+#include "support/temp_dir.h"
+
+namespace lyapcast {
+namespace {
+
+namespace fs = std::filesystem;
+
+FeedConfig Feed() {
+  FeedConfig f = testing::LorenzFeed();
+  f.model.hidden = {16, 16};
+  f.retrain.iterations = 150;
+  f.retrain.batch = 64;
+  f.retrain.min_pairs = 500;
+  f.retrain.learning_rate = 3e-3;
+  return f;
+}
+
+// Lorenz-63 samples every 10 ms for `n` steps, from data time t0.
+std::vector<FeedSample> Lorenz(int n, DataTime t0) {
+  const Dynamics d = testing::MustCompile(testing::LorenzFeed());
+  const Rhs f = [&d](const double* x, double* dx) { d.Eval(x, dx); };
+  Eigen::VectorXd x(3);
+  x << 1, 1, 1;
+  x = IntegrateRk4(f, x, 20.0, 2e-3);
+  std::vector<FeedSample> out;
+  for (int i = 0; i < n; ++i) {
+    out.push_back({0, Sample{t0 + i * 10'000LL, {x[0], x[1], x[2]}, 0}});
+    x = IntegrateRk4(f, x, 0.01, 2e-3);
+  }
+  return out;
+}
+
+struct Db {
+  testing::TempDir dir{"lyapcast-retrain-test"};
+  fs::path path = dir.path() / "w.db";
+  std::unique_ptr<WindowStore> writer = Open();
+  std::unique_ptr<WindowStore> reader = Open();
+  ModelRegistry registry{Open()};
+
+  std::unique_ptr<WindowStore> Open() {
+    auto s = WindowStore::Open(StoreOptions{path, false, 5000});
+    EXPECT_TRUE(s.ok()) << s.status().ToString();
+    EXPECT_TRUE((*s)->RegisterFeeds({{"lorenz", {"x", "y", "z"}, 10'000}}).ok());
+    return std::move(s).value();
+  }
+  void Add(const std::vector<FeedSample>& samples) {
+    std::vector<InsertOutcome> outcomes;
+    ASSERT_TRUE(writer->InsertBatch(samples, &outcomes).ok());
+  }
+};
+
+TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
+  Db db;
+  const FeedConfig feed = Feed();
+  db.Add(Lorenz(300, 0));
+  RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 3'000'000, std::nullopt, 1, true, nullptr};
+  auto early = RunRetrain(*db.reader, db.registry, in);
+  ASSERT_TRUE(early.ok());
+  EXPECT_EQ(early->verdict, RetrainVerdict::kNotEnoughData);
+  EXPECT_NE(early->reason.find("500 training pairs"), std::string::npos) << early->reason;
+  EXPECT_FALSE(db.registry.Active(0)->has_value());
+
+  db.Add(Lorenz(1000, 3'000'000));
+  in.until = 13'000'000;
+  auto first = RunRetrain(*db.reader, db.registry, in);
+  ASSERT_TRUE(first.ok()) << first.status().ToString();
+  EXPECT_EQ(first->verdict, RetrainVerdict::kPromoted) << first->reason;
+  EXPECT_EQ(first->version, 1);
+  auto active = db.registry.Active(0);
+  ASSERT_TRUE(active->has_value());
+  EXPECT_EQ((*active)->trained_to, 13'000'000);
+  EXPECT_TRUE((*active)->validation_error.has_value());
+  EXPECT_NE((*active)->details.find("\"validation_per_channel\""), std::string::npos);
+}
+
+TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
+  Db db;
+  FeedConfig feed = Feed();
+  db.Add(Lorenz(1500, 0));
+  RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 15'000'000, std::nullopt, 1, true, nullptr};
+  ASSERT_EQ(RunRetrain(*db.reader, db.registry, in)->verdict, RetrainVerdict::kPromoted);
+
+  db.Add(Lorenz(500, 15'000'000));
+  in.until = 20'000'000;
+  in.active = *db.registry.Active(0).value();
+  auto warm = RunRetrain(*db.reader, db.registry, in);
+  ASSERT_TRUE(warm.ok());
+  EXPECT_EQ(warm->version, 2);
+  EXPECT_TRUE(std::isfinite(warm->candidate_error));
+  EXPECT_TRUE(std::isfinite(warm->active_error));
+  EXPECT_EQ(db.registry.Get(0, 2)->parent, 1);
+
+  // A candidate trained with a learning rate that wrecks it must not be served.
+  const std::int64_t active_before = (*db.registry.Active(0).value()).version;
+  db.Add(Lorenz(500, 20'000'000));
+  feed.retrain.learning_rate = 5.0;
+  feed.retrain.clip = 1e6;
+  in.until = 25'000'000;
+  in.active = *db.registry.Active(0).value();
+  auto bad = RunRetrain(*db.reader, db.registry, in);
+  ASSERT_TRUE(bad.ok());
+  EXPECT_EQ(bad->verdict, RetrainVerdict::kRejected) << bad->reason;
+  EXPECT_EQ(db.registry.Get(0, *bad->version)->status, ModelStatus::kRejected);
+  EXPECT_EQ((*db.registry.Active(0).value()).version, active_before);
+}
+
+TEST(RunRetrain, LockstepJobsAreDeterministicToTheByte) {
+  std::string files[2];
+  for (std::string& file : files) {
+    Db db;
+    const FeedConfig feed = Feed();
+    db.Add(Lorenz(1200, 0));
+    RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 12'000'000, std::nullopt, 7, true, nullptr};
+    ASSERT_EQ(RunRetrain(*db.reader, db.registry, in)->verdict, RetrainVerdict::kPromoted);
+    file = (*db.registry.Active(0).value()).file;
+  }
+  EXPECT_EQ(files[0], files[1]);
+}
+
+}  // namespace
+}  // namespace lyapcast
