@@ -94,19 +94,27 @@ class StorageFullTest(unittest.TestCase):
         i = 0
         acked, refused = [], []
         # Fill the disk: send in rounds until replies say storage-unavailable.
-        for _ in range(400):
-            lines = [f"loop-a,{t_text(base + (i + k) * 10_000)},{i + k},1.25,-3.5" for k in range(500)]
-            c.send_lines(lines)
-            replies = c.wait_replies(i + len(lines), timeout=60)
-            for k in range(len(lines)):
+        def send_round(n, values):
+            """Sends n lines after the i sent so far; sorts their times into
+            acked and refused; returns how many were refused."""
+            nonlocal i
+            times = [base + (i + k) * 10_000 for k in range(n)]
+            c.send_lines([f"loop-a,{t_text(t)},{i + k},{values}" for k, t in enumerate(times)])
+            replies = c.wait_replies(i + n, timeout=60)
+            round_refused = 0
+            for k, t in enumerate(times):
                 r = replies[i + k]
                 if r.startswith("ok "):
-                    acked.append(base + (i + k) * 10_000)
+                    acked.append(t)
                 else:
                     self.assertRegex(r, r"^error \d+ storage-unavailable ")
-                    refused.append(base + (i + k) * 10_000)
-            i += len(lines)
-            if refused:
+                    refused.append(t)
+                    round_refused += 1
+            i += n
+            return round_refused
+
+        for _ in range(400):
+            if send_round(500, "1.25,-3.5"):
                 break
         self.assertTrue(refused, "the 1 MiB disk filled up")
         status, body = d.http_get("/v1/health/live")
@@ -128,20 +136,7 @@ class StorageFullTest(unittest.TestCase):
         # every line is refused. Send rounds until a whole round is refused.
         whole_round_refused = False
         for _ in range(50):
-            lines = [f"loop-a,{t_text(base + (i + k) * 10_000)},{i + k},1,1" for k in range(200)]
-            c.send_lines(lines)
-            replies = c.wait_replies(i + len(lines), timeout=60)
-            round_refused = 0
-            for k in range(len(lines)):
-                r = replies[i + k]
-                if r.startswith("ok "):
-                    acked.append(base + (i + k) * 10_000)
-                else:
-                    self.assertRegex(r, r"^error \d+ storage-unavailable ")
-                    refused.append(base + (i + k) * 10_000)
-                    round_refused += 1
-            i += len(lines)
-            if round_refused == len(lines):
+            if send_round(200, "1,1") == 200:
                 whole_round_refused = True
                 break
         self.assertTrue(whole_round_refused, "a full disk refuses every line")
