@@ -5,6 +5,7 @@
 #include "core/secret.h"
 #include "core/wall_clock.h"
 #include "ingest_server.h"
+#include "schedule/scheduler.h"
 #include "store/sample_writer.h"
 
 namespace lyapcast {
@@ -90,12 +91,14 @@ class Api {
       json window = {{"samples", e.count}};
       window["oldest"] = e.count ? TimeJson(e.oldest) : json(nullptr);
       window["newest"] = e.count ? TimeJson(e.newest) : json(nullptr);
-      feeds.push_back({{"id", f.id},
-                       {"channels", std::move(channels)},
-                       {"step_s", static_cast<double>(f.step) / 1e6},
-                       {"dynamics_known", f.dynamics.has_value()},
-                       {"retention_s", static_cast<double>(c_.config->storage.retention) / 1e6},
-                       {"window", std::move(window)}});
+      json entry = {{"id", f.id},
+                    {"channels", std::move(channels)},
+                    {"step_s", static_cast<double>(f.step) / 1e6},
+                    {"dynamics_known", f.dynamics.has_value()},
+                    {"retention_s", static_cast<double>(c_.config->storage.retention) / 1e6},
+                    {"window", std::move(window)}};
+      if (c_.scheduler != nullptr) AddRetraining(static_cast<std::uint32_t>(i), &entry);
+      feeds.push_back(std::move(entry));
     }
     json body = {{"feeds", std::move(feeds)}, {"storage_available", c_.writer->storage_available()}};
     if (c_.ingest != nullptr) {
@@ -105,6 +108,38 @@ class Api {
                         {"accepted", k.accepted.load()}};
     }
     return Json(200, body);
+  }
+
+  // The active model and the cadence (the full status comes with stage 4).
+  void AddRetraining(std::uint32_t feed, json* entry) const {
+    const auto model = c_.scheduler->active(feed);
+    json m = nullptr;
+    if (model) {
+      const ModelRecord& r = model->record;
+      m = {{"version", r.version},
+           {"trained_to", TimeJson(r.trained_to)},
+           {"validation_error", r.validation_error ? json(*r.validation_error) : json(nullptr)},
+           {"lyapunov_per_s", r.lyapunov_max ? json(*r.lyapunov_max) : json(nullptr)}};
+    }
+    (*entry)["model"] = std::move(m);
+    const FeedSchedule s = c_.scheduler->schedule(feed);
+    json retraining = {{"next_due", s.next_due ? TimeJson(s.next_due) : json(nullptr)},
+                       {"next_reason", s.next_reason},
+                       {"last_retrain", s.last_retrain ? TimeJson(*s.last_retrain) : json(nullptr)},
+                       {"running", s.running},
+                       {"promoted", s.promoted},
+                       {"rejected", s.rejected},
+                       {"failed", s.failed},
+                       {"coalesced", s.coalesced}};
+    if (s.last_job) {
+      retraining["last_job"] = {{"id", s.last_job->id},
+                                {"trigger", TriggerKindName(s.last_job->trigger)},
+                                {"verdict", s.last_job->verdict ? RetrainVerdictName(*s.last_job->verdict) : "error"},
+                                {"version", s.last_job->version ? json(*s.last_job->version) : json(nullptr)},
+                                {"outcome", s.last_job->outcome},
+                                {"seconds", s.last_job->seconds}};
+    }
+    (*entry)["retraining"] = std::move(retraining);
   }
 
   ApiContext c_;

@@ -17,11 +17,13 @@ namespace lyapcast {
 
 class SampleWriter;
 class IngestServer;
+class Scheduler;
 
 struct ApiContext {
   const Config* config = nullptr;         // must outlive the handler
   const SampleWriter* writer = nullptr;   // must outlive the handler
   const IngestServer* ingest = nullptr;   // may be null in tests
+  const Scheduler* scheduler = nullptr;   // may be null in tests
   std::optional<std::string> read_token;
   std::optional<std::string> admin_token;
   DataTime started_wall = 0;              // wall time at start, µs

@@ -18,6 +18,7 @@
 #include "http_server.h"
 #include "ingest_server.h"
 #include "physics/dynamics.h"
+#include "schedule/scheduler.h"
 #include "store/sample_writer.h"
 #include "store/window_store.h"
 
@@ -67,6 +68,25 @@ Status CompileAllDynamics(const Config& config) {
     if (!compiled.ok()) return Status::Invalid(config.source.string() + ": " + compiled.status().message());
   }
   return Status::Ok();
+}
+
+SchedulerOptions SchedulerOptionsFor(const Config& config) {
+  SchedulerOptions o;
+  o.store_path = config.storage.path;
+  o.layouts = Layouts(config);
+  o.threads = config.training.threads;
+  o.lockstep = config.training.lockstep;
+  o.retention = config.storage.retention;
+  o.keep_models = config.storage.keep_models;
+  o.log = [](SchedulerLogLevel level, const std::string& text) {
+    switch (level) {
+      case SchedulerLogLevel::kDebug: spdlog::debug("{}", text); break;
+      case SchedulerLogLevel::kInfo: spdlog::info("{}", text); break;
+      case SchedulerLogLevel::kWarning: spdlog::warn("{}", text); break;
+      case SchedulerLogLevel::kError: spdlog::error("{}", text); break;
+    }
+  };
+  return o;
 }
 
 }  // namespace
@@ -129,6 +149,8 @@ int RunDaemon(const DaemonOptions& options) {
   wopts.commit_batch = config.limits.commit_batch;
   wopts.retention = config.storage.retention;
   SampleWriter writer(std::move(store).value(), static_cast<int>(config.feeds.size()), wopts);
+  Scheduler scheduler(config, SchedulerOptionsFor(config));
+  writer.Subscribe([&scheduler](const CommittedBatch& batch) { scheduler.OnCommitted(batch); });
   if (Status s = writer.Start(); !s.ok()) {
     spdlog::error("cannot start the store writer: {}", s.message());
     return kExitFailure;
@@ -140,6 +162,19 @@ int RunDaemon(const DaemonOptions& options) {
                    FormatRfc3339(e.newest));
     }
   }
+
+  {
+    std::vector<FeedExtent> extents;
+    for (std::size_t i = 0; i < config.feeds.size(); ++i) extents.push_back(writer.extent(static_cast<std::uint32_t>(i)));
+    if (Status s = scheduler.Start(extents); !s.ok()) {
+      spdlog::error("cannot start the retraining scheduler: {}", s.message());
+      scheduler.Stop();
+      writer.Stop();
+      return kExitFailure;
+    }
+  }
+  spdlog::info("retraining: {} trainer thread(s){}", std::max(config.training.threads, 1),
+               config.training.lockstep ? ", lockstep (ingest waits for each due retrain)" : "");
 
   asio::io_context io;
   IngestServerOptions iopts;
@@ -154,16 +189,18 @@ int RunDaemon(const DaemonOptions& options) {
 
   HttpServerOptions hopts;
   hopts.endpoint = config.listen.http;
-  ApiContext api{&config, &writer, &ingest, read_token, admin_token, WallNowMicros(), kVersion};
+  ApiContext api{&config, &writer, &ingest, &scheduler, read_token, admin_token, WallNowMicros(), kVersion};
   HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
 
   if (Status s = ingest.Listen(); !s.ok()) {
     spdlog::error("{}", s.message());
+    scheduler.Stop();
     writer.Stop();
     return kExitFailure;
   }
   if (Status s = http.Listen(); !s.ok()) {
     spdlog::error("{}", s.message());
+    scheduler.Stop();
     writer.Stop();
     return kExitFailure;
   }
@@ -176,6 +213,9 @@ int RunDaemon(const DaemonOptions& options) {
   signals.async_wait([&](boost::system::error_code ec, int signo) {
     if (ec) return;
     spdlog::info("received {}; stopping: no new connections, finishing received lines", signo == SIGINT ? "SIGINT" : "SIGTERM");
+    // Cancel training first: in lockstep the writer may be waiting for a
+    // job, and the sessions for the writer.
+    scheduler.Stop();
     http.Shutdown();
     ingest.Shutdown([&io] { io.stop(); });
   });
@@ -183,6 +223,7 @@ int RunDaemon(const DaemonOptions& options) {
   if (options.ready_file) {
     if (Status s = WriteReadyFile(*options.ready_file, ingest.port(), http.port()); !s.ok()) {
       spdlog::error("{}", s.message());
+      scheduler.Stop();
       writer.Stop();
       return kExitFailure;
     }
@@ -193,6 +234,7 @@ int RunDaemon(const DaemonOptions& options) {
   io.run();
   for (auto& t : threads) t.join();
 
+  scheduler.Stop();
   writer.Stop();
   const WriterStats stats = writer.stats();
   const IngestCounters& k = ingest.counters();

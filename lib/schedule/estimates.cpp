@@ -1,0 +1,57 @@
+#include "schedule/estimates.h"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+#include <cmath>
+
+#include "chaos/lyapunov.h"
+#include "chaos/rosenstein.h"
+#include "physics/dynamics.h"
+
+namespace lyapcast {
+
+Result<ExponentEstimate> DynamicsExponent(const FeedConfig& feed, const Eigen::VectorXd& x0, double model_time_units) {
+  if (!feed.dynamics) return Status::Invalid("feed '" + feed.id + "' has no dynamics");
+  if (x0.size() != static_cast<Eigen::Index>(feed.channels.size())) {
+    return Status::Invalid(fmt::format("start state has {} values, feed '{}' has {} channels", x0.size(), feed.id,
+                                       feed.channels.size()));
+  }
+  auto dynamics = Dynamics::Compile(feed);
+  if (!dynamics.ok()) return dynamics.status();
+  const double unit = static_cast<double>(feed.dynamics->time_unit);
+  const double dt = static_cast<double>(feed.step) / unit;
+  const MapStep step = FlowMapStep(*dynamics, dt, std::max(1, static_cast<int>(std::ceil(dt / 5e-3))));
+  SpectrumOptions o;
+  o.exponents = 1;
+  o.steps = std::max(1000L, static_cast<long>(model_time_units / dt));
+  o.transient_steps = o.steps / 10;
+  auto estimate = LyapunovSpectrum(step, x0, o);
+  if (!estimate.ok()) return estimate.status();
+  const double per_second = 1e6 / unit;
+  return ExponentEstimate{estimate->exponents[0] * per_second,
+                          fmt::format("qr on the tangent dynamics, {} steps, converged to {:.2g}/s", estimate->steps,
+                                      estimate->convergence * per_second)};
+}
+
+Result<ExponentEstimate> DataExponent(const FeedConfig& feed, const std::vector<Sample>& samples, int channel,
+                                      int max_samples) {
+  if (channel < 0 || channel >= static_cast<int>(feed.channels.size())) {
+    return Status::Invalid(fmt::format("feed '{}' has no channel {}", feed.id, channel));
+  }
+  std::vector<double> series;
+  series.reserve(samples.size());
+  for (const Sample& s : samples) {
+    if (!s.missing(channel)) series.push_back(s.values[static_cast<std::size_t>(channel)]);
+  }
+  RosensteinOptions o;
+  o.max_samples = max_samples;
+  o.max_references = 1000;
+  auto r = RosensteinLargest(series, static_cast<double>(feed.step) / 1e6, o);
+  if (!r.ok()) return r.status();
+  return ExponentEstimate{r->lambda, fmt::format("rosenstein on {}, lag {}, Theiler {}, fit [{}, {}), R^2 {:.3f}",
+                                                 feed.channels[static_cast<std::size_t>(channel)], r->lag, r->theiler,
+                                                 r->fit_begin, r->fit_end, r->r_squared)};
+}
+
+}  // namespace lyapcast

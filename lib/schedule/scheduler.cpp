@@ -1,0 +1,501 @@
+#include "schedule/scheduler.h"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <variant>
+
+#include "learn/model_file.h"
+#include "schedule/estimates.h"
+
+namespace lyapcast {
+namespace {
+
+constexpr std::size_t kJobsKept = 256;
+constexpr double kProgressLogSeconds = 10;  // long jobs report at info level this often
+
+Result<std::shared_ptr<const ActiveModel>> MakeActive(ModelRecord record) {
+  auto file = Deserialize(record.file);
+  if (!file.ok()) {
+    return Status::Internal(fmt::format("stored version {}: {}", record.version, file.status().message()));
+  }
+  auto active = std::make_shared<ActiveModel>();
+  active->model = std::holds_alternative<FlowMap<float>>(file->model)
+                      ? std::get<FlowMap<float>>(file->model)
+                      : std::get<FlowMap<double>>(file->model).Cast<float>();
+  active->time_unit = file->time_unit_micros;
+  active->record = std::move(record);
+  return std::shared_ptr<const ActiveModel>(std::move(active));
+}
+
+// FNV-1a of the feed id, mixed with the job's data time: the same job gets
+// the same seed in every replay, different jobs different seeds.
+std::uint64_t JobSeed(std::uint64_t base, const std::string& feed, DataTime until) {
+  std::uint64_t h = 1469598103934665603ULL ^ base;
+  for (unsigned char c : feed) h = (h ^ c) * 1099511628211ULL;
+  return h ^ (static_cast<std::uint64_t>(until) * 0x9e3779b97f4a7c15ULL);
+}
+
+std::string Ver(const std::optional<std::int64_t>& v) { return v ? fmt::format("version {}", *v) : "no version"; }
+
+}  // namespace
+
+const char* TriggerKindName(TriggerKind k) {
+  switch (k) {
+    case TriggerKind::kCadence: return "cadence";
+    case TriggerKind::kDrift: return "drift";
+    case TriggerKind::kOperator: return "operator";
+  }
+  return "?";
+}
+
+const char* JobStateName(JobState s) {
+  switch (s) {
+    case JobState::kQueued: return "queued";
+    case JobState::kRunning: return "running";
+    case JobState::kDone: return "done";
+  }
+  return "?";
+}
+
+struct Scheduler::Feed {
+  const FeedConfig* config = nullptr;
+  std::atomic<std::shared_ptr<const ActiveModel>> active;
+  // The rest is guarded by mu_.
+  FeedSchedule s;
+  std::optional<std::uint64_t> pending_job, running_job;
+  DataTime running_until = 0;  // data end of the running job
+  bool dynamics_tried = false;
+};
+
+struct Scheduler::Trainer {
+  std::unique_ptr<WindowStore> reader;
+  std::unique_ptr<ModelRegistry> registry;
+};
+
+Scheduler::Scheduler(const Config& config, SchedulerOptions options) : config_(config), options_(std::move(options)) {
+  for (const FeedConfig& fc : config_.feeds) {
+    auto f = std::make_unique<Feed>();
+    f->config = &fc;
+    feeds_.push_back(std::move(f));
+  }
+}
+
+Scheduler::~Scheduler() { Stop(); }
+
+void Scheduler::Log(SchedulerLogLevel level, const std::string& text) const {
+  if (options_.log) options_.log(level, text);
+}
+
+Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
+  std::vector<std::unique_ptr<Trainer>> trainers;
+  for (int k = 0; k < std::max(options_.threads, 1); ++k) {
+    Trainer& t = *trainers.emplace_back(std::make_unique<Trainer>());
+    auto reader = WindowStore::Open(StoreOptions{options_.store_path, false, options_.busy_timeout_ms});
+    if (!reader.ok()) return reader.status();
+    if (Status s = (*reader)->RegisterFeeds(options_.layouts); !s.ok()) return s;
+    auto registry_store = WindowStore::Open(StoreOptions{options_.store_path, false, options_.busy_timeout_ms});
+    if (!registry_store.ok()) return registry_store.status();
+    if (Status s = (*registry_store)->RegisterFeeds(options_.layouts); !s.ok()) return s;
+    t.reader = std::move(reader).value();
+    t.registry = std::make_unique<ModelRegistry>(std::move(registry_store).value());
+  }
+
+  std::lock_guard lock(mu_);
+  for (std::uint32_t i = 0; i < feeds_.size(); ++i) {
+    Feed& f = *feeds_[i];
+    const FeedExtent e = i < extents.size() ? extents[i] : FeedExtent{};
+    f.s.newest = e.newest;
+    f.s.oldest = e.oldest;
+    auto active = trainers[0]->registry->Active(i);
+    if (!active.ok()) return active.status();
+    if (*active) {
+      auto published = MakeActive(std::move(**active));
+      if (!published.ok()) return published.status();
+      f.s.estimates.model = (*published)->record.lyapunov_max;
+      f.active.store(*published);
+    }
+    auto newest = trainers[0]->registry->List(i, 1);
+    if (!newest.ok()) return newest.status();
+    const auto model = f.active.load();
+    if (!newest->empty()) {
+      // Resume from the newest job that recorded a version: its data end
+      // is where the next interval starts.
+      f.s.last_retrain = newest->front().trained_to;
+      ScheduleNextLocked(f, i, *f.s.last_retrain, false);
+      Log(SchedulerLogLevel::kInfo,
+          fmt::format("feed {}: active {}, last retrain used data to {}; next retrain due at {} ({})", f.config->id,
+                      model ? fmt::format("version {}", model->record.version) : "none",
+                      FormatRfc3339(*f.s.last_retrain), FormatRfc3339(f.s.next_due), f.s.next_reason));
+    } else {
+      ScheduleNextLocked(f, i, 0, false);
+      Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: no model yet; {}", f.config->id, f.s.next_reason));
+    }
+  }
+  started_ = true;
+  for (auto& t : trainers) {
+    trainers_.emplace_back([this, trainer = std::shared_ptr<Trainer>(std::move(t))] { RunTrainer(*trainer); });
+  }
+  QueueDueLocked();
+  work_cv_.notify_all();
+  return Status::Ok();
+}
+
+void Scheduler::RunTrainer(Trainer& trainer) {
+  std::unique_lock lock(mu_);
+  while (true) {
+    work_cv_.wait(lock, [this] { return stopping_ || !ready_.empty(); });
+    if (stopping_) return;
+    const std::uint32_t feed = ready_.front();
+    ready_.pop_front();
+    Feed& f = *feeds_[feed];
+    if (!f.pending_job || f.running_job) continue;  // stale entry
+    const std::uint64_t id = *f.pending_job;
+    f.pending_job.reset();
+    f.running_job = id;
+    f.s.running = true;
+    f.s.pending = false;
+    ++running_;
+    lock.unlock();
+    RunJob(trainer, feed, id);
+    lock.lock();
+    --running_;
+    f.running_job.reset();
+    f.s.running = false;
+    if (f.pending_job) {
+      ready_.push_back(feed);  // a trigger came in while it ran
+      f.s.pending = true;
+    }
+    QueueDueLocked();
+    work_cv_.notify_all();
+    idle_cv_.notify_all();
+  }
+}
+
+void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id) {
+  Feed& f = *feeds_[feed];
+  const FeedConfig& fc = *f.config;
+  const std::shared_ptr<const ActiveModel> active = f.active.load();
+  DataTime until = 0;
+  bool estimate_dynamics = false;
+  std::string trigger;
+  {
+    std::lock_guard lock(mu_);
+    JobInfo* j = FindJobLocked(job_id);
+    if (j != nullptr) {
+      if (j->until == 0) j->until = f.s.newest + 1;  // everything committed so far
+      j->state = JobState::kRunning;
+      if (active) j->parent = active->record.version;
+      until = j->until;
+      trigger = fmt::format("{}: {}", TriggerKindName(j->trigger), j->trigger_reason);
+    } else {
+      until = f.s.newest + 1;
+      trigger = "unknown";
+    }
+    f.running_until = until;
+    estimate_dynamics = fc.dynamics.has_value() && !f.dynamics_tried;
+    f.dynamics_tried = true;
+  }
+  Log(SchedulerLogLevel::kInfo,
+      fmt::format("feed {}: job {} started ({}), data before {}, {}", fc.id, job_id, trigger, FormatRfc3339(until),
+                  active ? fmt::format("warm start from version {}", active->record.version) : "cold start"));
+  const auto started = std::chrono::steady_clock::now();
+  const auto elapsed = [&started] {
+    return std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
+  };
+
+  // Lyapunov estimates from the data (and once from the known dynamics),
+  // for the cadence before a model exists and for the status report.
+  std::vector<Sample> recent;
+  const Micros recent_span = 20000 * fc.step;
+  Status read = trainer.reader->ReadRange(feed, until - recent_span, until, 4096, [&](std::span<const Sample> slice) {
+    recent.insert(recent.end(), slice.begin(), slice.end());
+    return true;
+  });
+  std::optional<ExponentEstimate> from_data, from_dynamics;
+  if (read.ok()) {
+    auto d = DataExponent(fc, recent);
+    if (d.ok()) from_data = *d;
+    else Log(SchedulerLogLevel::kDebug, fmt::format("feed {}: no data exponent yet: {}", fc.id, d.status().message()));
+    if (estimate_dynamics) {
+      for (auto it = recent.rbegin(); it != recent.rend(); ++it) {
+        if (!it->complete()) continue;
+        const Eigen::VectorXd x0 = Eigen::Map<const Eigen::VectorXd>(it->values.data(),
+                                                                      static_cast<Eigen::Index>(it->values.size()));
+        auto e = DynamicsExponent(fc, x0);
+        if (e.ok()) from_dynamics = *e;
+        else Log(SchedulerLogLevel::kWarning, fmt::format("feed {}: known dynamics give no exponent: {}", fc.id,
+                                                          e.status().message()));
+        break;
+      }
+    }
+  }
+
+  RetrainInput in;
+  in.feed = &fc;
+  in.feed_index = feed;
+  in.retention = options_.retention;
+  in.until = until;
+  if (active) in.active = active->record;
+  in.seed = JobSeed(options_.seed, fc.id, until);
+  in.lockstep = options_.lockstep;
+  in.cancel = &cancel_;
+  double last_info = 0;
+  int last_tenth = 0;
+  const auto progress = [&](const FitProgress& p) {
+    const int tenth = p.iterations > 0 ? 10 * p.iteration / p.iterations : 0;
+    const bool info = elapsed() - last_info >= kProgressLogSeconds;
+    if (!info && tenth == last_tenth) return;
+    last_tenth = tenth;
+    if (info) last_info = elapsed();
+    Log(info ? SchedulerLogLevel::kInfo : SchedulerLogLevel::kDebug,
+        fmt::format("feed {}: job {} iteration {}/{}, loss {:.4g}{}", fc.id, job_id, p.iteration, p.iterations, p.loss,
+                    p.validation ? fmt::format(", validation {:.4g}", *p.validation) : ""));
+  };
+  auto outcome = RunRetrain(*trainer.reader, *trainer.registry, in, progress);
+  const double seconds = elapsed();
+
+  std::shared_ptr<const ActiveModel> published;
+  if (outcome.ok() && outcome->verdict == RetrainVerdict::kPromoted && outcome->version) {
+    auto record = trainer.registry->Get(feed, *outcome->version);
+    auto made = record.ok() ? MakeActive(std::move(record).value()) : Result<std::shared_ptr<const ActiveModel>>(record.status());
+    if (made.ok()) {
+      published = *made;
+      f.active.store(published);
+    } else {
+      Log(SchedulerLogLevel::kError, fmt::format("feed {}: version {} was promoted but cannot be loaded ({}); "
+                                                 "still serving {}",
+                                                 fc.id, *outcome->version, made.status().message(),
+                                                 active ? Ver(active->record.version) : "no model"));
+    }
+  }
+  if (outcome.ok() && outcome->verdict != RetrainVerdict::kCancelled) {
+    auto pruned = trainer.registry->Prune(feed, options_.keep_models);
+    if (!pruned.ok()) {
+      Log(SchedulerLogLevel::kWarning, fmt::format("feed {}: pruning old versions failed: {}", fc.id,
+                                                   pruned.status().message()));
+    } else if (*pruned > 0) {
+      Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: pruned {} retired/rejected versions beyond keep_models {}",
+                                                fc.id, *pruned, options_.keep_models));
+    }
+  }
+
+  std::lock_guard lock(mu_);
+  JobInfo done;
+  if (JobInfo* j = FindJobLocked(job_id); j != nullptr) {
+    j->state = JobState::kDone;
+    j->seconds = seconds;
+    done = *j;
+  }
+  if (from_data) {
+    f.s.estimates.data = from_data->per_second;
+    f.s.data_diagnostics = from_data->diagnostics;
+  }
+  if (from_dynamics) {
+    f.s.estimates.dynamics = from_dynamics->per_second;
+    f.s.dynamics_diagnostics = from_dynamics->diagnostics;
+  }
+  bool retry_soon = false;
+  if (!outcome.ok()) {
+    ++f.s.failed;
+    done.outcome = outcome.status().message();
+    Log(SchedulerLogLevel::kError, fmt::format("feed {}: job {} failed after {:.1f}s: {}; still serving {}", fc.id,
+                                               job_id, seconds, done.outcome,
+                                               active ? Ver(active->record.version) : "no model"));
+    retry_soon = true;
+  } else {
+    const RetrainOutcome& o = *outcome;
+    done.verdict = o.verdict;
+    done.version = o.version;
+    done.outcome = o.reason;
+    done.iterations = o.fit.iterations;
+    switch (o.verdict) {
+      case RetrainVerdict::kPromoted:
+        ++f.s.promoted;
+        if (published) f.s.estimates.model = published->record.lyapunov_max;
+        Log(SchedulerLogLevel::kInfo,
+            fmt::format("feed {}: job {} promoted version {} in {:.1f}s ({} iterations): {}", fc.id, job_id,
+                        o.version.value_or(0), seconds, o.fit.iterations, o.reason));
+        break;
+      case RetrainVerdict::kRejected:
+        ++f.s.rejected;
+        Log(SchedulerLogLevel::kWarning,
+            fmt::format("feed {}: job {} rejected candidate version {} in {:.1f}s: {}; still serving {}", fc.id,
+                        job_id, o.version.value_or(0), seconds, o.reason,
+                        active ? Ver(active->record.version) : "no model"));
+        break;
+      case RetrainVerdict::kNotEnoughData:
+        ++f.s.not_enough_data;
+        retry_soon = true;
+        Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: job {}: {}", fc.id, job_id, o.reason));
+        break;
+      case RetrainVerdict::kCancelled:
+        Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: job {} cancelled (shutting down)", fc.id, job_id));
+        if (JobInfo* j = FindJobLocked(job_id); j != nullptr) *j = done;
+        f.s.last_job = done;
+        return;
+    }
+  }
+  if (JobInfo* j = FindJobLocked(job_id); j != nullptr) *j = done;
+  f.s.last_job = done;
+  f.s.last_retrain = until;
+  if (retry_soon && f.active.load()) {
+    // A failure with a model: try again after min_interval, not a whole cadence.
+    const Micros interval = std::max(fc.retrain.min_interval, fc.step);
+    f.s.next_due = until + interval;
+    f.s.next_reason = fmt::format("the last job did not finish a model: retry after {}", FormatDuration(interval));
+  } else {
+    ScheduleNextLocked(f, feed, until, retry_soon);
+  }
+  Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: next retrain due at {} ({})", fc.id,
+                                            FormatRfc3339(f.s.next_due), f.s.next_reason));
+  if (f.s.newest >= f.s.next_due && !options_.lockstep) {
+    Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: that retrain was due while job {} ran (data reached {}); "
+                                              "it starts now",
+                                              fc.id, job_id, FormatRfc3339(f.s.newest)));
+  }
+}
+
+// The first job waits until the window spans enough steps for min_pairs
+// training pairs; a cold start that still found too few (gaps) retries
+// after min_interval; afterwards the cadence of cadence.h applies.
+void Scheduler::ScheduleNextLocked(Feed& f, std::uint32_t, DataTime since, bool retry_soon) {
+  const FeedConfig& fc = *f.config;
+  const RetrainConfig& rc = fc.retrain;
+  const bool has_model = f.active.load() != nullptr;
+  if (!has_model && !f.s.last_retrain) {
+    // Training pairs need `rollout` further steps each; validation takes its share.
+    const double span_steps = rc.min_pairs / std::max(1e-9, 1.0 - rc.validation) + fc.model.rollout + 1;
+    const auto span = static_cast<Micros>(std::ceil(span_steps)) * fc.step;
+    f.s.next_due = f.s.oldest ? f.s.oldest + span : 0;
+    f.s.next_reason = fmt::format("first retrain once the window spans {} ({} pairs of {} plus the validation share)",
+                                  FormatDuration(span), rc.min_pairs, FormatDuration(fc.step));
+    return;
+  }
+  if (!has_model && retry_soon) {
+    const Micros interval = std::max(rc.min_interval, fc.step);
+    f.s.next_due = since + interval;
+    f.s.next_reason = fmt::format("no model yet and too few pairs: retry after {}", FormatDuration(interval));
+    return;
+  }
+  const CadenceDecision d = NextRetrain(rc, f.s.estimates, has_model, since);
+  f.s.next_due = since + std::max(d.interval, fc.step);
+  f.s.next_reason = d.reason;
+}
+
+void Scheduler::QueueDueLocked() {
+  if (stopping_ || !started_) return;
+  for (std::uint32_t i = 0; i < feeds_.size(); ++i) {
+    Feed& f = *feeds_[i];
+    if (f.s.next_due == 0 || f.s.newest < f.s.next_due) continue;
+    if (f.pending_job) continue;  // already queued (its data end is fixed at start or at queueing)
+    if (f.running_job && f.running_until >= f.s.next_due) continue;  // the running job covers it
+    if (f.running_job) {
+      // Queue it now: the trainer picks it up when the running job ends.
+      Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: retrain due at {} waits for the running job {}",
+                                                f.config->id, FormatRfc3339(f.s.next_due), *f.running_job));
+    }
+    QueueLocked(i, TriggerKind::kCadence, "due at " + FormatRfc3339(f.s.next_due));
+  }
+}
+
+std::uint64_t Scheduler::QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason) {
+  Feed& f = *feeds_[feed];
+  if (f.pending_job) {
+    ++f.s.coalesced;
+    Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: {} trigger ({}) joins the pending job {}", f.config->id,
+                                              TriggerKindName(kind), reason, *f.pending_job));
+    return *f.pending_job;
+  }
+  JobInfo job;
+  job.id = next_job_id_++;
+  job.feed = feed;
+  job.trigger = kind;
+  job.trigger_reason = std::move(reason);
+  // A cadence job in lockstep uses exactly the data before its due time.
+  if (kind == TriggerKind::kCadence && options_.lockstep) job.until = f.s.next_due;
+  jobs_.push_back(job);
+  while (jobs_.size() > kJobsKept) jobs_.pop_front();
+  f.pending_job = job.id;
+  f.s.pending = true;
+  if (!f.running_job) ready_.push_back(feed);
+  Log(SchedulerLogLevel::kDebug, fmt::format("feed {}: job {} queued ({}: {})", f.config->id, job.id,
+                                             TriggerKindName(kind), job.trigger_reason));
+  return job.id;
+}
+
+bool Scheduler::BusyLocked() const { return running_ > 0 || !ready_.empty(); }
+
+JobInfo* Scheduler::FindJobLocked(std::uint64_t id) {
+  for (JobInfo& j : jobs_) {
+    if (j.id == id) return &j;
+  }
+  return nullptr;
+}
+
+void Scheduler::OnCommitted(const CommittedBatch& batch) {
+  std::unique_lock lock(mu_);
+  if (stopping_) return;
+  for (const FeedSample& fs : batch.samples) {
+    if (fs.feed >= feeds_.size()) continue;
+    FeedSchedule& s = feeds_[fs.feed]->s;
+    s.newest = std::max(s.newest, fs.sample.t);
+    if (s.oldest == 0 || fs.sample.t < s.oldest) {
+      s.oldest = fs.sample.t;
+      if (!s.last_retrain && !feeds_[fs.feed]->active.load()) ScheduleNextLocked(*feeds_[fs.feed], fs.feed, 0, false);
+    }
+  }
+  QueueDueLocked();
+  work_cv_.notify_all();
+  if (options_.lockstep) {
+    // Ingest pauses here (the writer does not commit the next group) until
+    // every due retrain is done; a job's end may make the next one due.
+    idle_cv_.wait(lock, [this] { return stopping_ || !BusyLocked(); });
+  }
+}
+
+Result<std::uint64_t> Scheduler::Trigger(std::uint32_t feed, TriggerKind kind, std::string reason) {
+  if (feed >= feeds_.size()) return Status::NotFound(fmt::format("no feed with index {}", feed));
+  std::lock_guard lock(mu_);
+  if (stopping_ || !started_) return Status::Unavailable("the scheduler is not running");
+  const std::uint64_t id = QueueLocked(feed, kind, std::move(reason));
+  work_cv_.notify_all();
+  return id;
+}
+
+std::shared_ptr<const ActiveModel> Scheduler::active(std::uint32_t feed) const {
+  if (feed >= feeds_.size()) return nullptr;
+  return feeds_[feed]->active.load();
+}
+
+FeedSchedule Scheduler::schedule(std::uint32_t feed) const {
+  std::lock_guard lock(mu_);
+  return feed < feeds_.size() ? feeds_[feed]->s : FeedSchedule{};
+}
+
+std::optional<JobInfo> Scheduler::job(std::uint64_t id) const {
+  std::lock_guard lock(mu_);
+  for (const JobInfo& j : jobs_) {
+    if (j.id == id) return j;
+  }
+  return std::nullopt;
+}
+
+void Scheduler::Stop() {
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_ && trainers_.empty()) return;
+    stopping_ = true;
+  }
+  cancel_.store(true);
+  work_cv_.notify_all();
+  idle_cv_.notify_all();
+  for (auto& t : trainers_) {
+    if (t.joinable()) t.join();
+  }
+  trainers_.clear();
+}
+
+}  // namespace lyapcast

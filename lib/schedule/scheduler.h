@@ -1,0 +1,180 @@
+// Scheduler: each feed's retraining cadence and the trainer pool that runs
+// the jobs (DESIGN.md "Threads" and "Time").
+//
+// Cadence, in data time only: the writer hands every committed batch to
+// OnCommitted(); once a feed's newest sample reaches its due time a job is
+// queued. The first job is due once the window spans retrain.min_pairs steps
+// (and is retried every min_interval while it holds too few pairs); after a
+// job that used data up to U the next is due at NextRetrain(U) (cadence.h),
+// never sooner than one sample step later. Drift (stage 4's monitor) and an
+// operator can Trigger() a job earlier.
+//
+// Jobs: at most one per feed at a time; a trigger that arrives while the
+// feed's job runs (or is queued) is coalesced into the one pending job and
+// logged. A pool of `threads` trainers runs jobs of different feeds
+// concurrently, each with its own SQLite connections (reader and registry),
+// so training never blocks ingest. A promoted version is durable in the
+// registry before it is published; the active model of each feed is an
+// immutable object behind an atomic shared pointer, so readers never wait.
+// A failed, diverged or worse candidate leaves the active version in place.
+//
+// Lockstep (`lockstep`): OnCommitted() does not return while a job is due
+// or running, so the writer, and through backpressure the ingest sessions,
+// pause until the retraining is done. A cadence job then uses exactly the
+// samples before its due time and no wall-time budget, so a replay at any
+// speed gives the same retrain points and the same model bytes. (The writer
+// calls subscribers before its next prune, so no sample a job needs is
+// pruned under it.) In live mode a job uses everything committed when it
+// starts; a due job that waits for a running one logs that it waits.
+//
+// Start-up: Start() loads each feed's active version and publishes it, and
+// resumes the cadence from the newest stored version's training end.
+//
+// Threads: OnCommitted runs on the writer thread. Trigger, active, schedule,
+// job and Stop may be called from any thread. Every decision is reported
+// through `log` (from the calling or a trainer thread) with its reason.
+#pragma once
+
+#include <atomic>
+#include <condition_variable>
+#include <cstdint>
+#include <deque>
+#include <filesystem>
+#include <functional>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "config/config.h"
+#include "learn/flow_map.h"
+#include "schedule/cadence.h"
+#include "schedule/retrain_job.h"
+#include "store/model_registry.h"
+#include "store/sample_writer.h"
+#include "store/window_store.h"
+
+namespace lyapcast {
+
+enum class SchedulerLogLevel { kDebug, kInfo, kWarning, kError };
+using SchedulerLog = std::function<void(SchedulerLogLevel, const std::string&)>;
+
+struct SchedulerOptions {
+  std::filesystem::path store_path;        // the window database (required)
+  std::vector<FeedLayout> layouts;         // as registered by the writer's store
+  int threads = 1;                         // training.threads
+  bool lockstep = false;                   // training.lockstep
+  Micros retention = 6 * 3600 * kMicrosPerSecond;  // storage.retention
+  int keep_models = 200;                   // storage.keep_models
+  int busy_timeout_ms = 5000;
+  std::uint64_t seed = 1;                  // mixed with the feed and the job's data time
+  SchedulerLog log;                        // may be empty
+};
+
+// The served model of a feed; never changes once published.
+struct ActiveModel {
+  ModelRecord record;  // with the model file bytes
+  FlowMap<float> model;
+  Micros time_unit = kMicrosPerSecond;  // data time per model time unit
+};
+
+enum class TriggerKind { kCadence, kDrift, kOperator };
+const char* TriggerKindName(TriggerKind k);  // "cadence", "drift", "operator"
+
+enum class JobState { kQueued, kRunning, kDone };
+const char* JobStateName(JobState s);  // "queued", "running", "done"
+
+struct JobInfo {
+  std::uint64_t id = 0;
+  std::uint32_t feed = 0;
+  TriggerKind trigger = TriggerKind::kCadence;
+  std::string trigger_reason;
+  JobState state = JobState::kQueued;
+  DataTime until = 0;  // data used: samples before this time (set when it starts)
+  std::optional<std::int64_t> parent;  // version it warm-started from
+  std::optional<RetrainVerdict> verdict;  // when done without an error
+  std::optional<std::int64_t> version;    // recorded version (promoted or rejected)
+  std::string outcome;  // the verdict's reason, or the error
+  int iterations = 0;
+  double seconds = 0;  // wall time of the job
+};
+
+// What the scheduler knows of one feed (a snapshot).
+struct FeedSchedule {
+  DataTime newest = 0;           // newest committed sample (0: none)
+  DataTime oldest = 0;           // oldest committed sample seen (0: none)
+  std::optional<DataTime> last_retrain;  // data end of the last finished job
+  DataTime next_due = 0;         // the next cadence job is due at this data time
+  std::string next_reason;       // why then
+  LyapunovEstimates estimates;   // per second of data time
+  std::string dynamics_diagnostics, data_diagnostics;
+  bool running = false, pending = false;
+  std::optional<JobInfo> last_job;  // the newest finished job
+  std::uint64_t promoted = 0, rejected = 0, not_enough_data = 0, failed = 0, coalesced = 0;
+};
+
+class Scheduler {
+ public:
+  // `config` must outlive the scheduler.
+  Scheduler(const Config& config, SchedulerOptions options);
+  ~Scheduler();  // Stop()s
+  Scheduler(const Scheduler&) = delete;
+  Scheduler& operator=(const Scheduler&) = delete;
+
+  // Opens the scheduler's connections, publishes each feed's active
+  // version, resumes the cadence (extents: each feed's stored samples, as
+  // the writer reports them) and starts the trainers. Errors: the store or
+  // a stored model cannot be read.
+  [[nodiscard]] Status Start(const std::vector<FeedExtent>& extents);
+
+  // The writer's subscriber. Returns at once in live mode; in lockstep only
+  // when no job is due or running (or Stop() began).
+  void OnCommitted(const CommittedBatch& batch);
+
+  // Queues a job for `feed` now (coalesced with a pending or running one).
+  // Returns the job's id (the pending job's when coalesced). kNotFound for an
+  // unknown feed; kUnavailable when stopping.
+  [[nodiscard]] Result<std::uint64_t> Trigger(std::uint32_t feed, TriggerKind kind, std::string reason);
+
+  // The published active model (null when the feed has none yet).
+  std::shared_ptr<const ActiveModel> active(std::uint32_t feed) const;
+  FeedSchedule schedule(std::uint32_t feed) const;
+  std::optional<JobInfo> job(std::uint64_t id) const;  // the newest 256 jobs are kept
+
+  // Cancels running jobs (their candidates are dropped unrecorded), wakes a
+  // waiting OnCommitted and joins the trainers. Idempotent.
+  void Stop();
+
+ private:
+  struct Feed;
+  struct Trainer;
+  void Log(SchedulerLogLevel level, const std::string& text) const;
+  void RunTrainer(Trainer& trainer);  // a trainer thread's loop
+  // Requires mu_. Queues a cadence job for every feed whose due time passed.
+  void QueueDueLocked();
+  // Requires mu_. Queues (or coalesces into) a job of `feed`.
+  std::uint64_t QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason);
+  void RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id);
+  bool BusyLocked() const;  // some job queued or running
+  JobInfo* FindJobLocked(std::uint64_t id);
+  void ScheduleNextLocked(Feed& f, std::uint32_t feed, DataTime since, bool retry_soon);
+
+  const Config& config_;
+  const SchedulerOptions options_;
+  std::vector<std::unique_ptr<Feed>> feeds_;
+
+  mutable std::mutex mu_;
+  std::condition_variable work_cv_;  // trainers: a job was queued or stopping
+  std::condition_variable idle_cv_;  // lockstep writer: a job finished or stopping
+  std::deque<std::uint32_t> ready_;  // feeds with a queued job, in order; guarded by mu_
+  std::deque<JobInfo> jobs_;         // newest last; guarded by mu_
+  std::uint64_t next_job_id_ = 1;    // guarded by mu_
+  bool started_ = false, stopping_ = false;  // guarded by mu_
+  int running_ = 0;                  // guarded by mu_
+  std::atomic<bool> cancel_{false};
+  std::vector<std::jthread> trainers_;
+};
+
+}  // namespace lyapcast

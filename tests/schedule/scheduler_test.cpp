@@ -1,0 +1,314 @@
+// The scheduler on a real SQLite window fed through the real SampleWriter:
+// lockstep replays in different commit groupings give the same retrain
+// points and the same model bytes; triggers during a job are coalesced; a
+// due job waits for the running one (logged); a rejected candidate is never
+// served; a restarted scheduler serves the stored active version and resumes
+// the cadence from the stored state; Stop() cancels a running job.
+// Data: Lorenz-63 (REFERENCES.md constants) from the project's RK4.
+#include "schedule/scheduler.h"
+
+#include <gtest/gtest.h>
+
+#include <future>
+#include <mutex>
+#include <thread>
+
+#include "physics/integrators.h"
+#include "support/feeds.h"
+#include "support/temp_dir.h"
+
+namespace lyapcast {
+namespace {
+
+namespace fs = std::filesystem;
+
+Config LorenzConfig() {
+  Config c;
+  FeedConfig f = testing::LorenzFeed();
+  f.model.hidden = {16, 16};
+  f.retrain.iterations = 60;
+  f.retrain.batch = 64;
+  f.retrain.min_pairs = 400;
+  f.retrain.learning_rate = 3e-3;
+  f.retrain.min_interval = 2 * kMicrosPerSecond;
+  f.retrain.max_interval = 4 * kMicrosPerSecond;
+  c.feeds.push_back(f);
+  return c;
+}
+
+// Lorenz-63 samples every 10 ms for `n` steps, from data time t0.
+std::vector<FeedSample> Lorenz(int n, DataTime t0) {
+  const Dynamics d = testing::MustCompile(testing::LorenzFeed());
+  const Rhs f = [&d](const double* x, double* dx) { d.Eval(x, dx); };
+  Eigen::VectorXd x(3);
+  x << 1, 1, 1;
+  x = IntegrateRk4(f, x, 20.0, 2e-3);
+  std::vector<FeedSample> out;
+  for (int i = 0; i < n; ++i) {
+    out.push_back({0, Sample{t0 + i * 10'000LL, {x[0], x[1], x[2]}, 0}});
+    x = IntegrateRk4(f, x, 0.01, 2e-3);
+  }
+  return out;
+}
+
+// A store, its writer and a scheduler subscribed to it, as the daemon wires them.
+class Rig {
+ public:
+  Rig(const Config& config, const fs::path& db, bool lockstep, int commit_batch) {
+    auto store = WindowStore::Open(StoreOptions{db, false, 5000});
+    EXPECT_TRUE(store.ok()) << store.status().ToString();
+    EXPECT_TRUE((*store)->RegisterFeeds(Layouts(config)).ok());
+    WriterOptions w;
+    w.commit_batch = commit_batch;
+    writer_ = std::make_unique<SampleWriter>(std::move(store).value(), 1, w);
+    SchedulerOptions o;
+    o.store_path = db;
+    o.layouts = Layouts(config);
+    o.lockstep = lockstep;
+    o.keep_models = 1000;
+    o.log = [this](SchedulerLogLevel, const std::string& text) {
+      std::lock_guard lock(log_mu_);
+      log_.push_back(text);
+    };
+    scheduler_ = std::make_unique<Scheduler>(config, o);
+    writer_->Subscribe([this](const CommittedBatch& b) { scheduler_->OnCommitted(b); });
+    EXPECT_TRUE(writer_->Start().ok());
+    EXPECT_TRUE(scheduler_->Start({writer_->extent(0)}).ok());
+  }
+  ~Rig() { Stop(); }
+
+  // Submits in chunks of `chunk` samples without waiting (the writer groups them).
+  void Send(const std::vector<FeedSample>& samples, std::size_t chunk) {
+    for (std::size_t i = 0; i < samples.size(); i += chunk) {
+      std::vector<FeedSample> part(samples.begin() + static_cast<std::ptrdiff_t>(i),
+                                   samples.begin() + static_cast<std::ptrdiff_t>(std::min(samples.size(), i + chunk)));
+      ASSERT_TRUE(writer_->Submit(std::move(part), [](std::vector<WriteOutcome>) {}));
+    }
+  }
+  // Waits until everything submitted is committed and handed to the
+  // scheduler (in lockstep: and every due job ran). Completions run before
+  // the subscribers of the same group, so the second empty submission,
+  // queued after the first completed, is in a later group.
+  void Drain() {
+    for (int round = 0; round < 2; ++round) {
+      std::promise<void> done;
+      ASSERT_TRUE(writer_->Submit({}, [&done](std::vector<WriteOutcome>) { done.set_value(); }));
+      done.get_future().wait();
+    }
+  }
+  void Stop() {
+    if (scheduler_) scheduler_->Stop();
+    if (writer_) writer_->Stop();
+  }
+  Scheduler& scheduler() { return *scheduler_; }
+  bool Logged(const std::string& needle) {
+    std::lock_guard lock(log_mu_);
+    for (const std::string& line : log_) {
+      if (line.find(needle) != std::string::npos) return true;
+    }
+    return false;
+  }
+
+  static std::vector<FeedLayout> Layouts(const Config& c) {
+    std::vector<FeedLayout> out;
+    for (const FeedConfig& f : c.feeds) out.push_back({f.id, f.channels, f.step});
+    return out;
+  }
+
+ private:
+  std::unique_ptr<SampleWriter> writer_;
+  std::unique_ptr<Scheduler> scheduler_;
+  std::mutex log_mu_;
+  std::vector<std::string> log_;
+};
+
+std::unique_ptr<ModelRegistry> OpenRegistry(const fs::path& db, const Config& config) {
+  auto store = WindowStore::Open(StoreOptions{db, false, 5000});
+  EXPECT_TRUE(store.ok());
+  EXPECT_TRUE((*store)->RegisterFeeds(Rig::Layouts(config)).ok());
+  return std::make_unique<ModelRegistry>(std::move(store).value());
+}
+
+// (version, status, trained_to, file) of every stored version, oldest first.
+struct Version {
+  std::int64_t version;
+  ModelStatus status;
+  DataTime trained_to;
+  std::string file;
+  bool operator==(const Version&) const = default;
+};
+std::vector<Version> Versions(const fs::path& db, const Config& config) {
+  auto registry = OpenRegistry(db, config);
+  std::vector<Version> out;
+  auto list = registry->List(0, 1000);
+  EXPECT_TRUE(list.ok());
+  for (auto it = list->rbegin(); it != list->rend(); ++it) {
+    out.push_back({it->version, it->status, it->trained_to, registry->Get(0, it->version)->file});
+  }
+  return out;
+}
+
+TEST(Scheduler, LockstepReplayGivesTheSameRetrainPointsAndModelBytesAtAnyGrouping) {
+  const Config config = LorenzConfig();
+  const std::vector<FeedSample> data = Lorenz(2000, 1'000'000'000'000'000);
+  std::vector<Version> runs[2];
+  const std::pair<std::size_t, int> groupings[2] = {{7, 16}, {997, 4096}};  // (chunk, commit_batch)
+  for (int r = 0; r < 2; ++r) {
+    testing::TempDir dir("lyapcast-scheduler-test");
+    const fs::path db = dir.path() / "w.db";
+    {
+      Rig rig(config, db, /*lockstep=*/true, groupings[r].second);
+      rig.Send(data, groupings[r].first);
+      rig.Drain();
+      const FeedSchedule s = rig.scheduler().schedule(0);
+      EXPECT_GE(s.promoted, 1u);
+      EXPECT_EQ(s.failed, 0u);
+      EXPECT_FALSE(s.running);
+      ASSERT_TRUE(s.last_retrain.has_value());
+      EXPECT_GT(s.next_due, *s.last_retrain);
+      EXPECT_GT(s.next_due, s.newest) << "lockstep leaves no due job behind";
+      ASSERT_NE(rig.scheduler().active(0), nullptr);
+    }
+    runs[r] = Versions(db, config);
+  }
+  // First job once the window spans 400 / (1 - 0.2) + rollout + 1 steps
+  // (enough for the first model at once); then every 2..4 s of data: at
+  // least 4 versions from 20 s of data.
+  ASSERT_GE(runs[0].size(), 4u);
+  const Micros first_span = (500 + config.feeds[0].model.rollout + 1) * 10'000LL;
+  EXPECT_EQ(runs[0].front().trained_to, 1'000'000'000'000'000 + first_span);
+  ASSERT_EQ(runs[0].size(), runs[1].size());
+  for (std::size_t i = 0; i < runs[0].size(); ++i) {
+    EXPECT_EQ(runs[0][i].trained_to, runs[1][i].trained_to) << "version " << runs[0][i].version;
+    EXPECT_EQ(runs[0][i].status, runs[1][i].status) << "version " << runs[0][i].version;
+    EXPECT_TRUE(runs[0][i].file == runs[1][i].file) << "model bytes differ at version " << runs[0][i].version;
+  }
+  for (std::size_t i = 1; i < runs[0].size(); ++i) {
+    const Micros gap = runs[0][i].trained_to - runs[0][i - 1].trained_to;
+    EXPECT_GE(gap, 2 * kMicrosPerSecond) << "clamped to min_interval";
+    EXPECT_LE(gap, 4 * kMicrosPerSecond) << "clamped to max_interval";
+  }
+}
+
+TEST(Scheduler, TriggersDuringAJobAreCoalescedAndADueJobWaits) {
+  Config config = LorenzConfig();
+  config.feeds[0].retrain.iterations = 2'000'000;  // runs until Stop() cancels it
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  Rig rig(config, db, /*lockstep=*/false, 4096);
+  rig.Send(Lorenz(600, 0), 600);  // past the first due time (5 s): the cold start runs
+  rig.Drain();
+  for (int i = 0; i < 2000 && !rig.scheduler().schedule(0).running; ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(5));
+  }
+  ASSERT_TRUE(rig.scheduler().schedule(0).running);
+  auto a = rig.scheduler().Trigger(0, TriggerKind::kOperator, "test");
+  auto b = rig.scheduler().Trigger(0, TriggerKind::kDrift, "test");
+  auto c = rig.scheduler().Trigger(0, TriggerKind::kOperator, "test");
+  ASSERT_TRUE(a.ok() && b.ok() && c.ok());
+  EXPECT_EQ(*a, *b);
+  EXPECT_EQ(*a, *c);
+  EXPECT_EQ(rig.scheduler().schedule(0).coalesced, 2u);
+  EXPECT_TRUE(rig.scheduler().schedule(0).pending);
+  EXPECT_EQ(rig.scheduler().job(*a)->state, JobState::kQueued);
+
+  EXPECT_EQ(rig.scheduler().Trigger(7, TriggerKind::kOperator, "x").status().code(), StatusCode::kNotFound);
+  rig.Stop();
+  EXPECT_EQ(rig.scheduler().active(0), nullptr) << "the cancelled cold start published nothing";
+  EXPECT_TRUE(Versions(db, config).empty()) << "a cancelled job records no version";
+  EXPECT_TRUE(rig.Logged("cancelled"));
+}
+
+TEST(Scheduler, ACadenceJobDueWhileAnotherRunsWaitsAndSaysSo) {
+  Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-scheduler-test");
+  Rig rig(config, dir.path() / "w.db", /*lockstep=*/false, 4096);
+  rig.Send(Lorenz(600, 0), 600);
+  rig.Drain();
+  const auto settled = [&rig] {
+    const FeedSchedule s = rig.scheduler().schedule(0);
+    return !s.running && !s.pending && s.last_job.has_value();
+  };
+  for (int i = 0; i < 4000 && !settled(); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(5));
+  ASSERT_TRUE(settled());
+  ASSERT_NE(rig.scheduler().active(0), nullptr);
+  const DataTime due = rig.scheduler().schedule(0).next_due;
+  ASSERT_LE(due, 10'000'000);  // 6 s + at most max_interval
+
+  // No job runs now, so the config may change: the next job runs until Stop().
+  config.feeds[0].retrain.iterations = 2'000'000;
+  rig.Send(Lorenz(100, 6'000'000), 100);  // new data, short of the due time
+  rig.Drain();
+  ASSERT_LT(7'000'000, due);
+  ASSERT_TRUE(rig.scheduler().Trigger(0, TriggerKind::kOperator, "test").ok());
+  for (int i = 0; i < 2000 && !rig.scheduler().schedule(0).running; ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(5));
+  }
+  ASSERT_TRUE(rig.scheduler().schedule(0).running);
+  EXPECT_FALSE(rig.Logged("waits for the running job"));
+  rig.Send(Lorenz(400, 7'000'000), 400);  // data to 11 s: past the cadence due time
+  rig.Drain();
+  EXPECT_TRUE(rig.Logged("waits for the running job"));
+  EXPECT_TRUE(rig.scheduler().schedule(0).pending);
+  rig.Stop();
+  EXPECT_EQ(rig.scheduler().active(0)->record.version, 1) << "the cancelled job changed nothing";
+}
+
+TEST(Scheduler, ARejectedCandidateIsNeverServed) {
+  Config config = LorenzConfig();
+  // A candidate must be 100x better than the active model to be promoted:
+  // after the first model every candidate is rejected.
+  config.feeds[0].retrain.promote_tolerance = -0.99;
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  {
+    Rig rig(config, db, /*lockstep=*/true, 4096);
+    rig.Send(Lorenz(1500, 0), 100);
+    rig.Drain();
+    const FeedSchedule s = rig.scheduler().schedule(0);
+    EXPECT_EQ(s.promoted, 1u);
+    EXPECT_GE(s.rejected, 2u);
+    ASSERT_NE(rig.scheduler().active(0), nullptr);
+    EXPECT_EQ(rig.scheduler().active(0)->record.version, 1);
+    EXPECT_TRUE(rig.Logged("still serving version 1"));
+  }
+  const std::vector<Version> versions = Versions(db, config);
+  ASSERT_GE(versions.size(), 3u);
+  EXPECT_EQ(versions[0].status, ModelStatus::kActive);
+  for (std::size_t i = 1; i < versions.size(); ++i) EXPECT_EQ(versions[i].status, ModelStatus::kRejected);
+}
+
+TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  const std::vector<FeedSample> data = Lorenz(2000, 0);
+  std::int64_t active_before = 0;
+  DataTime last_before = 0, due_before = 0;
+  {
+    Rig rig(config, db, /*lockstep=*/true, 4096);
+    rig.Send({data.begin(), data.begin() + 1200}, 100);
+    rig.Drain();
+    ASSERT_NE(rig.scheduler().active(0), nullptr);
+    active_before = rig.scheduler().active(0)->record.version;
+    last_before = *rig.scheduler().schedule(0).last_retrain;
+    due_before = rig.scheduler().schedule(0).next_due;
+  }
+  ASSERT_GT(active_before, 0);
+  Rig rig(config, db, /*lockstep=*/true, 4096);
+  ASSERT_NE(rig.scheduler().active(0), nullptr);
+  EXPECT_EQ(rig.scheduler().active(0)->record.version, active_before);
+  EXPECT_EQ(*rig.scheduler().schedule(0).last_retrain, last_before);
+  EXPECT_EQ(rig.scheduler().schedule(0).next_due, due_before);
+  EXPECT_TRUE(rig.Logged("next retrain due at"));
+  rig.Send({data.begin() + 1200, data.end()}, 100);
+  rig.Drain();
+  const FeedSchedule s = rig.scheduler().schedule(0);
+  EXPECT_GE(s.promoted + s.rejected, 1u) << "retraining resumed";
+  EXPECT_GT(*s.last_retrain, last_before);
+  ASSERT_TRUE(s.last_job.has_value());
+  EXPECT_EQ(s.last_job->parent.value_or(0) >= active_before, true);
+}
+
+}  // namespace
+}  // namespace lyapcast
