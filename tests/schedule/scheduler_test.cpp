@@ -54,7 +54,7 @@ std::vector<FeedSample> Lorenz(int n, DataTime t0) {
 // A store, its writer and a scheduler subscribed to it, as the daemon wires them.
 class Rig {
  public:
-  Rig(const Config& config, const fs::path& db, bool lockstep, int commit_batch) {
+  Rig(const Config& config, const fs::path& db, bool lockstep, int commit_batch, int keep_models = 1000) {
     auto store = WindowStore::Open(StoreOptions{db, false, 5000});
     EXPECT_TRUE(store.ok()) << store.status().ToString();
     EXPECT_TRUE((*store)->RegisterFeeds(Layouts(config)).ok());
@@ -65,7 +65,7 @@ class Rig {
     o.store_path = db;
     o.layouts = Layouts(config);
     o.lockstep = lockstep;
-    o.keep_models = 1000;
+    o.keep_models = keep_models;
     o.log = [this](SchedulerLogLevel, const std::string& text) {
       std::lock_guard lock(log_mu_);
       log_.push_back(text);
@@ -276,6 +276,24 @@ TEST(Scheduler, ARejectedCandidateIsNeverServed) {
   ASSERT_GE(versions.size(), 3u);
   EXPECT_EQ(versions[0].status, ModelStatus::kActive);
   for (std::size_t i = 1; i < versions.size(); ++i) EXPECT_EQ(versions[i].status, ModelStatus::kRejected);
+}
+
+TEST(Scheduler, PrunesVersionsBeyondKeepModelsButNeverTheActiveOne) {
+  Config config = LorenzConfig();
+  config.feeds[0].retrain.promote_tolerance = -0.99;  // every later candidate is rejected
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  {
+    Rig rig(config, db, /*lockstep=*/true, 4096, /*keep_models=*/2);
+    rig.Send(Lorenz(2000, 0), 100);
+    rig.Drain();
+    EXPECT_GE(rig.scheduler().schedule(0).rejected, 3u);
+    EXPECT_TRUE(rig.Logged("beyond keep_models 2"));
+  }
+  const std::vector<Version> versions = Versions(db, config);
+  ASSERT_EQ(versions.size(), 3u) << "the active version and the newest 2 rejected ones";
+  EXPECT_EQ(versions[0].version, 1);
+  EXPECT_EQ(versions[0].status, ModelStatus::kActive);
 }
 
 TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
