@@ -1,6 +1,8 @@
 """The lyapcast CLI's offline commands end to end: simulate -> train ->
 forecast on files, and simulate --send into a real daemon."""
 
+import json
+import math
 import os
 import shutil
 import subprocess
@@ -91,6 +93,120 @@ class OfflineCommandsTest(unittest.TestCase):
         corrupt = run("forecast", "--model", model, "--from", "1,1,20", check=False)
         self.assertEqual(corrupt.returncode, 2)
         self.assertIn("checksum", corrupt.stderr)
+
+
+
+class ScoreCommandTest(unittest.TestCase):
+    """train -> score: small on fresh data of the same system, clearly larger after a parameter change."""
+
+    @classmethod
+    def setUpClass(cls):
+        cls.dir = tempfile.mkdtemp(prefix="lyapcast-cli-score-")
+        cls.config = os.path.join(cls.dir, "lorenz.yaml")
+        with open(cls.config, "w") as f:
+            f.write(LORENZ)
+        cls.train_csv = cls.simulate("train.csv", "--noise", "0.005", "--gap-rate", "0.1")
+        cls.model = os.path.join(cls.dir, "lorenz.model")
+        cls.train_out = run("train", "-c", cls.config, "--csv", cls.train_csv, "--out", cls.model,
+                            "--iterations", "1000", "--validation", "0.2").stdout
+
+    @classmethod
+    def tearDownClass(cls):
+        shutil.rmtree(cls.dir, ignore_errors=True)
+
+    @classmethod
+    def simulate(cls, name, *extra, start="2026-01-01T00:00:00Z", transient="20s"):
+        path = os.path.join(cls.dir, name)
+        run("simulate", "-c", cls.config, "--duration", "20s", "--transient", transient, "--start", start,
+            "--seed", "3", "-o", path, *extra)
+        return path
+
+    def score_json(self, csv, *extra):
+        out = run("score", "--model", self.model, "--input", csv, "--json", *extra)
+        doc = json.loads(out.stdout)
+        self.assertEqual(sorted(doc), ["channels", "error", "from", "model", "pairs", "to"], out.stdout)
+        self.assertEqual([c["name"] for c in doc["channels"]], ["x", "y", "z"])
+        return doc
+
+    def test_reproduces_the_validation_error_on_the_training_file(self):
+        # The newest 20 % of the training file's grid is what train validated on.
+        with open(self.train_csv) as f:
+            times = [float(line.split(",")[1]) for line in f]
+        n = round((times[-1] - times[0]) / 0.01) + 1
+        begin = n - math.floor(0.2 * n)
+        doc = self.score_json(self.train_csv, "--from", f"{times[0] + begin * 0.01:.6f}")
+        report = self.train_out.split("one-step validation error per channel")[1]
+        per_channel = [float(line.split()[1]) for line in report.splitlines()[1:4]]
+        for got, want in zip(doc["channels"], per_channel):
+            self.assertAlmostEqual(got["error"] / want, 1.0, delta=2e-3, msg=(doc, self.train_out))
+        self.assertAlmostEqual(doc["error"] / (sum(per_channel) / 3), 1.0, delta=2e-3)
+
+    def test_fresh_data_small_changed_parameter_larger(self):
+        fresh = self.simulate("fresh.csv", start="2026-01-02T00:00:00Z", transient="45s")
+        changed = self.simulate("changed.csv", "--change", "r=40@0s", start="2026-01-02T00:00:00Z",
+                                transient="45s")
+        a = self.score_json(fresh)
+        b = self.score_json(changed)
+        self.assertEqual(a["pairs"], 1999, "2000 samples without gaps: 1999 one-step pairs")
+        self.assertEqual(a["from"], "2026-01-02T00:00:00.000000Z")
+        self.assertEqual(a["to"], "2026-01-02T00:00:19.990000Z")
+        self.assertEqual(a["model"], self.model)
+        self.assertLess(a["error"], 0.05, a)
+        self.assertGreater(b["error"], 4 * a["error"], (a, b))
+        # The table: the same numbers, with the config's feed as well.
+        table = run("score", "-m", self.model, "--input", fresh, "--config", self.config).stdout
+        self.assertIn("scored 1999 one-step pairs from 2026-01-02T00:00:00.000000Z", table)
+        overall = [line for line in table.splitlines() if line.split()[:1] == ["overall"]]
+        self.assertEqual(len(overall), 1, table)
+        self.assertAlmostEqual(float(overall[0].split()[1]) / a["error"], 1.0, delta=1e-3)
+
+    def test_gaps_and_missing_channels_count_as_the_trainer_does(self):
+        path = self.simulate("gappy.csv", "--gap-rate", "0.2", "--missing-rate", "0.1", start="2026-01-03T00:00:00Z")
+        rows = {}
+        with open(path) as f:
+            for line in f:
+                fields = line.rstrip("\n").split(",")
+                rows[round(float(fields[1]) * 100)] = all(v != "" for v in fields[2:])
+        expected = sum(1 for t, complete in rows.items() if complete and t + 1 in rows)
+        doc = self.score_json(path)
+        self.assertEqual(doc["pairs"], expected)
+        self.assertTrue(all(c["error"] is not None and c["error"] < 0.2 for c in doc["channels"]), doc)
+        # A range: only pairs inside it.
+        part = self.score_json(path, "--from", "2026-01-03T00:00:05Z", "--to", "2026-01-03T00:00:10Z")
+        lo, hi = 1767398405 * 100, 1767398410 * 100
+        inside = sum(1 for t, complete in rows.items() if complete and t + 1 in rows and lo <= t and t + 1 <= hi)
+        self.assertEqual(part["pairs"], inside)
+        self.assertGreaterEqual(part["from"], "2026-01-03T00:00:05")
+        self.assertLessEqual(part["to"], "2026-01-03T00:00:10.000000Z")
+
+    def test_clear_errors(self):
+        fresh = self.simulate("errors.csv", start="2026-01-04T00:00:00Z")
+        out = run("score", "-m", self.model, "--input", fresh, "--from", "2026-02-01T00:00:00Z", check=False)
+        self.assertEqual(out.returncode, 2)
+        self.assertIn("no pairs", out.stderr)
+        other = os.path.join(self.dir, "other.yaml")
+        with open(other, "w") as f:
+            f.write(LORENZ.replace("z", "w").replace("lorenw", "lorenz"))  # channels [x, y, w]
+        out = run("score", "-m", self.model, "--input", fresh, "--config", other, check=False)
+        self.assertEqual(out.returncode, 2)
+        self.assertIn("[x, y, z]", out.stderr)
+        self.assertIn("[x, y, w]", out.stderr)
+        out = run("score", "-m", os.path.join(self.dir, "absent.model"), "--input", fresh, check=False)
+        self.assertEqual(out.returncode, 2)
+        self.assertIn("absent.model", out.stderr)
+        corrupt = os.path.join(self.dir, "corrupt.model")
+        with open(self.model, "rb") as f:
+            data = bytearray(f.read())
+        data[100] ^= 0xFF
+        with open(corrupt, "wb") as f:
+            f.write(data)
+        out = run("score", "-m", corrupt, "--input", fresh, check=False)
+        self.assertEqual(out.returncode, 2)
+        self.assertIn("checksum", out.stderr)
+        out = run("score", "-m", self.model, "--input", fresh, "--from", "yesterday", check=False)
+        self.assertEqual(out.returncode, 2)
+        self.assertIn("--from", out.stderr)
+        self.assertEqual(run("score", "-m", self.model, check=False).returncode, 2)
 
 
 class LyapunovCommandTest(unittest.TestCase):

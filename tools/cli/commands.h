@@ -12,5 +12,6 @@ void AddSimulateCommand(CLI::App& app, int* exit_code);
 void AddTrainCommand(CLI::App& app, int* exit_code);
 void AddForecastCommand(CLI::App& app, int* exit_code);
 void AddLyapunovCommand(CLI::App& app, int* exit_code);
+void AddScoreCommand(CLI::App& app, int* exit_code);
 
 }  // namespace lyapcast::cli

@@ -1,5 +1,5 @@
 // lyapcast: the command-line tool. Offline commands work on files (simulate,
-// train, forecast --model); commands that talk to a daemon come later.
+// train, forecast --model, lyapunov, score); commands that talk to a daemon come later.
 #include <CLI/CLI.hpp>
 
 #include "commands.h"
@@ -15,6 +15,7 @@ int main(int argc, char** argv) {
   lyapcast::cli::AddTrainCommand(app, &exit_code);
   lyapcast::cli::AddForecastCommand(app, &exit_code);
   lyapcast::cli::AddLyapunovCommand(app, &exit_code);
+  lyapcast::cli::AddScoreCommand(app, &exit_code);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
