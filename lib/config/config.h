@@ -115,8 +115,8 @@ struct RetrainConfig {
 
 struct MonitorConfig {
   double horizon_tol = 0.5;        // normalized error defining the predictability horizon
-  double change_threshold = 8.0;   // change-test alarm threshold
-  double change_drift = 0.05;      // change-test drift allowance
+  double change_threshold = 15.0;  // change-test alarm threshold, in in-control standard deviations
+  double change_drift = 0.5;       // change-test drift allowance per sample, same units
 };
 
 struct HealthConfig {

@@ -149,8 +149,8 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_EQ(f.retrain.time_budget, 60 * kMicrosPerSecond);
   EXPECT_DOUBLE_EQ(f.retrain.promote_tolerance, 0.05);
   EXPECT_DOUBLE_EQ(f.monitor.horizon_tol, 0.5);
-  EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 8.0);
-  EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.05);
+  EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 15.0);
+  EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.5);
   EXPECT_DOUBLE_EQ(f.health.drift_warn, 2.0);
   EXPECT_DOUBLE_EQ(f.health.drift_crit, 5.0);
   EXPECT_EQ(f.health.data_age_warn, 30 * kMicrosPerSecond);
