@@ -67,6 +67,7 @@ struct Scheduler::Feed {
   FeedSchedule s;
   std::optional<std::uint64_t> pending_job, running_job;
   DataTime running_until = 0;  // data end of the running job
+  bool activating = false;     // an operator's Activate holds jobs off
   bool dynamics_tried = false;
 };
 
@@ -101,6 +102,13 @@ Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
     if (Status s = (*registry_store)->RegisterFeeds(options_.layouts); !s.ok()) return s;
     t.reader = std::move(reader).value();
     t.registry = std::make_unique<ModelRegistry>(std::move(registry_store).value());
+  }
+
+  {
+    auto admin_store = WindowStore::Open(StoreOptions{options_.store_path, false, options_.busy_timeout_ms});
+    if (!admin_store.ok()) return admin_store.status();
+    if (Status s = (*admin_store)->RegisterFeeds(options_.layouts); !s.ok()) return s;
+    admin_registry_ = std::make_unique<ModelRegistry>(std::move(admin_store).value());
   }
 
   std::lock_guard lock(mu_);
@@ -151,7 +159,7 @@ void Scheduler::RunTrainer(Trainer& trainer) {
     const std::uint32_t feed = ready_.front();
     ready_.pop_front();
     Feed& f = *feeds_[feed];
-    if (!f.pending_job || f.running_job) continue;  // stale entry
+    if (!f.pending_job || f.running_job || f.activating) continue;  // stale, or re-queued when released
     const std::uint64_t id = *f.pending_job;
     f.pending_job.reset();
     f.running_job = id;
@@ -389,8 +397,8 @@ void Scheduler::QueueDueLocked() {
   if (stopping_ || !started_) return;
   for (std::uint32_t i = 0; i < feeds_.size(); ++i) {
     Feed& f = *feeds_[i];
-    if (f.s.next_due == 0 || f.s.newest < f.s.next_due) continue;
-    if (f.pending_job) continue;  // already queued (its data end is fixed at start or at queueing)
+    if (f.s.paused || f.s.next_due == 0 || f.s.newest < f.s.next_due) continue;
+    if (f.pending_job || f.activating) continue;  // already queued, or held by Activate
     if (f.running_job && f.running_until >= f.s.next_due) continue;  // the running job covers it
     if (f.running_job) {
       // Queue it now: the trainer picks it up when the running job ends.
@@ -426,7 +434,13 @@ std::uint64_t Scheduler::QueueLocked(std::uint32_t feed, TriggerKind kind, std::
   return job.id;
 }
 
-bool Scheduler::BusyLocked() const { return running_ > 0 || !ready_.empty(); }
+bool Scheduler::BusyLocked() const {
+  if (running_ > 0) return true;
+  for (std::uint32_t feed : ready_) {
+    if (!feeds_[feed]->activating) return true;
+  }
+  return false;
+}
 
 JobInfo* Scheduler::FindJobLocked(std::uint64_t id) {
   for (JobInfo& j : jobs_) {
@@ -460,6 +474,9 @@ Result<std::uint64_t> Scheduler::Trigger(std::uint32_t feed, TriggerKind kind, s
   if (feed >= feeds_.size()) return Status::NotFound(fmt::format("no feed with index {}", feed));
   std::lock_guard lock(mu_);
   if (stopping_ || !started_) return Status::Unavailable("the scheduler is not running");
+  if (feeds_[feed]->s.paused) {
+    return Status::Precondition(fmt::format("feed {} is paused; resume it first", feeds_[feed]->config->id));
+  }
   const std::uint64_t id = QueueLocked(feed, kind, std::move(reason));
   work_cv_.notify_all();
   return id;
@@ -481,6 +498,82 @@ std::optional<JobInfo> Scheduler::job(std::uint64_t id) const {
     if (j.id == id) return j;
   }
   return std::nullopt;
+}
+
+Status Scheduler::SetPaused(std::uint32_t feed, bool paused) {
+  if (feed >= feeds_.size()) return Status::NotFound(fmt::format("no feed with index {}", feed));
+  std::lock_guard lock(mu_);
+  Feed& f = *feeds_[feed];
+  if (f.s.paused == paused) return Status::Ok();
+  f.s.paused = paused;
+  Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: {}", f.config->id,
+                                            paused ? "paused: no retraining until resumed"
+                                                   : "resumed: retraining follows the cadence again"));
+  if (!paused) {
+    QueueDueLocked();
+    work_cv_.notify_all();
+  }
+  return Status::Ok();
+}
+
+bool Scheduler::paused(std::uint32_t feed) const {
+  std::lock_guard lock(mu_);
+  return feed < feeds_.size() && feeds_[feed]->s.paused;
+}
+
+Status Scheduler::Activate(std::uint32_t feed, std::int64_t version, const std::string& reason) {
+  if (feed >= feeds_.size()) return Status::NotFound(fmt::format("no feed with index {}", feed));
+  std::lock_guard admin(admin_mu_);
+  Feed& f = *feeds_[feed];
+  {
+    std::lock_guard lock(mu_);
+    if (!started_ || stopping_) return Status::Unavailable("the scheduler is not running");
+    if (f.running_job) {
+      return Status::Precondition(fmt::format("feed {}: job {} is running; activate when it is done",
+                                                    f.config->id, *f.running_job));
+    }
+    // Hold off new jobs of this feed while the choice is made durable.
+    f.activating = true;
+  }
+  const auto release = [this, &f, feed] {
+    std::lock_guard lock(mu_);
+    ReleaseActivatingLocked(f, feed);
+  };
+  auto record = admin_registry_->Get(feed, version);
+  if (!record.ok()) {
+    release();
+    return record.status();
+  }
+  if (Status s = admin_registry_->Activate(feed, version, reason); !s.ok()) {
+    release();
+    return s;
+  }
+  record->status = ModelStatus::kActive;
+  record->reason = reason;
+  auto published = MakeActive(std::move(record).value());
+  if (!published.ok()) {
+    release();
+    return published.status();
+  }
+  const auto previous = f.active.load();
+  f.active.store(*published);
+  {
+    std::lock_guard lock(mu_);
+    f.s.estimates.model = (*published)->record.lyapunov_max;
+    Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: version {} activated by an operator ({}), replacing {}",
+                                              f.config->id, version, reason,
+                                              previous ? Ver(previous->record.version) : "no model"));
+    ReleaseActivatingLocked(f, feed);
+  }
+  return Status::Ok();
+}
+
+void Scheduler::ReleaseActivatingLocked(Feed& f, std::uint32_t feed) {
+  f.activating = false;
+  if (f.pending_job) ready_.push_back(feed);
+  QueueDueLocked();
+  work_cv_.notify_all();
+  idle_cv_.notify_all();
 }
 
 void Scheduler::Stop() {

@@ -110,7 +110,7 @@ struct FeedSchedule {
   std::string next_reason;       // why then
   LyapunovEstimates estimates;   // per second of data time
   std::string dynamics_diagnostics, data_diagnostics;
-  bool running = false, pending = false;
+  bool running = false, pending = false, paused = false;
   std::optional<JobInfo> last_job;  // the newest finished job
   std::uint64_t promoted = 0, rejected = 0, not_enough_data = 0, failed = 0, coalesced = 0;
 };
@@ -135,8 +135,21 @@ class Scheduler {
 
   // Queues a job for `feed` now (coalesced with a pending or running one).
   // Returns the job's id (the pending job's when coalesced). kNotFound for an
-  // unknown feed; kUnavailable when stopping.
+  // unknown feed; kFailedPrecondition while paused; kUnavailable when
+  // stopping.
   [[nodiscard]] Result<std::uint64_t> Trigger(std::uint32_t feed, TriggerKind kind, std::string reason);
+
+  // Plant shutdown: while paused no job of the feed is queued (cadence,
+  // drift or operator); a running job finishes. Resuming re-checks the
+  // cadence at once. kNotFound for an unknown feed.
+  [[nodiscard]] Status SetPaused(std::uint32_t feed, bool paused);
+  bool paused(std::uint32_t feed) const;
+
+  // An operator's pin or rollback: makes stored `version` active (durable
+  // first), publishes it, and retraining continues from it. kNotFound for
+  // an unknown feed or version; kFailedPrecondition while a job of the feed
+  // runs (its outcome would race the choice; try again when it is done).
+  [[nodiscard]] Status Activate(std::uint32_t feed, std::int64_t version, const std::string& reason);
 
   // The published active model (null when the feed has none yet).
   std::shared_ptr<const ActiveModel> active(std::uint32_t feed) const;
@@ -158,6 +171,7 @@ class Scheduler {
   std::uint64_t QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason);
   void RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id);
   bool BusyLocked() const;  // some job queued or running
+  void ReleaseActivatingLocked(Feed& f, std::uint32_t feed);  // requires mu_
   JobInfo* FindJobLocked(std::uint64_t id);
   void ScheduleNextLocked(Feed& f, std::uint32_t feed, DataTime since, bool retry_soon);
 
@@ -175,6 +189,8 @@ class Scheduler {
   int running_ = 0;                  // guarded by mu_
   std::atomic<bool> cancel_{false};
   std::vector<std::jthread> trainers_;
+  std::mutex admin_mu_;                     // serializes Activate
+  std::unique_ptr<ModelRegistry> admin_registry_;  // Activate's own connection
 };
 
 }  // namespace lyapcast

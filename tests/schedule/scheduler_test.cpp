@@ -296,6 +296,56 @@ TEST(Scheduler, PrunesVersionsBeyondKeepModelsButNeverTheActiveOne) {
   EXPECT_EQ(versions[0].status, ModelStatus::kActive);
 }
 
+TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-scheduler-test");
+  Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
+  ASSERT_TRUE(rig.scheduler().SetPaused(0, true).ok());
+  EXPECT_TRUE(rig.scheduler().paused(0));
+  rig.Send(Lorenz(1200, 0), 100);  // well past the first due time
+  rig.Drain();
+  EXPECT_EQ(rig.scheduler().schedule(0).last_job, std::nullopt);
+  EXPECT_EQ(rig.scheduler().Trigger(0, TriggerKind::kOperator, "x").status().code(),
+            StatusCode::kFailedPrecondition);
+  ASSERT_TRUE(rig.scheduler().SetPaused(0, false).ok());
+  for (int i = 0; i < 4000 && !rig.scheduler().active(0); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(5));
+  ASSERT_NE(rig.scheduler().active(0), nullptr) << "resuming ran the due retrain";
+  EXPECT_TRUE(rig.Logged("paused: no retraining until resumed"));
+}
+
+TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  Rig rig(config, db, /*lockstep=*/true, 4096);
+  rig.Send(Lorenz(1200, 0), 100);
+  rig.Drain();
+  ASSERT_GE(rig.scheduler().active(0)->record.version, 2);
+  ASSERT_TRUE(rig.scheduler().Activate(0, 1, "roll back for a test").ok());
+  EXPECT_EQ(rig.scheduler().active(0)->record.version, 1);
+  EXPECT_EQ(rig.scheduler().active(0)->record.reason, "roll back for a test");
+  EXPECT_EQ(rig.scheduler().Activate(0, 99, "x").code(), StatusCode::kNotFound);
+  EXPECT_EQ(rig.scheduler().active(0)->record.version, 1) << "a failed activation changes nothing";
+
+  rig.Send(Lorenz(800, 12'000'000), 100);
+  rig.Drain();
+  const FeedSchedule s = rig.scheduler().schedule(0);
+  ASSERT_TRUE(s.last_job.has_value());
+  auto registry = OpenRegistry(db, config);
+  auto list = registry->List(0, 1000);
+  ASSERT_TRUE(list.ok());
+  // The first job after the rollback warm-started from version 1.
+  bool found = false;
+  for (auto it = list->rbegin(); it != list->rend(); ++it) {
+    if (it->trained_to > 12'000'000) {
+      EXPECT_EQ(it->parent, 1);
+      found = true;
+      break;
+    }
+  }
+  EXPECT_TRUE(found);
+}
+
 TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
   const Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
