@@ -409,7 +409,8 @@ void Scheduler::QueueDueLocked() {
   }
 }
 
-std::uint64_t Scheduler::QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason) {
+std::uint64_t Scheduler::QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason,
+                                     std::optional<DataTime> until) {
   Feed& f = *feeds_[feed];
   if (f.pending_job) {
     ++f.s.coalesced;
@@ -424,6 +425,7 @@ std::uint64_t Scheduler::QueueLocked(std::uint32_t feed, TriggerKind kind, std::
   job.trigger_reason = std::move(reason);
   // A cadence job in lockstep uses exactly the data before its due time.
   if (kind == TriggerKind::kCadence && options_.lockstep) job.until = f.s.next_due;
+  if (until) job.until = *until;
   jobs_.push_back(job);
   while (jobs_.size() > kJobsKept) jobs_.pop_front();
   f.pending_job = job.id;
@@ -449,35 +451,45 @@ JobInfo* Scheduler::FindJobLocked(std::uint64_t id) {
   return nullptr;
 }
 
-void Scheduler::OnCommitted(const CommittedBatch& batch) {
+void Scheduler::OnSample(std::uint32_t feed, DataTime t) {
+  if (feed >= feeds_.size()) return;
   std::unique_lock lock(mu_);
   if (stopping_) return;
-  for (const FeedSample& fs : batch.samples) {
-    if (fs.feed >= feeds_.size()) continue;
-    FeedSchedule& s = feeds_[fs.feed]->s;
-    s.newest = std::max(s.newest, fs.sample.t);
-    if (s.oldest == 0 || fs.sample.t < s.oldest) {
-      s.oldest = fs.sample.t;
-      if (!s.last_retrain && !feeds_[fs.feed]->active.load()) ScheduleNextLocked(*feeds_[fs.feed], fs.feed, 0, false);
-    }
+  Feed& f = *feeds_[feed];
+  f.s.newest = std::max(f.s.newest, t);
+  if (f.s.oldest == 0 || t < f.s.oldest) {
+    f.s.oldest = t;
+    if (!f.s.last_retrain && !f.active.load()) ScheduleNextLocked(f, feed, 0, false);
   }
+  if (f.s.next_due == 0 || t < f.s.next_due) return;  // the common case: nothing due
   QueueDueLocked();
   work_cv_.notify_all();
   if (options_.lockstep) {
-    // Ingest pauses here (the writer does not commit the next group) until
-    // every due retrain is done; a job's end may make the next one due.
+    // Ingest pauses here (the writer does not go on) until every due
+    // retrain is done; a job's end may make the next one due.
     idle_cv_.wait(lock, [this] { return stopping_ || !BusyLocked(); });
   }
 }
 
-Result<std::uint64_t> Scheduler::Trigger(std::uint32_t feed, TriggerKind kind, std::string reason) {
+void Scheduler::OnCommitted(const CommittedBatch& batch) {
+  for (const FeedSample& fs : batch.samples) OnSample(fs.feed, fs.sample.t);
+}
+
+void Scheduler::WaitIfLockstep() {
+  if (!options_.lockstep) return;
+  std::unique_lock lock(mu_);
+  idle_cv_.wait(lock, [this] { return stopping_ || !BusyLocked(); });
+}
+
+Result<std::uint64_t> Scheduler::Trigger(std::uint32_t feed, TriggerKind kind, std::string reason,
+                                         std::optional<DataTime> until) {
   if (feed >= feeds_.size()) return Status::NotFound(fmt::format("no feed with index {}", feed));
   std::lock_guard lock(mu_);
   if (stopping_ || !started_) return Status::Unavailable("the scheduler is not running");
   if (feeds_[feed]->s.paused) {
     return Status::Precondition(fmt::format("feed {} is paused; resume it first", feeds_[feed]->config->id));
   }
-  const std::uint64_t id = QueueLocked(feed, kind, std::move(reason));
+  const std::uint64_t id = QueueLocked(feed, kind, std::move(reason), until);
   work_cv_.notify_all();
   return id;
 }

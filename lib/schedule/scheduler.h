@@ -1,9 +1,9 @@
 // Scheduler: each feed's retraining cadence and the trainer pool that runs
 // the jobs (DESIGN.md "Threads" and "Time").
 //
-// Cadence, in data time only: the writer hands every committed batch to
-// OnCommitted(); once a feed's newest sample reaches its due time a job is
-// queued. The first job is due once the window spans retrain.min_pairs steps
+// Cadence, in data time only: every newly committed sample reaches
+// OnSample() (or a whole batch OnCommitted()); once a feed's newest sample
+// reaches its due time a job is queued. The first job is due once the window spans retrain.min_pairs steps
 // (and is retried every min_interval while it holds too few pairs); after a
 // job that used data up to U the next is due at NextRetrain(U) (cadence.h),
 // never sooner than one sample step later. Drift (stage 4's monitor) and an
@@ -18,9 +18,10 @@
 // immutable object behind an atomic shared pointer, so readers never wait.
 // A failed, diverged or worse candidate leaves the active version in place.
 //
-// Lockstep (`lockstep`): OnCommitted() does not return while a job is due
-// or running, so the writer, and through backpressure the ingest sessions,
-// pause until the retraining is done. A cadence job then uses exactly the
+// Lockstep (`lockstep`): OnSample() does not return while a job is due or
+// running, so the writer, and through backpressure the ingest sessions,
+// pause until the retraining is done, and later samples (and whatever the
+// caller does with them, e.g. drift scoring) see the new model. A cadence job then uses exactly the
 // samples before its due time and no wall-time budget, so a replay at any
 // speed gives the same retrain points and the same model bytes. (The writer
 // calls subscribers before its next prune, so no sample a job needs is
@@ -30,7 +31,7 @@
 // Start-up: Start() loads each feed's active version and publishes it, and
 // resumes the cadence from the newest stored version's training end.
 //
-// Threads: OnCommitted runs on the writer thread. Trigger, active, schedule,
+// Threads: OnSample/OnCommitted run on the writer thread. Trigger, active, schedule,
 // job and Stop may be called from any thread. Every decision is reported
 // through `log` (from the calling or a trainer thread) with its reason.
 #pragma once
@@ -129,15 +130,26 @@ class Scheduler {
   // a stored model cannot be read.
   [[nodiscard]] Status Start(const std::vector<FeedExtent>& extents);
 
-  // The writer's subscriber. Returns at once in live mode; in lockstep only
-  // when no job is due or running (or Stop() began).
+  // A newly committed sample of `feed` at data time `t`. Returns at once in
+  // live mode; in lockstep only when no job is due or running (or Stop()
+  // began).
+  void OnSample(std::uint32_t feed, DataTime t);
+  // OnSample for each sample of a committed batch (the writer's subscriber).
   void OnCommitted(const CommittedBatch& batch);
+  // In lockstep, waits until no job is queued or running (or Stop() began);
+  // returns at once in live mode. Call after a Trigger that must take
+  // effect before the next sample (a drift alarm in a replay).
+  void WaitIfLockstep();
 
   // Queues a job for `feed` now (coalesced with a pending or running one).
+  // `until`: the data the job may use ends there (e.g. just after the sample
+  // that raised a drift alarm, so a lockstep replay is reproducible);
+  // nullopt: everything committed when it starts.
   // Returns the job's id (the pending job's when coalesced). kNotFound for an
   // unknown feed; kFailedPrecondition while paused; kUnavailable when
   // stopping.
-  [[nodiscard]] Result<std::uint64_t> Trigger(std::uint32_t feed, TriggerKind kind, std::string reason);
+  [[nodiscard]] Result<std::uint64_t> Trigger(std::uint32_t feed, TriggerKind kind, std::string reason,
+                                              std::optional<DataTime> until = std::nullopt);
 
   // Plant shutdown: while paused no job of the feed is queued (cadence,
   // drift or operator); a running job finishes. Resuming re-checks the
@@ -168,7 +180,8 @@ class Scheduler {
   // Requires mu_. Queues a cadence job for every feed whose due time passed.
   void QueueDueLocked();
   // Requires mu_. Queues (or coalesces into) a job of `feed`.
-  std::uint64_t QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason);
+  std::uint64_t QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason,
+                            std::optional<DataTime> until = std::nullopt);
   void RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id);
   bool BusyLocked() const;  // some job queued or running
   void ReleaseActivatingLocked(Feed& f, std::uint32_t feed);  // requires mu_

@@ -225,7 +225,9 @@ bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
   CommittedBatch batch;
   if (!candidates.empty()) {
     std::vector<InsertOutcome> inserted;
+    const auto started = Clock::now();
     const Status status = store_->InsertBatch(candidates, &inserted);
+    const double seconds = std::chrono::duration<double>(Clock::now() - started).count();
     if (!status.ok()) {
       committed = false;
       // The whole group shares the failed transaction's fate: nothing of it
@@ -270,6 +272,7 @@ bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
       extents_ = std::move(extents);
       stats_.samples_committed += batch.samples.size();
       ++stats_.transactions;
+      stats_.commit_latency.Record(seconds);
     }
   }
 
@@ -282,6 +285,14 @@ bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
     for (const auto& subscriber : subscribers_) subscriber(batch);
   }
   return committed;
+}
+
+void CommitLatency::Record(double seconds) {
+  for (std::size_t i = 0; i < kBuckets; ++i) {
+    if (seconds <= kBounds[i]) ++le[i];
+  }
+  ++count;
+  sum_seconds += seconds;
 }
 
 bool SampleWriter::PruneSome() {

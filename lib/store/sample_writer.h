@@ -30,6 +30,7 @@
 #include <cstdint>
 #include <deque>
 #include <functional>
+#include <iterator>
 #include <memory>
 #include <mutex>
 #include <optional>
@@ -66,11 +67,23 @@ struct CommittedBatch {
   std::vector<FeedSample> samples;
 };
 
+// Wall time of each successful commit (the InsertBatch transaction with its
+// fsync), as a cumulative histogram for the metrics endpoint.
+struct CommitLatency {
+  static constexpr double kBounds[] = {0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5};
+  static constexpr std::size_t kBuckets = std::size(kBounds);
+  std::uint64_t le[kBuckets] = {};  // commits that took <= kBounds[i] seconds
+  std::uint64_t count = 0;
+  double sum_seconds = 0;
+  void Record(double seconds);
+};
+
 struct WriterStats {
   std::uint64_t samples_committed = 0;  // inserted rows
   std::uint64_t transactions = 0;       // successful commits
   std::uint64_t failed_commits = 0;
   std::uint64_t rows_pruned = 0;
+  CommitLatency commit_latency;
 };
 
 class SampleWriter {
