@@ -1,7 +1,12 @@
 #include "api.h"
 
-#include <nlohmann/json.hpp>
+#include <fmt/format.h>
 
+#include <string_view>
+#include <vector>
+
+#include "api_common.h"
+#include "api_routes.h"
 #include "core/secret.h"
 #include "core/wall_clock.h"
 #include "ingest_server.h"
@@ -11,21 +16,24 @@
 namespace lyapcast {
 namespace {
 
-using nlohmann::json;
+using api::Error;
+using api::json;
+using api::TimeJson;
 
-HttpResponse Json(int status, const json& body) {
-  HttpResponse r;
-  r.status = status;
-  r.body = body.dump();
-  r.body += '\n';
-  return r;
+std::vector<std::string_view> Segments(std::string_view path) {
+  std::vector<std::string_view> out;
+  while (!path.empty()) {
+    if (path.front() == '/') {
+      path.remove_prefix(1);
+      continue;
+    }
+    const auto slash = path.find('/');
+    out.push_back(path.substr(0, slash));
+    if (slash == std::string_view::npos) break;
+    path.remove_prefix(slash);
+  }
+  return out;
 }
-
-HttpResponse Error(int status, std::string_view code, std::string message) {
-  return Json(status, json{{"error", {{"code", code}, {"message", std::move(message)}}}});
-}
-
-json TimeJson(DataTime t) { return json{{"epoch_s", ToEpochSeconds(t)}, {"rfc3339", FormatRfc3339(t)}}; }
 
 class Api {
  public:
@@ -34,7 +42,11 @@ class Api {
   HttpResponse operator()(const HttpRequest& req) const {
     if (req.path == "/v1/health/live") return Only(req, "GET", [&] { return Live(); });
     if (auto denied = CheckAccess(req)) return *denied;
+    if (req.path == "/v1/health") return Only(req, "GET", [&] { return api::Health(c_); });
+    if (req.path == "/metrics") return Only(req, "GET", [&] { return api::Metrics(c_); });
     if (req.path == "/v1/feeds") return Only(req, "GET", [&] { return Feeds(); });
+    const auto seg = Segments(req.path);
+    if (seg.size() >= 3 && seg[0] == "v1" && seg[1] == "feeds") return FeedRoute(req, seg);
     return Error(404, "not-found", "no such endpoint: " + req.path + " (see the README's HTTP API section)");
   }
 
@@ -49,8 +61,34 @@ class Api {
     return f();
   }
 
+  // /v1/feeds/{id}/...
+  HttpResponse FeedRoute(const HttpRequest& req, const std::vector<std::string_view>& seg) const {
+    const int feed = c_.config->FeedIndex(std::string(seg[2]));
+    if (feed < 0) {
+      return Error(404, "not-found", fmt::format("no feed '{}' (GET /v1/feeds lists them)", seg[2]));
+    }
+    const auto f = static_cast<std::uint32_t>(feed);
+    const std::size_t n = seg.size();
+    if (n == 4 && seg[3] == "forecast") return Only(req, "GET", [&] { return api::Forecast(c_, f, req); });
+    if (n == 4 && seg[3] == "status") return Only(req, "GET", [&] { return api::Status(c_, f); });
+    if (n == 4 && seg[3] == "models") return Only(req, "GET", [&] { return api::Models(c_, f, req); });
+    if (n == 4 && seg[3] == "samples") return Only(req, "GET", [&] { return api::Samples(c_, f, req); });
+    if (n == 4 && seg[3] == "retrain") return Only(req, "POST", [&] { return api::Retrain(c_, f); });
+    if (n == 4 && seg[3] == "pause") return Only(req, "POST", [&] { return api::Pause(c_, f, true); });
+    if (n == 4 && seg[3] == "resume") return Only(req, "POST", [&] { return api::Pause(c_, f, false); });
+    if (n == 5 && seg[3] == "jobs") return Only(req, "GET", [&] { return api::Job(c_, f, std::string(seg[4])); });
+    if (n == 6 && seg[3] == "models" && seg[5] == "file") {
+      return Only(req, "GET", [&] { return api::ModelFile(c_, f, std::string(seg[4])); });
+    }
+    if (n == 6 && seg[3] == "models" && seg[5] == "activate") {
+      return Only(req, "POST", [&] { return api::Activate(c_, f, std::string(seg[4])); });
+    }
+    return Error(404, "not-found", "no such endpoint: " + req.path + " (see the README's HTTP API section)");
+  }
+
   // GET needs the read (or admin) token when one is configured; anything
-  // else needs the admin token when one is configured.
+  // else needs the admin token as soon as any token is configured (a read
+  // token alone makes the daemon read-only over HTTP).
   std::optional<HttpResponse> CheckAccess(const HttpRequest& req) const {
     const bool read_only = req.method == "GET" || req.method == "HEAD";
     if (!c_.read_token && !c_.admin_token) return std::nullopt;
@@ -73,10 +111,10 @@ class Api {
 
   HttpResponse Live() const {
     const DataTime now = WallNowMicros();
-    return Json(200, json{{"status", "live"},
-                          {"version", c_.version},
-                          {"uptime_s", static_cast<double>(now - c_.started_wall) / 1e6},
-                          {"storage_available", c_.writer->storage_available()}});
+    return api::Json(200, json{{"status", "live"},
+                               {"version", c_.version},
+                               {"uptime_s", static_cast<double>(now - c_.started_wall) / 1e6},
+                               {"storage_available", c_.writer->storage_available()}});
   }
 
   HttpResponse Feeds() const {
@@ -107,10 +145,10 @@ class Api {
                         {"lines", k.lines.load()},
                         {"accepted", k.accepted.load()}};
     }
-    return Json(200, body);
+    return api::Json(200, body);
   }
 
-  // The active model and the cadence (the full status comes with stage 4).
+  // The active model and the cadence, in brief (the status route has all).
   void AddRetraining(std::uint32_t feed, json* entry) const {
     const auto model = c_.scheduler->active(feed);
     json m = nullptr;
@@ -118,8 +156,8 @@ class Api {
       const ModelRecord& r = model->record;
       m = {{"version", r.version},
            {"trained_to", TimeJson(r.trained_to)},
-           {"validation_error", r.validation_error ? json(*r.validation_error) : json(nullptr)},
-           {"lyapunov_per_s", r.lyapunov_max ? json(*r.lyapunov_max) : json(nullptr)}};
+           {"validation_error", api::OptionalNumber(r.validation_error)},
+           {"lyapunov_per_s", api::OptionalNumber(r.lyapunov_max)}};
     }
     (*entry)["model"] = std::move(m);
     const FeedSchedule s = c_.scheduler->schedule(feed);
@@ -127,6 +165,7 @@ class Api {
                        {"next_reason", s.next_reason},
                        {"last_retrain", s.last_retrain ? TimeJson(*s.last_retrain) : json(nullptr)},
                        {"running", s.running},
+                       {"paused", s.paused},
                        {"promoted", s.promoted},
                        {"rejected", s.rejected},
                        {"failed", s.failed},

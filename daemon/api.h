@@ -1,10 +1,14 @@
-// The HTTP API routes (DESIGN.md "HTTP"), written against plain request and
-// response values. Stage 1 serves GET /v1/health/live and GET /v1/feeds;
-// later stages add routes here.
+// The HTTP API routes (README "HTTP API"), written against plain request
+// and response values; Beast stays in http_server.cpp.
 //
 // Access: when a read token is configured, GET needs `Authorization: Bearer
-// <read or admin token>` (RFC 6750); POST always needs the admin token when
-// one is configured. Tokens are compared in constant time and never logged.
+// <read or admin token>` (RFC 6750); POST needs the admin token when one is
+// configured. Tokens are compared in constant time and never logged.
+// `GET /v1/health/live` is always open.
+//
+// Threads: the handler runs on io threads; it reads published state
+// (atomic model pointers, snapshots under short locks) and short SQLite
+// reads through ApiStore; it never waits for training.
 #pragma once
 
 #include <optional>
@@ -18,12 +22,16 @@ namespace lyapcast {
 class SampleWriter;
 class IngestServer;
 class Scheduler;
+class FeedMonitors;
+class ApiStore;
 
 struct ApiContext {
-  const Config* config = nullptr;         // must outlive the handler
-  const SampleWriter* writer = nullptr;   // must outlive the handler
+  const Config* config = nullptr;         // required; all pointers must outlive the handler
+  const SampleWriter* writer = nullptr;   // required
   const IngestServer* ingest = nullptr;   // may be null in tests
-  const Scheduler* scheduler = nullptr;   // may be null in tests
+  Scheduler* scheduler = nullptr;         // required for the feed routes
+  FeedMonitors* monitors = nullptr;       // required for the feed routes
+  ApiStore* store = nullptr;              // required for models and samples
   std::optional<std::string> read_token;
   std::optional<std::string> admin_token;
   DataTime started_wall = 0;              // wall time at start, µs

@@ -12,6 +12,8 @@
 #include <vector>
 
 #include "api.h"
+#include "api_store.h"
+#include "feed_monitors.h"
 #include "config/config.h"
 #include "core/secret.h"
 #include "core/wall_clock.h"
@@ -150,7 +152,10 @@ int RunDaemon(const DaemonOptions& options) {
   wopts.retention = config.storage.retention;
   SampleWriter writer(std::move(store).value(), static_cast<int>(config.feeds.size()), wopts);
   Scheduler scheduler(config, SchedulerOptionsFor(config));
-  writer.Subscribe([&scheduler](const CommittedBatch& batch) { scheduler.OnCommitted(batch); });
+  FeedMonitors monitors(config, scheduler);
+  // Per sample: the scheduler first (in lockstep a due retrain runs before
+  // the sample is scored), then the drift monitor.
+  writer.Subscribe([&monitors](const CommittedBatch& batch) { monitors.OnCommitted(batch); });
   if (Status s = writer.Start(); !s.ok()) {
     spdlog::error("cannot start the store writer: {}", s.message());
     return kExitFailure;
@@ -173,6 +178,13 @@ int RunDaemon(const DaemonOptions& options) {
       return kExitFailure;
     }
   }
+  auto api_store = ApiStore::Open(config.storage.path, Layouts(config));
+  if (!api_store.ok()) {
+    spdlog::error("cannot open the store for the API: {}", api_store.status().message());
+    scheduler.Stop();
+    writer.Stop();
+    return kExitFailure;
+  }
   spdlog::info("retraining: {} trainer thread(s){}", std::max(config.training.threads, 1),
                config.training.lockstep ? ", lockstep (ingest waits for each due retrain)" : "");
 
@@ -189,7 +201,8 @@ int RunDaemon(const DaemonOptions& options) {
 
   HttpServerOptions hopts;
   hopts.endpoint = config.listen.http;
-  ApiContext api{&config, &writer, &ingest, &scheduler, read_token, admin_token, WallNowMicros(), kVersion};
+  ApiContext api{&config,    &writer,     &ingest,     &scheduler,      &monitors,
+                 api_store->get(), read_token, admin_token, WallNowMicros(), kVersion};
   HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
 
   if (Status s = ingest.Listen(); !s.ok()) {

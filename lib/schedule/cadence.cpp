@@ -18,6 +18,15 @@ const char* LyapunovSourceName(LyapunovSource s) {
 
 std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& e, bool has_model) {
   const auto usable = [](const std::optional<double>& v) { return v.has_value() && std::isfinite(*v); };
+  const auto positive = [&](const std::optional<double>& v) { return usable(v) && *v > 0; };
+  // A freshly warm-started model can be briefly non-chaotic (its free run
+  // settles on a cycle or a point) while the process is not; pacing by it
+  // would stretch the cadence to max_interval exactly when the process has
+  // just changed. So a positive estimate wins over a non-positive one, in
+  // the order model, dynamics, data.
+  if (has_model && positive(e.model)) return ChosenExponent{*e.model, LyapunovSource::kModel};
+  if (positive(e.dynamics)) return ChosenExponent{*e.dynamics, LyapunovSource::kDynamics};
+  if (positive(e.data)) return ChosenExponent{*e.data, LyapunovSource::kData};
   if (has_model && usable(e.model)) return ChosenExponent{*e.model, LyapunovSource::kModel};
   if (usable(e.dynamics)) return ChosenExponent{*e.dynamics, LyapunovSource::kDynamics};
   if (usable(e.data)) return ChosenExponent{*e.data, LyapunovSource::kData};

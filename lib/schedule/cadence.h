@@ -34,7 +34,9 @@ struct ChosenExponent {
 };
 
 // The estimate to pace by: the model's when `has_model` and it is known,
-// otherwise the dynamics', otherwise the data's; nullopt when none is known.
+// otherwise the dynamics', otherwise the data's; but a positive estimate
+// wins over a non-positive one (a fresh model can be briefly non-chaotic
+// while the process is not); nullopt when none is known.
 std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& estimates, bool has_model);
 
 struct CadenceDecision {

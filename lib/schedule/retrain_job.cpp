@@ -236,10 +236,10 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
   record.lyapunov_max = out.lyapunov_per_s;
   record.details = fmt::format(
       R"({{"iterations":{},"seconds":{:.3f},"stop":"{}","train_pairs":{},"validation_pairs":{},)"
-      R"("validation_per_channel":{},"active_error":{},"refit":"{}"}})",
+      R"("validation_per_channel":{},"active_error":{},"refit":"{}","trigger":"{}"}})",
       out.fit.iterations, out.fit.seconds, FitStopName(out.fit.stop), set.train.size(), set.validation.size(),
       JoinErrors(out.fit.validation_rmse),
-      std::isfinite(out.active_error) ? fmt::format("{:.6g}", out.active_error) : "null", refit_note);
+      std::isfinite(out.active_error) ? fmt::format("{:.6g}", out.active_error) : "null", refit_note, in.trigger);
   record.file = std::move(bytes).value();
   auto version = registry.Insert(record);
   if (!version.ok()) return version.status();

@@ -46,6 +46,7 @@ struct RetrainInput {
   std::uint64_t seed = 1;
   bool lockstep = false;                // ignore retrain.time_budget
   const std::atomic<bool>* cancel = nullptr;
+  std::string trigger = "cadence";      // recorded in the version's details
 };
 
 enum class RetrainVerdict { kPromoted, kRejected, kNotEnoughData, kCancelled };

@@ -189,6 +189,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   DataTime until = 0;
   bool estimate_dynamics = false;
   std::string trigger;
+  const char* trigger_kind = "cadence";
   {
     std::lock_guard lock(mu_);
     JobInfo* j = FindJobLocked(job_id);
@@ -198,6 +199,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
       if (active) j->parent = active->record.version;
       until = j->until;
       trigger = fmt::format("{}: {}", TriggerKindName(j->trigger), j->trigger_reason);
+      trigger_kind = TriggerKindName(j->trigger);
     } else {
       until = f.s.newest + 1;
       trigger = "unknown";
@@ -250,6 +252,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   in.seed = JobSeed(options_.seed, fc.id, until);
   in.lockstep = options_.lockstep;
   in.cancel = &cancel_;
+  in.trigger = trigger_kind;
   double last_info = 0;
   int last_tenth = 0;
   const auto progress = [&](const FitProgress& p) {
@@ -349,6 +352,8 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   if (JobInfo* j = FindJobLocked(job_id); j != nullptr) *j = done;
   f.s.last_job = done;
   f.s.last_retrain = until;
+  ++f.s.jobs_finished;
+  f.s.job_seconds_total += seconds;
   if (retry_soon && f.active.load()) {
     // A failure with a model: try again after min_interval, not a whole cadence.
     const Micros interval = std::max(fc.retrain.min_interval, fc.step);

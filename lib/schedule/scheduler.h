@@ -114,6 +114,8 @@ struct FeedSchedule {
   bool running = false, pending = false, paused = false;
   std::optional<JobInfo> last_job;  // the newest finished job
   std::uint64_t promoted = 0, rejected = 0, not_enough_data = 0, failed = 0, coalesced = 0;
+  std::uint64_t jobs_finished = 0;  // every job that ended (any outcome but cancelled)
+  double job_seconds_total = 0;     // their wall time
 };
 
 class Scheduler {

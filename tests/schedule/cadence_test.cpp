@@ -30,6 +30,16 @@ TEST(ChooseExponent, ModelFirstOnceOneExistsThenDynamicsThenData) {
   EXPECT_EQ(ChooseExponent(nan_model, true)->source, LyapunovSource::kDynamics) << "NaN is no estimate";
 }
 
+TEST(ChooseExponent, APositiveEstimateWinsOverANonPositiveModel) {
+  const LyapunovEstimates settled{-0.3, 0.9, 1.0};  // a fresh model whose free run settled on a cycle
+  EXPECT_EQ(ChooseExponent(settled, true)->source, LyapunovSource::kDynamics);
+  const LyapunovEstimates data_only{-0.3, std::nullopt, 1.0};
+  EXPECT_EQ(ChooseExponent(data_only, true)->source, LyapunovSource::kData);
+  const LyapunovEstimates none_positive{-0.3, -0.1, 0.0};
+  EXPECT_EQ(ChooseExponent(none_positive, true)->source, LyapunovSource::kModel) << "then max_interval";
+  EXPECT_EQ(ChooseExponent(none_positive, true)->lambda_max, -0.3);
+}
+
 TEST(NextRetrain, FractionOfTheLyapunovTime) {
   // lambda = 0.01/s -> T = 100 s; half of it is 50 s, inside [30 s, 1 h].
   const CadenceDecision d = NextRetrain(Config(), {0.01, {}, {}}, true, 1'000'000);

@@ -1,0 +1,157 @@
+#include "api_feed_view.h"
+
+#include <cmath>
+
+#include "feed_monitors.h"
+#include "store/sample_writer.h"
+
+namespace lyapcast::api {
+
+FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now) {
+  FeedView v;
+  v.index = feed;
+  v.config = &c.config->feeds[feed];
+  v.extent = c.writer->extent(feed);
+  v.schedule = c.scheduler->schedule(feed);
+  v.drift = c.monitors->Snapshot(feed, wall_now);
+  v.model = c.scheduler->active(feed);
+  v.exponent = ChooseExponent(v.schedule.estimates, v.model != nullptr);
+  if (v.exponent && v.exponent->lambda_max > 0 && v.drift.since_training_s) {
+    v.since_training_lyapunov_times = *v.drift.since_training_s * v.exponent->lambda_max;
+  }
+  HealthInputs in;
+  in.has_data = v.extent.count > 0;
+  in.has_model = v.model != nullptr;
+  in.paused = v.schedule.paused;
+  in.storage_available = c.writer->storage_available();
+  in.data_age_s = v.drift.data_age_s;
+  in.drift_ratio = v.drift.drift_ratio;
+  in.drift_flag = v.drift.drift_flag;
+  in.since_training_lyapunov_times = v.since_training_lyapunov_times;
+  v.health = EvaluateHealth(v.config->health, in);
+  return v;
+}
+
+json ModelJson(const ModelRecord& r) {
+  json details = json::parse(r.details, nullptr, /*allow_exceptions=*/false);
+  if (details.is_discarded()) details = r.details;
+  return {{"version", r.version},
+          {"status", ModelStatusName(r.status)},
+          {"reason", r.reason},
+          {"parent", r.parent ? json(*r.parent) : json(nullptr)},
+          {"created_at", r.created_at},
+          {"trained_from", TimeJson(r.trained_from)},
+          {"trained_to", TimeJson(r.trained_to)},
+          {"validation_error", OptionalNumber(r.validation_error)},
+          {"lyapunov_per_s", OptionalNumber(r.lyapunov_max)},
+          {"details", std::move(details)}};
+}
+
+json JobJson(const Config& config, const JobInfo& j) {
+  return {{"id", j.id},
+          {"feed", config.feeds[j.feed].id},
+          {"trigger", TriggerKindName(j.trigger)},
+          {"trigger_reason", j.trigger_reason},
+          {"state", JobStateName(j.state)},
+          {"until", j.until ? TimeJson(j.until) : json(nullptr)},
+          {"parent", j.parent ? json(*j.parent) : json(nullptr)},
+          {"verdict", j.verdict ? json(RetrainVerdictName(*j.verdict)) : json(nullptr)},
+          {"version", j.version ? json(*j.version) : json(nullptr)},
+          {"outcome", j.outcome},
+          {"iterations", j.iterations},
+          {"seconds", j.seconds}};
+}
+
+json StalenessJson(const FeedView& v) {
+  return {{"data_age_s", OptionalNumber(v.drift.data_age_s)},
+          {"model_age_s", OptionalNumber(v.drift.model_age_s)},
+          {"since_training_s", OptionalNumber(v.drift.since_training_s)},
+          {"since_training_lyapunov_times", OptionalNumber(v.since_training_lyapunov_times)}};
+}
+
+json ThresholdsJson(const HealthConfig& h) {
+  return {{"drift_warn", h.drift_warn},
+          {"drift_crit", h.drift_crit},
+          {"data_age_warn_s", static_cast<double>(h.data_age_warn) / 1e6},
+          {"data_age_crit_s", static_cast<double>(h.data_age_crit) / 1e6},
+          {"model_age_warn_lyapunov", h.model_age_warn_lyapunov},
+          {"model_age_crit_lyapunov", h.model_age_crit_lyapunov}};
+}
+
+namespace {
+
+json ExponentJson(const std::optional<double>& per_s, const std::string& diagnostics) {
+  if (!per_s || !std::isfinite(*per_s)) return nullptr;
+  json j = {{"per_s", *per_s}};
+  if (!diagnostics.empty()) j["diagnostics"] = diagnostics;
+  return j;
+}
+
+}  // namespace
+
+json StatusJson(const ApiContext& c, const FeedView& v) {
+  (void)c;
+  const FeedSchedule& s = v.schedule;
+  const DriftSnapshot& d = v.drift;
+  json window = {{"samples", v.extent.count},
+                 {"oldest", v.extent.count ? TimeJson(v.extent.oldest) : json(nullptr)},
+                 {"newest", v.extent.count ? TimeJson(v.extent.newest) : json(nullptr)}};
+  json model = nullptr;
+  if (v.model) {
+    const ModelRecord& r = v.model->record;
+    model = {{"version", r.version},
+             {"trained_from", TimeJson(r.trained_from)},
+             {"trained_to", TimeJson(r.trained_to)},
+             {"validation_error", OptionalNumber(r.validation_error)},
+             {"lyapunov_per_s", OptionalNumber(r.lyapunov_max)},
+             {"created_at", r.created_at},
+             {"reason", r.reason}};
+  }
+  json drift = {{"ratio", OptionalNumber(d.drift_ratio)},
+                {"rmse_window", OptionalNumber(d.rmse_window)},
+                {"rmse_ewma", OptionalNumber(d.rmse_ewma)},
+                {"validation_error", OptionalNumber(d.validation_error)},
+                {"scored", d.scored},
+                {"last_error", OptionalNumber(d.last_error)},
+                {"change_statistic", d.change_statistic},
+                {"warming_up", d.warming_up},
+                {"flag", d.drift_flag},
+                {"flagged_at", d.flagged_at ? TimeJson(*d.flagged_at) : json(nullptr)},
+                {"alarms", d.alarms}};
+  json chosen = nullptr;
+  if (v.exponent) {
+    chosen = {{"per_s", v.exponent->lambda_max},
+              {"source", LyapunovSourceName(v.exponent->source)},
+              {"lyapunov_time_s", v.exponent->lambda_max > 0 ? json(1.0 / v.exponent->lambda_max) : json(nullptr)}};
+  }
+  json lyapunov = {{"model", ExponentJson(s.estimates.model, "")},
+                   {"dynamics", ExponentJson(s.estimates.dynamics, s.dynamics_diagnostics)},
+                   {"data", ExponentJson(s.estimates.data, s.data_diagnostics)},
+                   {"chosen", std::move(chosen)}};
+  json cadence = {{"last_retrain", s.last_retrain ? TimeJson(*s.last_retrain) : json(nullptr)},
+                  {"next_due", s.next_due ? TimeJson(s.next_due) : json(nullptr)},
+                  {"reason", s.next_reason},
+                  {"running", s.running},
+                  {"pending", s.pending}};
+  return {{"feed", v.config->id},
+          {"paused", s.paused},
+          {"health",
+           {{"verdict", VerdictName(v.health.verdict)},
+            {"reasons", v.health.reasons},
+            {"thresholds", ThresholdsJson(v.config->health)}}},
+          {"window", std::move(window)},
+          {"model", std::move(model)},
+          {"drift", std::move(drift)},
+          {"staleness", StalenessJson(v)},
+          {"lyapunov", std::move(lyapunov)},
+          {"cadence", std::move(cadence)},
+          {"last_job", s.last_job ? JobJson(*c.config, *s.last_job) : json(nullptr)},
+          {"jobs",
+           {{"promoted", s.promoted},
+            {"rejected", s.rejected},
+            {"not_enough_data", s.not_enough_data},
+            {"failed", s.failed},
+            {"coalesced", s.coalesced}}}};
+}
+
+}  // namespace lyapcast::api

@@ -1,0 +1,38 @@
+// One consistent look at a feed for the routes: its window, schedule, drift
+// figures, active model, chosen Lyapunov exponent and health verdict, and
+// their JSON forms (README "HTTP API").
+#pragma once
+
+#include <memory>
+#include <optional>
+
+#include "api.h"
+#include "api_common.h"
+#include "monitor/drift_monitor.h"
+#include "monitor/health.h"
+#include "schedule/scheduler.h"
+#include "store/window_store.h"
+
+namespace lyapcast::api {
+
+struct FeedView {
+  std::uint32_t index = 0;
+  const FeedConfig* config = nullptr;
+  FeedExtent extent;
+  FeedSchedule schedule;
+  DriftSnapshot drift;
+  std::shared_ptr<const ActiveModel> model;
+  std::optional<ChosenExponent> exponent;  // the one the cadence paces by
+  std::optional<double> since_training_lyapunov_times;
+  HealthResult health;
+};
+
+FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now);
+
+json ModelJson(const ModelRecord& r);    // without the file
+json JobJson(const Config& config, const JobInfo& j);
+json StalenessJson(const FeedView& v);
+json StatusJson(const ApiContext& c, const FeedView& v);
+json ThresholdsJson(const HealthConfig& h);
+
+}  // namespace lyapcast::api

@@ -1,0 +1,96 @@
+// Model history, model files, activation, retrain triggers, jobs, pause and
+// resume (README "HTTP API").
+#include <fmt/format.h>
+
+#include <charconv>
+
+#include "api_feed_view.h"
+#include "api_routes.h"
+#include "api_store.h"
+#include "core/wall_clock.h"
+#include "feed_monitors.h"
+
+namespace lyapcast::api {
+namespace {
+
+std::optional<std::int64_t> ParsePositive(const std::string& text) {
+  std::int64_t v = 0;
+  const char* end = text.data() + text.size();
+  const auto [ptr, ec] = std::from_chars(text.data(), end, v);
+  if (ec != std::errc() || ptr != end || v < 1) return std::nullopt;
+  return v;
+}
+
+}  // namespace
+
+HttpResponse Status(const ApiContext& c, std::uint32_t feed) {
+  return Json(200, StatusJson(c, ViewFeed(c, feed, WallNowMicros())));
+}
+
+HttpResponse Models(const ApiContext& c, std::uint32_t feed, const HttpRequest& req) {
+  auto limit = IntParam(req, "limit", 1, 1000);
+  if (!limit.ok()) return FromStatus(limit.status());
+  auto list = c.store->ListModels(feed, static_cast<int>(limit->value_or(50)));
+  if (!list.ok()) return FromStatus(list.status());
+  json models = json::array();
+  for (const ModelRecord& r : *list) models.push_back(ModelJson(r));
+  return Json(200, json{{"feed", c.config->feeds[feed].id}, {"models", std::move(models)}});
+}
+
+HttpResponse ModelFile(const ApiContext& c, std::uint32_t feed, const std::string& version) {
+  const auto v = ParsePositive(version);
+  const std::string& id = c.config->feeds[feed].id;
+  if (!v) return Error(404, "not-found", fmt::format("feed {} has no model version '{}'", id, version));
+  auto record = c.store->GetModel(feed, *v);
+  if (!record.ok()) return FromStatus(record.status());
+  HttpResponse r;
+  r.content_type = "application/octet-stream";
+  r.body = std::move(record->file);
+  r.headers.emplace_back("Content-Disposition", fmt::format("attachment; filename=\"{}-v{}.lcm\"", id, *v));
+  return r;
+}
+
+HttpResponse Activate(const ApiContext& c, std::uint32_t feed, const std::string& version) {
+  const auto v = ParsePositive(version);
+  const std::string& id = c.config->feeds[feed].id;
+  if (!v) return Error(404, "not-found", fmt::format("feed {} has no model version '{}'", id, version));
+  const auto before = c.scheduler->active(feed);
+  if (lyapcast::Status s = c.scheduler->Activate(feed, *v, "activated by an operator over the API"); !s.ok()) {
+    return FromStatus(s);
+  }
+  return Json(200, json{{"feed", id},
+                        {"active", *v},
+                        {"previous", before ? json(before->record.version) : json(nullptr)}});
+}
+
+HttpResponse Retrain(const ApiContext& c, std::uint32_t feed) {
+  const FeedSchedule before = c.scheduler->schedule(feed);
+  auto job = c.scheduler->Trigger(feed, TriggerKind::kOperator, "requested over the API");
+  if (!job.ok()) return FromStatus(job.status());
+  const auto info = c.scheduler->job(*job);
+  json body = {{"job", *job},
+               {"feed", c.config->feeds[feed].id},
+               {"state", info ? JobStateName(info->state) : "queued"},
+               {"coalesced", before.pending && info && info->state == JobState::kQueued}};
+  HttpResponse r = Json(202, body);
+  r.headers.emplace_back("Location", fmt::format("/v1/feeds/{}/jobs/{}", c.config->feeds[feed].id, *job));
+  return r;
+}
+
+HttpResponse Job(const ApiContext& c, std::uint32_t feed, const std::string& job) {
+  const auto id = ParsePositive(job);
+  const std::string& name = c.config->feeds[feed].id;
+  const auto info = id ? c.scheduler->job(static_cast<std::uint64_t>(*id)) : std::nullopt;
+  if (!info || info->feed != feed) {
+    return Error(404, "not-found", fmt::format("feed {} has no job '{}' (the newest 256 jobs are kept)", name, job));
+  }
+  return Json(200, JobJson(*c.config, *info));
+}
+
+HttpResponse Pause(const ApiContext& c, std::uint32_t feed, bool paused) {
+  if (lyapcast::Status s = c.scheduler->SetPaused(feed, paused); !s.ok()) return FromStatus(s);
+  c.monitors->SetPaused(feed, paused);
+  return Json(200, json{{"feed", c.config->feeds[feed].id}, {"paused", paused}});
+}
+
+}  // namespace lyapcast::api

@@ -1,0 +1,182 @@
+// DriftMonitor: one feed's out-of-sample scoring of the active model, the
+// drift flag and the staleness figures (DESIGN.md "Monitoring").
+//
+// Every arriving sample is recorded (newest data time, wall time of the last
+// arrival). A sample is SCORED when all of these hold:
+//   - a model is set and the monitor is not paused;
+//   - it is newer than every sample seen before (late and out-of-order
+//     samples are recorded for data age only);
+//   - its data time is after the model's trained_to: the model never saw it,
+//     so the score is out of sample by construction;
+//   - the previous in-order sample is exactly one model step earlier
+//     (|dt - step| <= step / 100) and complete (the prediction needs every
+//     channel), and this sample has at least one channel present;
+//   - the error below is finite (it is not for values beyond float range).
+// Its normalized one-step error is
+//
+//     e = sqrt( mean over present channels c of ((G(prev)_c - x_c) / s_c)^2 )
+//
+// with G the model's flow map and s_c its per-channel stddev(). From e:
+//   - rmse_ewma: sqrt of an EWMA of e^2, alpha = 2 / (kWindow + 1);
+//   - rmse_window: RMSE over the last kWindow scored samples;
+//   - drift_ratio = rmse_window / validation_error, once kMinScored samples
+//     are scored and the validation error is finite and > 0;
+//   - a ChangeTest (monitor.change_threshold, monitor.change_drift, a
+//     warm-up of kWarmupBlocks) on the means of log(e) over blocks of
+//     kBlock scored samples. Errors are magnitudes, skewed to the right
+//     with a long tail; their log is close to Gaussian, which the test's
+//     standardization and its run-length figures assume, and it makes a
+//     doubling of the error the same step whatever the error's level.
+//     Consecutive errors of a smooth process are strongly correlated (the
+//     state moves little per step), which would make a per-sample test
+//     alarm far more often than its run-length figures say; block means
+//     are much closer to independent. The test warms up on the model's
+//     first live scores, so it detects a CHANGE after promotion; a model
+//     that is poor from the start shows in drift_ratio instead. (e == 0, an
+//     exact prediction, is skipped by the test as non-finite.)
+// When the change test alarms, the drift flag rises (with the alarm's data
+// time), Observe reports alarm_raised exactly once for that alarm (the
+// caller triggers a retrain), and the test restarts on the same in-control
+// estimate so a persisting or new change alarms again later. The flag is
+// cleared only by SetModel or Reset.
+//
+// Not thread-safe: the daemon serializes calls (e.g. one mutex per feed).
+// Allocation: none per Observe after the first scored sample.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <limits>
+#include <memory>
+#include <optional>
+
+#include "config/config.h"
+#include "core/data_time.h"
+#include "core/sample.h"
+#include "core/status.h"
+#include "learn/flow_map.h"
+#include "monitor/change_test.h"
+
+namespace lyapcast {
+
+struct DriftSnapshot {
+  std::optional<std::int64_t> model_version;  // none without a model
+  std::optional<double> validation_error;     // the model's, when finite
+  std::int64_t scored = 0;                    // samples scored since SetModel/Reset
+  std::optional<double> last_error;           // e of the newest scored sample
+  std::optional<double> rmse_ewma;            // none until a sample is scored
+  std::optional<double> rmse_window;
+  std::optional<double> drift_ratio;          // see the header comment for when it is present
+  double change_statistic = 0;                // ChangeTest::statistic()
+  bool warming_up = true;                     // the change test is still estimating
+  bool drift_flag = false;
+  std::optional<DataTime> flagged_at;         // data time of the alarm that raised the flag
+  std::int64_t alarms = 0;                    // alarms since SetModel/Reset
+  std::int64_t alarms_total = 0;              // alarms over the monitor's life (a counter)
+  bool paused = false;
+  std::optional<DataTime> newest_data_time;   // largest sample time seen
+  std::optional<DataTime> last_arrival_wall;  // wall time of the last arrival
+  // Wall now - last arrival (negative if the wall clock stepped back).
+  std::optional<double> data_age_s;
+  // Wall now - the model's promotion wall time.
+  std::optional<double> model_age_s;
+  // Newest data time - the model's trained_to (data time); multiply by the
+  // largest Lyapunov exponent for health's since_training_lyapunov_times.
+  std::optional<double> since_training_s;
+};
+
+class DriftMonitor {
+ public:
+  static constexpr int kWindow = 100;    // samples in rmse_window and the EWMA's span
+  static constexpr int kMinScored = 10;  // scored samples before drift_ratio and e0 use live errors
+  static constexpr int kBlock = 10;      // scored samples per change-test observation
+  static constexpr int kWarmupBlocks = 30;  // blocks that estimate the in-control level
+
+  struct Observation {
+    bool scored = false;
+    bool alarm_raised = false;  // this sample raised a change-test alarm
+    double error = std::numeric_limits<double>::quiet_NaN();  // e when scored
+  };
+
+  // Copies what it needs from `feed` (channel count, step, monitor options);
+  // `feed` need not outlive the monitor. Starts without a model, unpaused.
+  explicit DriftMonitor(const FeedConfig& feed);
+
+  // A new active model (null: none). Resets the scores, the change test, the
+  // drift flag and the per-model alarm count; keeps the arrival record and
+  // the previous sample. The monitor shares ownership of the model (the
+  // daemon can alias its published ActiveModel:
+  // std::shared_ptr<const FlowMap<float>>(active, &active->model)).
+  // validation_error: the model's one-step error at promotion, normalized
+  // like e (NaN when unknown); trained_to: end of its training data (data
+  // time); promoted_wall: when it became active (wall time, µs).
+  // kInvalidArgument (nothing changed) when the model's channel count is not
+  // the feed's.
+  [[nodiscard]] Status SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
+                                double validation_error, DataTime trained_to, DataTime promoted_wall);
+
+  // Records one committed sample of this feed that arrived at wall time
+  // `arrived_wall` and scores it when the rules above allow. Requires
+  // s.values.size() == the feed's channel count (a sample of another size is
+  // recorded for data age only).
+  Observation Observe(const Sample& s, DataTime arrived_wall);
+
+  // While paused (plant shutdown) samples are recorded for data age but
+  // neither scored nor fed to the change test, so no alarm is raised.
+  void SetPaused(bool paused) { paused_ = paused; }
+  bool paused() const { return paused_; }
+  bool has_model() const { return model_ != nullptr; }
+
+  // Forgets the scores, the change test, the drift flag and the per-model
+  // alarm count, as a new model would, keeping the model.
+  void Reset();
+
+  DriftSnapshot Snapshot(DataTime wall_now) const;
+
+  // The current normalized one-step error e0 for the predictability horizon
+  // (chaos/horizon.h): rmse_window once kMinScored samples are scored, else
+  // the model's validation error (NaN without a model or when unknown).
+  double e0() const;
+
+ private:
+  double RmseWindow() const;
+  bool Consecutive(DataTime from, DataTime to) const;
+  double Score(const Sample& s);  // e; requires a model, a complete prev_, a present channel in s
+
+  // From the feed.
+  int channels_;
+  Micros step_;
+  ChangeTestOptions change_options_;
+
+  // The model.
+  std::shared_ptr<const FlowMap<float>> model_;
+  std::int64_t version_ = 0;
+  double validation_error_ = 0;
+  DataTime trained_to_ = 0;
+  DataTime promoted_wall_ = 0;
+
+  // Arrivals.
+  bool paused_ = false;
+  std::optional<DataTime> newest_;
+  std::optional<DataTime> last_arrival_;
+  std::optional<Sample> prev_;  // the newest in-order sample
+
+  // Scores (since SetModel/Reset).
+  std::int64_t scored_ = 0;
+  double last_error_ = 0;
+  double ewma_sq_ = 0;
+  std::array<double, kWindow> window_sq_{};  // ring buffer of e^2
+  ChangeTest change_;
+  double block_sum_ = 0;  // sum of log(e) over the current block
+  int block_count_ = 0;
+  bool drift_flag_ = false;
+  std::optional<DataTime> flagged_at_;
+  std::int64_t alarms_ = 0;
+  std::int64_t alarms_total_ = 0;
+
+  // Forward's buffers, reused.
+  MlpTypes<float>::Mat x_, y_;
+  FlowMapCache<float> cache_;
+};
+
+}  // namespace lyapcast
