@@ -9,6 +9,7 @@
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
 #include <chrono>
+#include <iterator>
 #include <mutex>
 #include <optional>
 #include <unordered_set>
@@ -137,9 +138,15 @@ class HttpServer::Impl::Session : public std::enable_shared_from_this<Session> {
                        fmt::format("request line and headers exceed {} bytes", server_->options.max_header));
     }
     if (ec) return SendError(http::status::bad_request, "bad-request", "malformed HTTP request");
+    const auto& req = parser_->get();
+    // The byte limit already bounds memory; the field count bounds the work
+    // of a request made of many tiny headers.
+    if (static_cast<std::size_t>(std::distance(req.begin(), req.end())) > server_->options.max_header_fields) {
+      return SendError(http::status::request_header_fields_too_large, "too-many-headers",
+                       fmt::format("more than {} header fields", server_->options.max_header_fields));
+    }
     ++requests_;
     busy_ = true;
-    const auto& req = parser_->get();
     HttpResponse plain = server_->handler(ToPlain(req));
     auto res = std::make_shared<http::response<http::string_body>>(static_cast<http::status>(plain.status),
                                                                    req.version());
