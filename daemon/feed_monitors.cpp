@@ -1,5 +1,6 @@
 #include "feed_monitors.h"
 
+#include <nlohmann/json.hpp>
 #include <spdlog/spdlog.h>
 
 #include <cmath>
@@ -32,6 +33,31 @@ FeedMonitors::FeedMonitors(const Config& config, Scheduler& scheduler) : config_
 
 FeedMonitors::~FeedMonitors() = default;
 
+namespace {
+
+// The validation error on the monitor's scale. The registry's figure is the
+// mean over channels of per-channel RMSEs; the monitor's rolling error is
+// the RMS over channels, which is larger by up to sqrt(channels) when the
+// channels differ. The per-channel figures in the version's details give
+// the RMS form; without them the mean is used.
+double ValidationRms(const ModelRecord& r) {
+  const auto details = nlohmann::json::parse(r.details, nullptr, /*allow_exceptions=*/false);
+  if (details.is_object() && details.contains("validation_per_channel") &&
+      details["validation_per_channel"].is_array() && !details["validation_per_channel"].empty()) {
+    double sum = 0;
+    int n = 0;
+    for (const auto& v : details["validation_per_channel"]) {
+      if (!v.is_number()) continue;
+      sum += v.get<double>() * v.get<double>();
+      ++n;
+    }
+    if (n > 0) return std::sqrt(sum / n);
+  }
+  return r.validation_error.value_or(std::numeric_limits<double>::quiet_NaN());
+}
+
+}  // namespace
+
 void FeedMonitors::SyncModel(Feed& f) {
   std::shared_ptr<const ActiveModel> active = scheduler_.active(f.index);
   if (active == f.model) return;
@@ -44,7 +70,7 @@ void FeedMonitors::SyncModel(Feed& f) {
   auto created = ParseRfc3339(r.created_at);
   const DataTime promoted_wall = created.ok() ? *created : WallNowMicros();
   Status s = f.monitor.SetModel(std::shared_ptr<const FlowMap<float>>(active, &active->model), r.version,
-                                r.validation_error.value_or(std::numeric_limits<double>::quiet_NaN()), r.trained_to,
+                                ValidationRms(r), r.trained_to,
                                 promoted_wall);
   if (!s.ok()) spdlog::error("feed {}: the drift monitor cannot use version {}: {}", f.config->id, r.version,
                              s.message());
