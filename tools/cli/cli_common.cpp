@@ -105,6 +105,18 @@ ProgressLine::ProgressLine(std::int64_t log_every) : tty_(::isatty(STDERR_FILENO
 void ProgressLine::Update(std::int64_t done, std::int64_t total, const std::string& detail) {
   const double now =
       std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count();
+  if (total <= 0) {  // unknown total: the count and the detail only
+    if (tty_) {
+      if (now - last_draw_ < 0.1) return;
+      last_draw_ = now;
+      std::fprintf(stderr, "\r%s\033[K", detail.c_str());
+      drawn_ = true;
+    } else if (done / log_every_ != last_logged_) {
+      last_logged_ = done / log_every_;
+      std::fprintf(stderr, "%s\n", detail.c_str());
+    }
+    return;
+  }
   if (tty_) {
     if (done != total && now - last_draw_ < 0.1) return;
     last_draw_ = now;

@@ -42,7 +42,8 @@ struct SampleFile {
                                                           const char* what);
 
 // A single progress line on stderr, redrawn at most every 100 ms when stderr
-// is a terminal, or printed every `log_every` calls otherwise.
+// is a terminal, or printed whenever `done` passes a multiple of `log_every`
+// otherwise. A total <= 0 means unknown: no bar, just the count and detail.
 class ProgressLine {
  public:
   explicit ProgressLine(std::int64_t log_every = 1000);

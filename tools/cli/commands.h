@@ -1,5 +1,7 @@
 // The lyapcast CLI's subcommands. Each Add*Command registers one subcommand
-// on `app`; its callback stores the process exit code in *exit_code.
+// on `app`; its callback stores the process exit code in *exit_code
+// (cli_common.h: 0 done, 1 failed, 2 usage; `check` uses 0/1/2/3 as a
+// monitoring plugin does).
 #pragma once
 
 namespace CLI {
@@ -13,5 +15,12 @@ void AddTrainCommand(CLI::App& app, int* exit_code);
 void AddForecastCommand(CLI::App& app, int* exit_code);
 void AddLyapunovCommand(CLI::App& app, int* exit_code);
 void AddScoreCommand(CLI::App& app, int* exit_code);
+// Commands that talk to a running daemon (README "HTTP API", "Ingest protocol").
+void AddStatusCommand(CLI::App& app, int* exit_code);
+void AddModelsCommand(CLI::App& app, int* exit_code);
+void AddRetrainCommand(CLI::App& app, int* exit_code);
+void AddCheckCommand(CLI::App& app, int* exit_code);
+void AddReplayCommand(CLI::App& app, int* exit_code);
+void AddExportCommand(CLI::App& app, int* exit_code);
 
 }  // namespace lyapcast::cli

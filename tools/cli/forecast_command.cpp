@@ -1,14 +1,22 @@
-// lyapcast forecast --model FILE: iterate a model file's flow map from a
-// given state (the offline form of the daemon's forecast endpoint).
+// lyapcast forecast: two forms.
+//   forecast --model FILE --from STATE ...  iterate a model file's flow map from a
+//       given state (offline; the daemon's forecast without a daemon);
+//   forecast --feed ID [--steps N | --horizon D] [--from T] ...  ask a running
+//       daemon (GET /v1/feeds/{id}/forecast) for a forecast from its newest
+//       complete sample or the sample at data time T, with the predictability
+//       horizon; a table, CSV or the daemon's JSON.
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
 
+#include <algorithm>
+#include <cmath>
 #include <cstdio>
 #include <variant>
 
 #include "cli_common.h"
 #include "commands.h"
 #include "learn/model_file.h"
+#include "remote_common.h"
 
 namespace lyapcast::cli {
 namespace {
@@ -16,6 +24,13 @@ namespace {
 struct ForecastArgs {
   std::string model, from, start;
   int steps = 100;
+  // The remote form.
+  std::string feed, horizon;
+  bool csv = false, json = false;
+  RemoteArgs remote;
+  // Which options were given (set by the callback from the parsed command).
+  bool steps_given = false, start_given = false, horizon_given = false, csv_given = false, json_given = false,
+       url_given = false, token_given = false, timeout_given = false;
 };
 
 template <typename T>
@@ -37,6 +52,17 @@ void Iterate(const FlowMap<T>& model, const std::vector<double>& from, int steps
 
 int RunForecast(const ForecastArgs& a) {
   constexpr const char* kCmd = "forecast";
+  if (a.from.empty()) {
+    return PrintError(kCmd, "--from is required with --model: the starting state, one number per channel"), kExitUsage;
+  }
+  for (const auto& [given, name] :
+       {std::pair{a.horizon_given, "--horizon"}, std::pair{a.json_given, "--json"}, std::pair{a.url_given, "--url"},
+        std::pair{a.token_given, "--token-file"}, std::pair{a.timeout_given, "--timeout"}}) {
+    if (given) {
+      PrintError(kCmd, fmt::format("{} belongs to the remote form (--feed ID); --model forecasts offline", name));
+      return kExitUsage;
+    }
+  }
   auto file = LoadModel(a.model);
   if (!file.ok()) return PrintError(kCmd, file.status().message()), kExitUsage;
   auto from = ParseNumberList(a.from, file->channels.size(), "--from");
@@ -56,17 +82,217 @@ int RunForecast(const ForecastArgs& a) {
   return kExitOk;
 }
 
+// Prints the JSON forecast for people: header lines, then one row per point,
+// with a divider where the predictability horizon is crossed and the points
+// past it marked.
+void PrintForecastTable(const json& f) {
+  std::vector<std::string> channels;
+  if (const json* c = Field(f, "channels"); c != nullptr && c->is_array()) {
+    for (const json& name : *c) channels.push_back(name.is_string() ? name.get<std::string>() : "?");
+  }
+  const auto from = TimeOf(Field(f, "from"));
+  std::string start;
+  if (const json* st = Field(f, "start"); st != nullptr && st->is_array()) {
+    for (std::size_t c = 0; c < st->size(); ++c) {
+      start +=
+          fmt::format("{}{}={}", c ? ", " : "", c < channels.size() ? channels[c] : "?", Num(Number(&(*st)[c]), 6));
+    }
+  }
+  std::printf("feed %s, model version %lld, from %s (%s)\n", Text(Field(f, "feed")).c_str(),
+              static_cast<long long>(Integer(Field(f, "model_version")).value_or(0)),
+              from ? TimeText(*from).c_str() : "?", start.c_str());
+
+  const json* h = Field(f, "horizon");
+  const auto horizon_s = Number(h ? Field(*h, "seconds") : nullptr);
+  const json* ly = Field(f, "lyapunov");
+  const auto lyap_time = Number(ly ? Field(*ly, "lyapunov_time_s") : nullptr);
+  const std::string source = ly ? Text(Field(*ly, "source")) : "";
+  const std::string lyap_text =
+      lyap_time ? fmt::format("Lyapunov time {} from the {}", Age(lyap_time), source) : "no Lyapunov time";
+  const std::string errors =
+      h ? fmt::format("one-step error {} vs tolerance {}", Num(Number(Field(*h, "e0"))), Num(Number(Field(*h, "tol"))))
+        : "";
+  if (horizon_s) {
+    std::printf("predictability horizon %s = %s Lyapunov times (%s; %s)\n", Age(horizon_s).c_str(),
+                Num(Number(h ? Field(*h, "lyapunov_times") : nullptr)).c_str(), lyap_text.c_str(), errors.c_str());
+    if (*horizon_s <= 0)
+      std::printf("the current error already exceeds the tolerance: no point is within the horizon\n");
+  } else {
+    const std::string reason = h ? Text(Field(*h, "reason")) : "";
+    std::printf("predictability horizon: none (%s; %s)\n", reason.empty() ? "not given" : reason.c_str(),
+                lyap_text.c_str());
+  }
+  if (const json* st = Field(f, "staleness")) {
+    std::printf("data %s old, model %s old, %s of data since training", Age(Number(Field(*st, "data_age_s"))).c_str(),
+                Age(Number(Field(*st, "model_age_s"))).c_str(), Age(Number(Field(*st, "since_training_s"))).c_str());
+    if (auto lt = Number(Field(*st, "since_training_lyapunov_times")))
+      std::printf(" (%s Lyapunov times)", Num(lt).c_str());
+    std::printf("\n");
+  }
+  const std::string advisory = Text(Field(f, "advisory"));
+  std::printf("%s\n\n", advisory.empty() ? "Forecasts are advisory." : advisory.c_str());
+
+  // Rows: time, seconds after `from`, channels, mark. Times with as many
+  // decimals as the model step needs, so the column lines up.
+  const auto step_s = Number(Field(f, "step_s"));
+  int decimals = 6;
+  if (step_s) {
+    const auto step_us = static_cast<std::int64_t>(std::llround(*step_s * 1e6));
+    for (int d = 0; d <= 6; ++d) {
+      std::int64_t unit = 1;
+      for (int k = d; k < 6; ++k) unit *= 10;
+      if (step_us > 0 && step_us % unit == 0) {
+        decimals = d;
+        break;
+      }
+    }
+  }
+  const auto time_text = [decimals](DataTime t) {
+    std::string s = FormatRfc3339(t);  // ...SS.ffffffZ
+    const auto dot = s.rfind('.');
+    return decimals == 0 ? s.substr(0, dot) + "Z" : s.substr(0, dot + 1 + static_cast<std::size_t>(decimals)) + "Z";
+  };
+  std::vector<std::vector<std::string>> rows;
+  std::vector<bool> beyond;
+  if (const json* points = Field(f, "points"); points != nullptr && points->is_array()) {
+    for (const json& p : *points) {
+      const auto t = TimeOf(Field(p, "t"));
+      std::vector<std::string> row{
+          t ? time_text(*t) : "?",
+          t && from ? fmt::format("{:.{}f}", static_cast<double>(*t - *from) / 1e6, decimals) : "?"};
+      const json* values = Field(p, "values");
+      for (std::size_t c = 0; c < channels.size(); ++c) {
+        row.push_back(values != nullptr && values->is_array() && c < values->size() ? Num(Number(&(*values)[c]), 6)
+                                                                                    : "-");
+      }
+      rows.push_back(std::move(row));
+      beyond.push_back(Bool(Field(p, "beyond_horizon")).value_or(false));
+    }
+  }
+  std::vector<std::string> header{"time", "+s"};
+  header.insert(header.end(), channels.begin(), channels.end());
+  std::vector<std::size_t> width(header.size());
+  for (std::size_t c = 0; c < header.size(); ++c) width[c] = header[c].size();
+  for (const auto& row : rows) {
+    for (std::size_t c = 0; c < row.size() && c < width.size(); ++c) width[c] = std::max(width[c], row[c].size());
+  }
+  const auto line = [&](const std::vector<std::string>& row, const char* mark) {
+    std::string out = fmt::format("{:<{}}", row[0], width[0]);
+    for (std::size_t c = 1; c < row.size(); ++c) out += fmt::format("  {:>{}}", row[c], width[c]);
+    out += mark;
+    std::printf("%s\n", out.c_str());
+  };
+  line(header, "");
+  bool marked = false;
+  for (std::size_t k = 0; k < rows.size(); ++k) {
+    if (beyond[k] && !marked) {
+      std::printf("---- predictability horizon (%s): the rows below, marked *, are past it ----\n",
+                  Age(horizon_s).c_str());
+      marked = true;
+    }
+    line(rows[k], beyond[k] ? "  *" : "");
+  }
+}
+
+int RunRemoteForecast(const ForecastArgs& a) {
+  constexpr const char* kCmd = "forecast";
+  if (a.start_given)
+    return PrintError(kCmd, "--start belongs to the offline form (--model); use --from T with --feed"), kExitUsage;
+  if (a.csv && a.json) return PrintError(kCmd, "give --csv or --json, not both"), kExitUsage;
+  if (a.steps_given && a.horizon_given) {
+    return PrintError(kCmd, "give --steps N or --horizon D, not both"), kExitUsage;
+  }
+  auto path = FeedPath(a.feed);
+  if (!path.ok()) return PrintError(kCmd, path.status().message()), kExitUsage;
+  std::string query;
+  if (a.steps_given) {
+    if (a.steps < 1 || a.steps > 100000) return PrintError(kCmd, "--steps must be from 1 to 100000"), kExitUsage;
+    query = fmt::format("steps={}", a.steps);
+  } else if (a.horizon_given) {
+    auto d = ParseDuration(a.horizon);
+    if (!d.ok() || *d <= 0) {
+      return PrintError(kCmd, fmt::format("--horizon '{}': expected a positive duration such as 30s or 5m", a.horizon)),
+             kExitUsage;
+    }
+    query = "horizon=" + UrlEncode(a.horizon);
+  }
+  if (!a.from.empty()) query += (query.empty() ? "" : "&") + std::string("from=") + UrlEncode(a.from);
+  if (a.csv) query += (query.empty() ? "" : "&") + std::string("format=csv");
+  const std::string target = *path + "/forecast" + (query.empty() ? "" : "?" + query);
+
+  auto remote = Remote::Open(a.remote);
+  if (!remote.ok()) return PrintError(kCmd, remote.status().message()), kExitUsage;
+  if (a.csv || a.json) {
+    auto res = (*remote)->Call("GET", target, a.csv ? "text/csv" : "application/json");
+    if (!res.ok()) return PrintError(kCmd, res.status().message()), RemoteExitCode(res.status());
+    std::fwrite(res->body.data(), 1, res->body.size(), stdout);
+    if (!res->body.empty() && res->body.back() != '\n') std::fputc('\n', stdout);
+    return kExitOk;
+  }
+  auto body = (*remote)->GetJson(target);
+  if (!body.ok()) return PrintError(kCmd, body.status().message()), RemoteExitCode(body.status());
+  PrintForecastTable(*body);
+  return kExitOk;
+}
+
 }  // namespace
 
 void AddForecastCommand(CLI::App& app, int* exit_code) {
   auto args = std::make_shared<ForecastArgs>();
-  CLI::App* cmd = app.add_subcommand("forecast", "Iterate a model file's flow map from a state (CSV out)");
-  cmd->footer("Iterate a model file's flow map from a state and print the trajectory as CSV (step, time, channels).\nTime is seconds after the start, or absolute epoch seconds with --start. Forecasts are advisory.\nExample:\n  lyapcast forecast --model loop-a.model --from 1.2,-0.4,20 --steps 200");
-  cmd->add_option("--model,-m", args->model, "model file (from lyapcast train or the daemon)")->required();
-  cmd->add_option("--from", args->from, "starting state, one number per channel in the model's order")->required();
-  cmd->add_option("--steps", args->steps, "number of model steps (default 100)");
-  cmd->add_option("--start", args->start, "RFC 3339 data time of the starting state (default: times relative to it)");
-  cmd->callback([args, exit_code] { *exit_code = RunForecast(*args); });
+  CLI::App* cmd =
+      app.add_subcommand("forecast", "Forecast from a running daemon (--feed) or from a model file (--model)");
+  cmd->footer(
+      std::string(
+          "Two forms:\n"
+          "  --feed ID     ask a running daemon: a forecast from the feed's newest complete sample (or the sample at\n"
+          "                data time --from T), --steps N model steps (default 100) or --horizon D of data time, with\n"
+          "                the predictability horizon; rows past it are marked *. --csv and --json print the\n"
+          "                daemon's CSV (time,<channels>,beyond_horizon) or JSON.\n"
+          "  --model FILE  offline: iterate a model file's flow map from --from STATE (one number per channel)\n"
+          "                and print CSV (step, time, channels); time is seconds after the start, or absolute\n"
+          "                epoch seconds with --start. (`lyapcast train` writes model files, and so does\n"
+          "                GET /v1/feeds/{id}/models/{v}/file.)\n"
+          "Forecasts are advisory; plant safety systems, local codes and licensed practice govern.\n"
+          "Examples:\n"
+          "  lyapcast forecast --feed loop-a --horizon 30s\n"
+          "  lyapcast forecast --feed loop-a --steps 200 --from 2026-01-01T00:20:00Z --csv > f.csv\n"
+          "  lyapcast forecast --model loop-a.model --from 1.2,-0.4,20 --steps 200\n") +
+      kRemoteFooter);
+  cmd->add_option("--feed", args->feed, "remote form: the feed id on the daemon");
+  cmd->add_option("--model,-m", args->model, "offline form: model file (from lyapcast train or the daemon)");
+  cmd->add_option("--from", args->from,
+                  "--model: starting state, one number per channel in the model's order; --feed: the data time to "
+                  "start at (RFC 3339 or epoch seconds; default latest)");
+  CLI::Option* steps = cmd->add_option("--steps", args->steps, "number of model steps (default 100)");
+  CLI::Option* horizon = cmd->add_option("--horizon", args->horizon,
+                                         "--feed: forecast this much data time, e.g. 30s (instead of --steps)");
+  CLI::Option* start = cmd->add_option(
+      "--start", args->start, "--model: RFC 3339 data time of the starting state (default: times relative to it)");
+  CLI::Option* csv = cmd->add_flag("--csv", args->csv, "--feed: print the daemon's CSV");
+  CLI::Option* json_flag = cmd->add_flag("--json", args->json, "--feed: print the daemon's JSON");
+  AddRemoteOptions(cmd, &args->remote);
+  CLI::Option* url = cmd->get_option("--url");
+  CLI::Option* token = cmd->get_option("--token-file");
+  CLI::Option* timeout = cmd->get_option("--timeout");
+  cmd->callback([=] {
+    args->steps_given = steps->count() > 0;
+    args->horizon_given = horizon->count() > 0;
+    args->start_given = start->count() > 0;
+    args->csv_given = csv->count() > 0;
+    args->json_given = json_flag->count() > 0;
+    args->url_given = url->count() > 0;
+    args->token_given = token->count() > 0;
+    args->timeout_given = timeout->count() > 0;
+    if (args->model.empty() == args->feed.empty()) {
+      PrintError("forecast", args->model.empty()
+                                 ? "give --feed ID (a forecast from a running daemon) or --model FILE (offline, from a "
+                                   "model file); see lyapcast forecast --help"
+                                 : "give --feed ID (from a daemon) or --model FILE (offline), not both");
+      *exit_code = kExitUsage;
+      return;
+    }
+    *exit_code = args->model.empty() ? RunRemoteForecast(*args) : RunForecast(*args);
+  });
 }
 
 }  // namespace lyapcast::cli

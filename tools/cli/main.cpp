@@ -1,6 +1,11 @@
 // lyapcast: the command-line tool. Offline commands work on files (simulate,
-// train, forecast --model, lyapunov, score); commands that talk to a daemon come later.
+// train, forecast --model, lyapunov, score); the others talk to a running
+// daemon over its HTTP API (status, models, retrain, forecast --feed, check,
+// export) or its ingest port (replay, simulate --send).
 #include <CLI/CLI.hpp>
+
+#include <cstdio>
+#include <cstring>
 
 #include "commands.h"
 
@@ -10,15 +15,33 @@ int main(int argc, char** argv) {
       "Forecasts are advisory; plant safety systems, local codes and licensed practice govern.\n"};
   app.set_version_flag("--version", "0.1.0");
   app.require_subcommand(1);
+  app.footer(
+      "Talk to a running daemon: status, models, retrain, forecast --feed, check, export (HTTP API; --url,\n"
+      "--token-file), replay (ingest port). Offline, on files: simulate, train, forecast --model, lyapunov, score.\n"
+      "`lyapcast <command> --help` explains each command with examples.");
   int exit_code = 0;
+  lyapcast::cli::AddStatusCommand(app, &exit_code);
+  lyapcast::cli::AddForecastCommand(app, &exit_code);
+  lyapcast::cli::AddModelsCommand(app, &exit_code);
+  lyapcast::cli::AddRetrainCommand(app, &exit_code);
+  lyapcast::cli::AddCheckCommand(app, &exit_code);
+  lyapcast::cli::AddExportCommand(app, &exit_code);
+  lyapcast::cli::AddReplayCommand(app, &exit_code);
   lyapcast::cli::AddSimulateCommand(app, &exit_code);
   lyapcast::cli::AddTrainCommand(app, &exit_code);
-  lyapcast::cli::AddForecastCommand(app, &exit_code);
   lyapcast::cli::AddLyapunovCommand(app, &exit_code);
   lyapcast::cli::AddScoreCommand(app, &exit_code);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
+    // `check` is a monitoring plugin: bad arguments are UNKNOWN (3) with one
+    // line on stdout, not 2 (which would read as CRITICAL).
+    const bool check = argc > 1 && std::strcmp(argv[1], "check") == 0;
+    if (check && e.get_exit_code() != 0) {
+      std::printf("LYAPCAST UNKNOWN - bad argument: %s\n", e.what());
+      std::fprintf(stderr, "Run with --help for more information.\n");
+      return 3;
+    }
     const int code = app.exit(e);
     return code == 0 ? 0 : 2;
   }
