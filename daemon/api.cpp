@@ -2,6 +2,7 @@
 
 #include <fmt/format.h>
 
+#include <optional>
 #include <string_view>
 #include <vector>
 
@@ -10,6 +11,7 @@
 #include "core/secret.h"
 #include "core/wall_clock.h"
 #include "ingest_server.h"
+#include "page.h"
 #include "schedule/scheduler.h"
 #include "store/sample_writer.h"
 
@@ -35,12 +37,30 @@ std::vector<std::string_view> Segments(std::string_view path) {
   return out;
 }
 
+// The token of an `Authorization: Bearer <token>` header (RFC 6750 section
+// 2.1; the scheme is case-insensitive, RFC 7235 section 2.1), or nullopt for
+// another scheme or an empty token.
+std::optional<std::string_view> BearerToken(std::string_view header) {
+  constexpr std::string_view kScheme = "bearer";
+  if (header.size() <= kScheme.size() || header[kScheme.size()] != ' ') return std::nullopt;
+  for (std::size_t i = 0; i < kScheme.size(); ++i) {
+    const char c = header[i];
+    if ((c >= 'A' && c <= 'Z' ? static_cast<char>(c - 'A' + 'a') : c) != kScheme[i]) return std::nullopt;
+  }
+  std::string_view token = header.substr(kScheme.size());
+  while (!token.empty() && token.front() == ' ') token.remove_prefix(1);
+  while (!token.empty() && (token.back() == ' ' || token.back() == '\t')) token.remove_suffix(1);
+  if (token.empty()) return std::nullopt;
+  return token;
+}
+
 class Api {
  public:
   explicit Api(ApiContext c) : c_(std::move(c)) {}
 
   HttpResponse operator()(const HttpRequest& req) const {
     if (req.path == "/v1/health/live") return Only(req, "GET", [&] { return Live(); });
+    if (auto page = ServePage(req)) return *page;  // the operator page holds no data: no token
     if (auto denied = CheckAccess(req)) return *denied;
     if (req.path == "/v1/health") return Only(req, "GET", [&] { return api::Health(c_); });
     if (req.path == "/metrics") return Only(req, "GET", [&] { return api::Metrics(c_); });
@@ -93,15 +113,14 @@ class Api {
     const bool read_only = req.method == "GET" || req.method == "HEAD";
     if (!c_.read_token && !c_.admin_token) return std::nullopt;
     if (read_only && !c_.read_token) return std::nullopt;
-    constexpr std::string_view kBearer = "Bearer ";
-    if (req.authorization.size() <= kBearer.size() || req.authorization.compare(0, kBearer.size(), kBearer) != 0) {
+    const std::optional<std::string_view> token = BearerToken(req.authorization);
+    if (!token) {
       HttpResponse r = Error(401, "unauthorized", "this endpoint needs 'Authorization: Bearer <token>'");
       r.headers.emplace_back("WWW-Authenticate", "Bearer realm=\"lyapcast\"");
       return r;
     }
-    const std::string_view token = std::string_view(req.authorization).substr(kBearer.size());
-    const bool admin = c_.admin_token && ConstantTimeEquals(token, *c_.admin_token);
-    const bool reader = c_.read_token && ConstantTimeEquals(token, *c_.read_token);
+    const bool admin = c_.admin_token && ConstantTimeEquals(*token, *c_.admin_token);
+    const bool reader = c_.read_token && ConstantTimeEquals(*token, *c_.read_token);
     if (read_only ? (admin || reader) : admin) return std::nullopt;
     if (reader || admin) return Error(403, "forbidden", "this token may read but not change anything; use the admin token");
     HttpResponse r = Error(401, "unauthorized", "the bearer token is not valid");

@@ -95,10 +95,12 @@ Result<std::optional<Micros>> DurationParam(const HttpRequest& req, const std::s
   return std::optional<Micros>(*d);
 }
 
-bool WantsCsv(const HttpRequest& req) {
+Result<bool> WantsCsv(const HttpRequest& req) {
   const std::string* format = Find(req, "format");
-  if (format != nullptr) return *format == "csv";
-  return req.accept.find("text/csv") != std::string::npos;
+  if (format == nullptr) return req.accept.find("text/csv") != std::string::npos;
+  if (*format == "csv") return true;
+  if (*format == "json") return false;
+  return Status::Invalid(fmt::format("format: expected csv or json, got '{}'", *format));
 }
 
 }  // namespace lyapcast::api

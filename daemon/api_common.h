@@ -42,7 +42,9 @@ json OptionalNumber(const std::optional<double>& v);  // null when absent or not
                                                            std::int64_t min, std::int64_t max);
 [[nodiscard]] Result<std::optional<Micros>> DurationParam(const HttpRequest& req, const std::string& name);
 
-// True when the client asked for CSV (format=csv or an Accept naming text/csv).
-bool WantsCsv(const HttpRequest& req);
+// True when the client asked for CSV: format=csv, or no format parameter
+// and an Accept naming text/csv (format=json asks for JSON whatever Accept
+// says); kInvalidArgument naming `format` for any other format value.
+[[nodiscard]] Result<bool> WantsCsv(const HttpRequest& req);
 
 }  // namespace lyapcast::api

@@ -53,6 +53,14 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   auto horizon_param = DurationParam(req, "horizon");
   if (!horizon_param.ok()) return FromStatus(horizon_param.status());
   if (*steps_param && *horizon_param) return BadParameter("steps", "give steps or horizon, not both");
+  const auto csv = WantsCsv(req);
+  if (!csv.ok()) return FromStatus(csv.status());
+  // from: absent or "latest" (the newest complete sample), else a data time;
+  // checked before the model so a bad parameter is 400 whatever the state.
+  const auto from_it = req.query.find("from");
+  const bool from_latest = from_it == req.query.end() || from_it->second == "latest";
+  auto from = from_latest ? Result<std::optional<DataTime>>(std::optional<DataTime>{}) : TimeParam(req, "from");
+  if (!from.ok()) return FromStatus(from.status());
   std::int64_t steps = steps_param->value_or(kDefaultSteps);
   if (*horizon_param) {
     steps = (**horizon_param + fc.step - 1) / fc.step;
@@ -71,8 +79,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   }
 
   std::optional<Sample> start;
-  const auto from_it = req.query.find("from");
-  if (from_it == req.query.end() || from_it->second == "latest") {
+  if (from_latest) {
     start = c.monitors->NewestComplete(feed);
     if (!start) {
       // After a restart nothing has arrived yet: the newest stored sample.
@@ -85,8 +92,6 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     }
     if (!start) return Error(409, "no-data", fmt::format("feed {} has no complete sample to start from", fc.id));
   } else {
-    auto from = TimeParam(req, "from");
-    if (!from.ok()) return FromStatus(from.status());
     auto found = c.store->CompleteSampleAt(feed, **from, kFromLookbackSteps * fc.step);
     if (!found.ok()) return FromStatus(found.status());
     if (!*found) {
@@ -114,7 +119,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     return horizon_s && static_cast<double>(t - start->t) / 1e6 > *horizon_s;
   };
 
-  if (WantsCsv(req)) {
+  if (*csv) {
     HttpResponse r;
     r.content_type = "text/csv; charset=utf-8";
     r.body = "time";

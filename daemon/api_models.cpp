@@ -54,6 +54,9 @@ HttpResponse Activate(const ApiContext& c, std::uint32_t feed, const std::string
   const auto v = ParsePositive(version);
   const std::string& id = c.config->feeds[feed].id;
   if (!v) return Error(404, "not-found", fmt::format("feed {} has no model version '{}'", id, version));
+  // An unknown version is 404 whatever the scheduler is doing (it refuses
+  // any activation with 409 while a job of the feed runs).
+  if (auto record = c.store->GetModel(feed, *v); !record.ok()) return FromStatus(record.status());
   const auto before = c.scheduler->active(feed);
   if (lyapcast::Status s = c.scheduler->Activate(feed, *v, "activated by an operator over the API"); !s.ok()) {
     return FromStatus(s);
@@ -64,14 +67,19 @@ HttpResponse Activate(const ApiContext& c, std::uint32_t feed, const std::string
 }
 
 HttpResponse Retrain(const ApiContext& c, std::uint32_t feed) {
-  const FeedSchedule before = c.scheduler->schedule(feed);
+  // Coalesced: the trigger joined a job that was already pending, which
+  // the scheduler counts. (Judging by a `pending` flag read before the
+  // trigger would be wrong when the trainer starts that job in between: the
+  // trigger then queues a new job.)
+  const std::uint64_t coalesced_before = c.scheduler->schedule(feed).coalesced;
   auto job = c.scheduler->Trigger(feed, TriggerKind::kOperator, "requested over the API");
   if (!job.ok()) return FromStatus(job.status());
+  const bool coalesced = c.scheduler->schedule(feed).coalesced > coalesced_before;
   const auto info = c.scheduler->job(*job);
   json body = {{"job", *job},
                {"feed", c.config->feeds[feed].id},
                {"state", info ? JobStateName(info->state) : "queued"},
-               {"coalesced", before.pending && info && info->state == JobState::kQueued}};
+               {"coalesced", coalesced}};
   HttpResponse r = Json(202, body);
   r.headers.emplace_back("Location", fmt::format("/v1/feeds/{}/jobs/{}", c.config->feeds[feed].id, *job));
   return r;

@@ -23,6 +23,7 @@
 #include "schedule/scheduler.h"
 #include "store/sample_writer.h"
 #include "store/window_store.h"
+#include "systemd_notify.h"
 
 namespace lyapcast {
 namespace {
@@ -225,6 +226,7 @@ int RunDaemon(const DaemonOptions& options) {
   asio::signal_set signals(io, SIGINT, SIGTERM);
   signals.async_wait([&](boost::system::error_code ec, int signo) {
     if (ec) return;
+    NotifyStopping();  // systemd: the stop has begun (no-op without NOTIFY_SOCKET)
     spdlog::info("received {}; stopping: no new connections, finishing received lines", signo == SIGINT ? "SIGINT" : "SIGTERM");
     // Cancel training first: in lockstep the writer may be waiting for a
     // job, and the sessions for the writer.
@@ -241,6 +243,9 @@ int RunDaemon(const DaemonOptions& options) {
       return kExitFailure;
     }
   }
+  // systemd (Type=notify): both listeners are up; no-op without NOTIFY_SOCKET.
+  NotifyReady(fmt::format("serving: ingest on {}:{}, HTTP on {}:{}", config.listen.ingest.host, ingest.port(),
+                          config.listen.http.host, http.port()));
 
   std::vector<std::thread> threads;
   for (int i = 1; i < options.io_threads; ++i) threads.emplace_back([&io] { io.run(); });

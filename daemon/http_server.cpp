@@ -157,6 +157,13 @@ class HttpServer::Impl::Session : public std::enable_shared_from_this<Session> {
     res->keep_alive(req.keep_alive() && !close_after_response_);
     res->body() = std::move(plain.body);
     res->prepare_payload();
+    if (req.method() == http::verb::head) {
+      // HEAD: the GET answer's headers (Content-Length included), no body;
+      // a body here would be read as the start of the next response.
+      const auto length = res->body().size();
+      res->body().clear();
+      res->content_length(length);
+    }
     Write(std::move(res));
   }
 

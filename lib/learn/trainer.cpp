@@ -65,9 +65,10 @@ const char* FitStopName(FitStop s) {
   return "?";
 }
 
-Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t end, double dt) {
+Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t end, double dt, int max_gap) {
   const int c = grid.channels;
   end = std::min(end, grid.size());
+  const auto reach = static_cast<std::size_t>(std::max(max_gap, 1));
   Eigen::VectorXd sum = Eigen::VectorXd::Zero(c), sum2 = Eigen::VectorXd::Zero(c);
   Eigen::VectorXd isum = Eigen::VectorXd::Zero(c), isum2 = Eigen::VectorXd::Zero(c);
   double n = 0, ni = 0;
@@ -77,15 +78,22 @@ Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t e
     sum += x;
     sum2 += x.cwiseAbs2();
     n += 1;
-    if (i + 1 < end && grid.complete(i + 1)) {
-      const Eigen::VectorXd inc = Eigen::Map<const Eigen::VectorXd>(grid.row(i + 1), c) - x;
+    // The next complete state, k <= max_gap steps on; its increment per step.
+    std::size_t j = i + 1;
+    while (j < end && j - i < reach && !grid.complete(j)) ++j;
+    if (j < end && grid.complete(j)) {
+      const double k = static_cast<double>(j - i);  // 1 on consecutive states: the division is exact
+      const Eigen::VectorXd inc = (Eigen::Map<const Eigen::VectorXd>(grid.row(j), c) - x) / k;
       isum += inc;
       isum2 += inc.cwiseAbs2();
       ni += 1;
     }
   }
   if (n < 2 || ni < 2) {
-    return Status::Invalid(fmt::format("need at least 2 complete consecutive states to normalize; found {} states", n));
+    return Status::Invalid(fmt::format(
+        "need at least 2 complete states each followed by another complete state at most {} model step{} later "
+        "to normalize; found {} complete states and {} such pairs",
+        reach, reach == 1 ? "" : "s", n, ni));
   }
   Normalization out;
   out.mean = sum / n;
@@ -106,27 +114,56 @@ std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& 
   constexpr std::size_t kChunk = 1024;
   MlpTypes<float>::Mat X, Y;
   FlowMapCache<float> cache;
-  std::vector<std::size_t> starts;
+  struct Scored {
+    std::size_t start, target;  // target: the first grid point after start holding a sample
+  };
+  std::vector<Scored> items;
+  std::vector<std::size_t> live, next_live;  // items still being unrolled, in column order
+  const auto score = [&](Eigen::Index col, std::size_t target) {
+    const double* y = grid.row(target);
+    for (int k = 0; k < c; ++k) {
+      if ((grid.mask[target] >> k) & 1U) continue;
+      const double e = (Y(k, col) - y[k]) / model.stddev()[k];
+      sum[static_cast<std::size_t>(k)] += e * e;
+      count[static_cast<std::size_t>(k)] += 1;
+    }
+  };
   for (std::size_t begin = 0; begin < trajectories.size(); begin += kChunk) {
-    starts.clear();
+    items.clear();
     for (std::size_t k = begin; k < std::min(begin + kChunk, trajectories.size()); ++k) {
       const auto s = static_cast<std::size_t>(trajectories[k].start);
-      if (s + 1 < grid.size() && grid.present[s + 1]) starts.push_back(s);
-    }
-    if (starts.empty()) continue;
-    X.resize(c, static_cast<Eigen::Index>(starts.size()));
-    for (std::size_t b = 0; b < starts.size(); ++b) {
-      X.col(static_cast<Eigen::Index>(b)) = Eigen::Map<const Eigen::VectorXd>(grid.row(starts[b]), c).cast<float>();
-    }
-    model.Forward(X, &Y, &cache);
-    for (std::size_t b = 0; b < starts.size(); ++b) {
-      const double* y = grid.row(starts[b] + 1);
-      for (int k = 0; k < c; ++k) {
-        if ((grid.mask[starts[b] + 1] >> k) & 1U) continue;
-        const double e = (Y(k, static_cast<Eigen::Index>(b)) - y[k]) / model.stddev()[k];
-        sum[static_cast<std::size_t>(k)] += e * e;
-        count[static_cast<std::size_t>(k)] += 1;
+      const std::size_t last = std::min(s + static_cast<std::size_t>(std::max(trajectories[k].horizon, 0)),
+                                        grid.size() == 0 ? 0 : grid.size() - 1);
+      for (std::size_t j = s + 1; j <= last; ++j) {
+        if (grid.present[j]) {
+          items.push_back({s, j});
+          break;
+        }
       }
+    }
+    if (items.empty()) continue;
+    X.resize(c, static_cast<Eigen::Index>(items.size()));
+    live.resize(items.size());
+    for (std::size_t b = 0; b < items.size(); ++b) {
+      X.col(static_cast<Eigen::Index>(b)) = Eigen::Map<const Eigen::VectorXd>(grid.row(items[b].start), c).cast<float>();
+      live[b] = b;
+    }
+    // Step every live column once; score those whose target is reached and
+    // carry the others (the k-step ones) on to the next step.
+    for (std::size_t step = 1; !live.empty(); ++step) {
+      model.Forward(X, &Y, &cache);
+      next_live.clear();
+      for (std::size_t b = 0; b < live.size(); ++b) {
+        const Scored& item = items[live[b]];
+        if (item.target - item.start == step) {
+          score(static_cast<Eigen::Index>(b), item.target);
+        } else {
+          X.col(static_cast<Eigen::Index>(next_live.size())) = Y.col(static_cast<Eigen::Index>(b));
+          next_live.push_back(live[b]);
+        }
+      }
+      X.conservativeResize(Eigen::NoChange, static_cast<Eigen::Index>(next_live.size()));
+      live.swap(next_live);
     }
   }
   std::vector<double> rmse(static_cast<std::size_t>(c), std::numeric_limits<double>::quiet_NaN());

@@ -9,20 +9,28 @@
 //   L_data = mean over present (step, sample, channel) of ((G^k(x) - y) / s_c)^2
 //
 // with s_c the model's per-channel standard deviation, so channels in
-// different units weigh alike. Constraint terms (DESIGN.md "Learning"), on the
-// first step z -> G(z) of every trajectory, each multiplied by
+// different units weigh alike. Constraint terms (DESIGN.md "Learning"), once
+// per trajectory, each multiplied by
 //   w(i) = weight / (1 + exp(-(i / iterations - mid) / width)):
-//   velocity:  mean ((f(G(z)) - f(y1)) / fs_c)^2      (y1 the complete target one step on)
+//   velocity:  mean ((f(G^k(z)) - f(y_k)) / fs_c)^2
+//              at the trajectory's FIRST present target y_k, k steps on (k = 1
+//              on gap-free data: f(G(z)) against f(y1)); the mean is over the
+//              trajectories whose first target is complete (f needs every
+//              channel), the others have no velocity term
 //   residual:  mean ((G(z) - z - dt f(z) - mu dt (f(G(z)) - f(z))) / (dt fs_c))^2
+//              on the first step z -> G(z), whatever the gap
 // where fs_c is the standard deviation of f_c over the training states, so
 // every term is a squared relative error of comparable size. Both
-// backpropagate through f's Jacobian (central differences, Dynamics::Jacobian);
-// the residual term also trains mu.
+// backpropagate through f's Jacobian (central differences, Dynamics::Jacobian)
+// and, for the velocity term at k > 1, through the composition G^k as the
+// data term does; the residual term also trains mu.
 //
 // Then global-norm clipping, AdamW with decoupled weight decay and a cosine
-// learning-rate schedule. Validation (one-step normalized RMSE per channel on
-// the validation trajectories) runs every `validate_every` iterations and at
-// the end; early stopping keeps the best weights seen.
+// learning-rate schedule. Validation (OneStepError below: the normalized RMSE
+// per channel at each validation trajectory's first target, one step on for
+// gap-free data, k steps on through G^k across a gap) runs every
+// `validate_every` iterations and at the end; early stopping keeps the best
+// weights seen.
 //
 // Threads: Fit runs on the calling thread and uses exactly one thread (Eigen
 // is built without OpenMP here); `training.threads` is the number of such
@@ -91,13 +99,28 @@ struct FitResult {
   std::int64_t validation_trajectories = 0;
 };
 
-// Per-channel mean and std of the complete states of the training span, and
-// increment scale S_c = std of one-step increments / dt. Fails when there are
-// fewer than 2 complete states or a channel is constant.
+// Per-channel mean and std of the complete states of the grid span [0, end),
+// and the increment scale S_c = std of the per-step increments / dt, gap-aware:
+// each complete state x_i is paired with the next complete state x_j at most
+// `max_gap` steps later (k = j - i, both before `end`; no pair when there is
+// none), and its increment per step is (x_j - x_i) / k. Callers pass the
+// feed's model.max_gap; the default 1 pairs consecutive states only. On
+// consecutive complete states (k = 1 everywhere) the result is exactly, bit
+// for bit, that of max_gap = 1. Across a gap, (x_j - x_i) / k is the mean of
+// the k one-step increments in between (they telescope); for a smooth flow
+// over a few steps it equals the one-step increment at the midpoint up to
+// curvature terms of relative order (k dt / tau)^2, tau the flow's shortest
+// time scale (the k-step chord is shorter than the path of k one-step
+// increments only by such terms), so its std estimates the one-step
+// increment scale, usually slightly low. S is a scale, not a fit: the
+// network absorbs a constant factor. Fails (kInvalidArgument) when there are
+// fewer than 2 complete states, fewer than 2 such pairs, or a channel is
+// constant.
 struct Normalization {
   Eigen::VectorXd mean, stddev, increment_scale;
 };
-[[nodiscard]] Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t end, double dt);
+[[nodiscard]] Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t end, double dt,
+                                                         int max_gap = 1);
 
 // Trains `model` in place from its current weights (a warm start; for a cold
 // start, SetNormalization and InitRandom first). Fails (kInvalidArgument) on
@@ -108,8 +131,20 @@ struct Normalization {
                                     const FitOptions& options,
                                     const std::function<void(const FitProgress&)>& progress = {});
 
-// One-step normalized RMSE per channel of `model` on the first step of the
-// given trajectories (targets present at start + 1). NaN where no target.
+// The trainer's validation error: normalized RMSE per channel of `model` at
+// the FIRST present target of each given trajectory. For a trajectory from
+// the complete state x_s, with j the first grid point in (s, s + horizon]
+// holding a sample and k = j - s, the prediction is G^k(x_s) (k model steps,
+// in float) and each channel present at j contributes
+//   ((G^k(x_s)_c - x_j,c) / s_c)^2,   s_c = model.stddev()[c],
+// so RMSE_c = sqrt(mean of those over the trajectories). On gap-free data
+// (every start + 1 holds a sample) k = 1 throughout and this is the one-step
+// error, as the name says; across a gap it is a k-step error (k <= the
+// feed's model.max_gap on BuildTrajectories' output), typically larger than
+// the one-step error of the same model, so compare values only on the same
+// trajectories (champion/challenger does). Trajectories without a present
+// target within their horizon (or with horizon 0) are skipped. NaN for a
+// channel with no target at all.
 std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& grid,
                                  const std::vector<Trajectory>& trajectories);
 

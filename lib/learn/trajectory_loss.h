@@ -1,6 +1,7 @@
 // The training loss of a batch of trajectories and its exact gradient:
-// the data term over every unrolled step and the physics constraint terms on
-// the first step (formulas in learn/trainer.h). Templated so the trainer runs
+// the data term over every unrolled step and the physics constraint terms
+// once per trajectory (velocity at its first present target, k steps on;
+// residual on its first step; formulas in learn/trainer.h). Templated so the trainer runs
 // it in float and the gradient checks in double.
 #pragma once
 
@@ -46,10 +47,12 @@ class TrajectoryLoss {
 
  private:
   using Mat = typename MlpTypes<T>::Mat;
-  LossTerms AddConstraints(const FlowMap<T>& model, const GridSeries& grid, const std::vector<Trajectory>& batch,
-                           const LossWeights& weights, const Dynamics& dynamics, const DynamicsTable& table,
-                           const Mat& G, Mat* dG, typename MlpTypes<T>::VecMap dmu);
+  void AddConstraints(const FlowMap<T>& model, const GridSeries& grid, const std::vector<Trajectory>& batch,
+                      const LossWeights& weights, const Dynamics& dynamics, const DynamicsTable& table, int k,
+                      const Mat& G, Mat* dG, typename MlpTypes<T>::VecMap dmu, LossTerms* terms);
   std::vector<Mat> x_;  // x_[k] = G^k(x0)
+  std::vector<int> first_target_;  // per batch column: step of the first present target (0: none)
+  std::vector<char> velocity_at_;  // per step: some column has a complete first target there
   std::vector<FlowMapCache<T>> caches_;
   Mat dy_, dx_;
 };

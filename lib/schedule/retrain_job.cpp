@@ -125,7 +125,7 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
                                set.train.size());
       return out;
     }
-    auto norm = ComputeNormalization(grid, set.validation_begin, dt);
+    auto norm = ComputeNormalization(grid, set.validation_begin, dt, feed.model.max_gap);
     if (!norm.ok()) {
       out.reason = norm.status().message();
       return out;
@@ -150,7 +150,7 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
                                FormatRfc3339(in.active->trained_to));
       return out;
     }
-    auto norm = ComputeNormalization(grid, set.validation_begin, dt);
+    auto norm = ComputeNormalization(grid, set.validation_begin, dt, feed.model.max_gap);
     if (norm.ok() && LeftRange(model, *norm, &refit_note)) {
       if (Status s = model.Refit(norm->mean.cast<float>(), norm->stddev.cast<float>(),
                                  norm->increment_scale.cast<float>());

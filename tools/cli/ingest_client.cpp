@@ -67,6 +67,13 @@ Status IngestClient::Send(const std::string& line) {
   return Status::Ok();
 }
 
+Status IngestClient::Flush() {
+  while (out_pos_ < out_.size()) {
+    if (Status s = Pump(false); !s.ok()) return s;
+  }
+  return Status::Ok();
+}
+
 Status IngestClient::Finish() {
   while (out_pos_ < out_.size()) {
     if (Status s = Pump(false); !s.ok()) return s;

@@ -24,6 +24,9 @@ class IngestClient {
   [[nodiscard]] Status Connect(const std::string& endpoint, const std::string& token = {}, int window = 1000);
   // Queues one line (without newline). Blocks while `window` lines await replies.
   [[nodiscard]] Status Send(const std::string& line);
+  // Writes every queued byte now (a paced sender calls it after each line,
+  // so samples reach the daemon when they are due, not when a buffer fills).
+  [[nodiscard]] Status Flush();
   // Sends what is queued, half-closes, and reads every remaining reply.
   [[nodiscard]] Status Finish();
 

@@ -131,8 +131,10 @@ int RunReplay(const ReplayArgs& a) {
       }
     }
     file_line.push_back(line_no);
-    if (Status s = client.Send(line); !s.ok()) {
-      failed = s;
+    Status sent = client.Send(line);
+    if (sent.ok() && a.speed > 0) sent = client.Flush();  // paced: on the wire when due
+    if (!sent.ok()) {
+      failed = sent;
       break;
     }
     const std::string detail =

@@ -1,6 +1,8 @@
 // lyapcast score: how well a model file fits a file of samples. The one-step
-// error per channel, by the trainer's own validation measure (OneStepError),
-// so the numbers compare with a model's validation_error.
+// error per channel, by the trainer's own validation measure (OneStepError)
+// on one-step pairs only (max_gap 1, where its first target is one step on),
+// so the numbers compare with the validation_error of a model validated on
+// gap-free data (across gaps the trainer's validation error is a k-step one).
 #include <CLI/CLI.hpp>
 #include <fmt/format.h>
 
@@ -246,8 +248,10 @@ void AddScoreCommand(CLI::App& app, int* exit_code) {
       "Resamples the input onto the model's step grid and reports, per channel and overall (the mean over\n"
       "channels), the one-step error: the RMSE of G(x_t) against x_{t+dt} divided by the channel's standard\n"
       "deviation stored in the model (that of its training data), the trainer's validation measure, so the\n"
-      "numbers compare with the model's validation_error. Pairs run from a complete sample to a sample one\n"
-      "model step later; a channel missing in the later one is left out of that channel's error.\n"
+      "numbers compare with the model's validation_error when it was validated on gap-free data (across\n"
+      "gaps the trainer validates at the first sample k steps on, through G^k: a larger, k-step error).\n"
+      "Pairs run from a complete sample to a sample one model step later; a channel missing in the later\n"
+      "one is left out of that channel's error.\n"
       "The model file alone gives the channels and step: without --config the input's lines are read as\n"
       "the model's feed (its metadata, or --feed ID), values in the model's channel order. With --config the\n"
       "feed's channels must equal the model's; lines of other feeds are then skipped.\n"

@@ -229,7 +229,9 @@ int RunSimulate(const SimulateArgs& a) {
           const auto due = wall_start + std::chrono::microseconds(static_cast<std::int64_t>(offset / a.speed));
           std::this_thread::sleep_until(due);
         }
-        if (Status s = client.Send(line); !s.ok()) return progress.Finish(), PrintError(kCmd, s.message()), kExitFailure;
+        Status s = client.Send(line);
+        if (s.ok() && a.speed > 0) s = client.Flush();
+        if (!s.ok()) return progress.Finish(), PrintError(kCmd, s.message()), kExitFailure;
       } else {
         std::fputs(line.c_str(), out);
         std::fputc('\n', out);

@@ -66,7 +66,7 @@ int RunTrain(const TrainArgs& a) {
                feed.id.c_str(), file->samples.size(), grid.size(), static_cast<long long>(grid.off_grid),
                set.train.size(), set.validation.size(), static_cast<long long>(set.gap_pairs),
                static_cast<long long>(set.skipped_gaps));
-  auto norm = ComputeNormalization(grid, set.validation_begin, dt);
+  auto norm = ComputeNormalization(grid, set.validation_begin, dt, topt.max_gap);
   if (!norm.ok()) return PrintError(kCmd, norm.status().message()), kExitUsage;
   auto created = FlowMap<float>::Create(feed.model, channels, dt);
   if (!created.ok()) return PrintError(kCmd, created.status().message()), kExitUsage;
@@ -104,12 +104,34 @@ int RunTrain(const TrainArgs& a) {
 
   std::printf("trained %d iterations in %.1f s (%s); best validation at iteration %d\n", fit->iterations,
               fit->seconds, FitStopName(fit->stop), fit->best_iteration);
+  // The one-step error on the held-out trajectories with a sample one step
+  // on (what `lyapcast score` measures on the same span). The trainer's
+  // validation error (OneStepError on every held-out trajectory, stored as
+  // validation_error) equals it on gap-free data; across gaps it also scores
+  // the first targets k steps on, so it is then reported as well.
+  std::vector<Trajectory> one_step;
+  for (const Trajectory& t : set.validation) {
+    if (grid.present[static_cast<std::size_t>(t.start) + 1]) one_step.push_back(t);
+  }
+  const std::vector<double> one_step_error =
+      one_step.size() == set.validation.size() ? fit->validation_rmse : OneStepError(model, grid, one_step);
   std::printf("one-step validation error per channel (RMSE / channel std, and in channel units):\n");
   for (int c = 0; c < channels; ++c) {
-    const double e = fit->validation_rmse[static_cast<std::size_t>(c)];
+    const double e = one_step_error[static_cast<std::size_t>(c)];
     const std::string unit = static_cast<std::size_t>(c) < feed.units.size() ? feed.units[static_cast<std::size_t>(c)] : "";
     std::printf("  %-16s %.3e   %.4g %s\n", feed.channels[static_cast<std::size_t>(c)].c_str(), e,
                 e * static_cast<double>(model.stddev()[c]), unit.c_str());
+  }
+  if (one_step.size() != set.validation.size()) {
+    std::string per_channel;
+    for (int c = 0; c < channels; ++c) {
+      per_channel += fmt::format(" {}={:.3e}", feed.channels[static_cast<std::size_t>(c)],
+                                 fit->validation_rmse[static_cast<std::size_t>(c)]);
+    }
+    std::printf("validation error %.3e (stored as validation_error; at each held-out trajectory's first target, "
+                "%zu of %zu of them k steps on through G^k across a gap):%s\n",
+                fit->validation_error, set.validation.size() - one_step.size(), set.validation.size(),
+                per_channel.c_str());
   }
   if (residual) {
     std::printf("learned residual correction mu:");
