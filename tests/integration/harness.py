@@ -29,7 +29,8 @@ FEED_YAML = """
 """
 
 
-def base_config(db_path, extra=""):
+def daemon_config(db_path, feeds, extra=""):
+    """A config on ephemeral loopback ports; `feeds` is YAML list text, `extra` more top-level keys."""
     return f"""
 listen:
   ingest: 127.0.0.1:0
@@ -38,7 +39,11 @@ storage:
   path: {db_path}
   retention: 6h
 {extra}
-feeds:{FEED_YAML}"""
+feeds:{feeds}"""
+
+
+def base_config(db_path, extra=""):
+    return daemon_config(db_path, FEED_YAML, extra)
 
 
 class Daemon:

@@ -36,7 +36,7 @@ import unittest
 import urllib.parse
 
 import harness
-from harness import Daemon, IngestClient
+from harness import Daemon, IngestClient, daemon_config
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
@@ -80,15 +80,7 @@ SMALL = """
 
 
 def config(db, feeds, extra=""):
-    return f"""
-listen:
-  ingest: 127.0.0.1:0
-  http: 127.0.0.1:0
-storage:
-  path: {db}
-  retention: 6h
-{extra}
-feeds:{feeds}"""
+    return daemon_config(db, feeds, extra)
 
 
 def run_cli(*args, timeout=120):

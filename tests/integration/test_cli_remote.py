@@ -24,7 +24,7 @@ import time
 import unittest
 import urllib.request
 
-from harness import Daemon
+from harness import Daemon, daemon_config
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
@@ -52,15 +52,7 @@ IDLE = """
 
 
 def config(db, feeds, extra=""):
-    return f"""
-listen:
-  ingest: 127.0.0.1:0
-  http: 127.0.0.1:0
-storage:
-  path: {db}
-  retention: 6h
-{extra}
-feeds:{feeds}"""
+    return daemon_config(db, feeds, extra)
 
 
 def run(*args, code=0, timeout=300):

@@ -26,7 +26,7 @@ import unittest
 import urllib.error
 import urllib.request
 
-from harness import Daemon, IngestClient
+from harness import Daemon, IngestClient, daemon_config
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 CHROMIUM = "/usr/bin/chromium"
@@ -64,18 +64,7 @@ IDLE_FEED = """
 
 
 def config(db, feeds, extra=""):
-    return f"""
-listen:
-  ingest: 127.0.0.1:0
-  http: 127.0.0.1:0
-storage:
-  path: {db}
-  retention: 6h
-training:
-  threads: 1
-  lockstep: true
-{extra}
-feeds:{feeds}"""
+    return daemon_config(db, feeds, "training:\n  threads: 1\n  lockstep: true\n" + extra)
 
 
 def run(*args):
