@@ -171,6 +171,22 @@ class TrainedDaemonTest(LockstepDaemon):
         bad = run("check", "--no-such-flag", code=3).stdout
         self.assertTrue(bad.startswith("LYAPCAST UNKNOWN - "), bad)
 
+    def test_check_while_paused_judges_neither_data_age_nor_drift(self):
+        def post(path):
+            req = urllib.request.Request(f"{self.url}/v1/feeds/lorenz/{path}", data=b"", method="POST")
+            with urllib.request.urlopen(req, timeout=30) as r:
+                self.assertEqual(r.status, 200)
+
+        post("pause")
+        try:
+            # A plant shutdown: thresholds that would be CRITICAL do not apply.
+            out = self.cli("check", "--feed", "lorenz", "--data-age-crit", "0s", "--drift-crit", "0", code=0).stdout
+            self.assertTrue(out.startswith("LYAPCAST OK - lorenz"), out)
+            self.assertIn("paused", out)
+        finally:
+            post("resume")
+        self.cli("check", "--feed", "lorenz", "--data-age-crit", "0s", code=2)
+
     def test_check_every_feed_worst_wins_unknown_only_beats_ok(self):
         # lorenz OK, idle has no data: UNKNOWN beats OK.
         out = self.cli("check", code=3).stdout
