@@ -7,7 +7,6 @@
 
 #include <gtest/gtest.h>
 
-#include "physics/integrators.h"
 #include "support/feeds.h"
 #include "support/temp_dir.h"
 
@@ -24,21 +23,6 @@ FeedConfig Feed() {
   f.retrain.min_pairs = 500;
   f.retrain.learning_rate = 3e-3;
   return f;
-}
-
-// Lorenz-63 samples every 10 ms for `n` steps, from data time t0.
-std::vector<FeedSample> Lorenz(int n, DataTime t0) {
-  const Dynamics d = testing::MustCompile(testing::LorenzFeed());
-  const Rhs f = [&d](const double* x, double* dx) { d.Eval(x, dx); };
-  Eigen::VectorXd x(3);
-  x << 1, 1, 1;
-  x = IntegrateRk4(f, x, 20.0, 2e-3);
-  std::vector<FeedSample> out;
-  for (int i = 0; i < n; ++i) {
-    out.push_back({0, Sample{t0 + i * 10'000LL, {x[0], x[1], x[2]}, 0}});
-    x = IntegrateRk4(f, x, 0.01, 2e-3);
-  }
-  return out;
 }
 
 struct Db {
@@ -63,7 +47,7 @@ struct Db {
 TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
   Db db;
   const FeedConfig feed = Feed();
-  db.Add(Lorenz(300, 0));
+  db.Add(testing::LorenzSamples(300, 0));
   RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 3'000'000, std::nullopt, 1, true, nullptr};
   auto early = RunRetrain(*db.reader, db.registry, in);
   ASSERT_TRUE(early.ok());
@@ -71,7 +55,7 @@ TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
   EXPECT_NE(early->reason.find("500 training pairs"), std::string::npos) << early->reason;
   EXPECT_FALSE(db.registry.Active(0)->has_value());
 
-  db.Add(Lorenz(1000, 3'000'000));
+  db.Add(testing::LorenzSamples(1000, 3'000'000));
   in.until = 13'000'000;
   auto first = RunRetrain(*db.reader, db.registry, in);
   ASSERT_TRUE(first.ok()) << first.status().ToString();
@@ -87,11 +71,11 @@ TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
 TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
   Db db;
   FeedConfig feed = Feed();
-  db.Add(Lorenz(1500, 0));
+  db.Add(testing::LorenzSamples(1500, 0));
   RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 15'000'000, std::nullopt, 1, true, nullptr};
   ASSERT_EQ(RunRetrain(*db.reader, db.registry, in)->verdict, RetrainVerdict::kPromoted);
 
-  db.Add(Lorenz(500, 15'000'000));
+  db.Add(testing::LorenzSamples(500, 15'000'000));
   in.until = 20'000'000;
   in.active = *db.registry.Active(0).value();
   auto warm = RunRetrain(*db.reader, db.registry, in);
@@ -103,7 +87,7 @@ TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
 
   // A candidate trained with a learning rate that wrecks it must not be served.
   const std::int64_t active_before = (*db.registry.Active(0).value()).version;
-  db.Add(Lorenz(500, 20'000'000));
+  db.Add(testing::LorenzSamples(500, 20'000'000));
   feed.retrain.learning_rate = 5.0;
   feed.retrain.clip = 1e6;
   in.until = 25'000'000;
@@ -120,7 +104,7 @@ TEST(RunRetrain, LockstepJobsAreDeterministicToTheByte) {
   for (std::string& file : files) {
     Db db;
     const FeedConfig feed = Feed();
-    db.Add(Lorenz(1200, 0));
+    db.Add(testing::LorenzSamples(1200, 0));
     RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 12'000'000, std::nullopt, 7, true, nullptr};
     ASSERT_EQ(RunRetrain(*db.reader, db.registry, in)->verdict, RetrainVerdict::kPromoted);
     file = (*db.registry.Active(0).value()).file;

@@ -13,7 +13,6 @@
 #include <mutex>
 #include <thread>
 
-#include "physics/integrators.h"
 #include "support/feeds.h"
 #include "support/temp_dir.h"
 
@@ -34,21 +33,6 @@ Config LorenzConfig() {
   f.retrain.max_interval = 4 * kMicrosPerSecond;
   c.feeds.push_back(f);
   return c;
-}
-
-// Lorenz-63 samples every 10 ms for `n` steps, from data time t0.
-std::vector<FeedSample> Lorenz(int n, DataTime t0) {
-  const Dynamics d = testing::MustCompile(testing::LorenzFeed());
-  const Rhs f = [&d](const double* x, double* dx) { d.Eval(x, dx); };
-  Eigen::VectorXd x(3);
-  x << 1, 1, 1;
-  x = IntegrateRk4(f, x, 20.0, 2e-3);
-  std::vector<FeedSample> out;
-  for (int i = 0; i < n; ++i) {
-    out.push_back({0, Sample{t0 + i * 10'000LL, {x[0], x[1], x[2]}, 0}});
-    x = IntegrateRk4(f, x, 0.01, 2e-3);
-  }
-  return out;
 }
 
 // A store, its writer and a scheduler subscribed to it, as the daemon wires them.
@@ -150,7 +134,7 @@ std::vector<Version> Versions(const fs::path& db, const Config& config) {
 
 TEST(Scheduler, LockstepReplayGivesTheSameRetrainPointsAndModelBytesAtAnyGrouping) {
   const Config config = LorenzConfig();
-  const std::vector<FeedSample> data = Lorenz(2000, 1'000'000'000'000'000);
+  const std::vector<FeedSample> data = testing::LorenzSamples(2000, 1'000'000'000'000'000);
   std::vector<Version> runs[2];
   const std::pair<std::size_t, int> groupings[2] = {{7, 16}, {997, 4096}};  // (chunk, commit_batch)
   for (int r = 0; r < 2; ++r) {
@@ -196,7 +180,7 @@ TEST(Scheduler, TriggersDuringAJobAreCoalescedAndADueJobWaits) {
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
   Rig rig(config, db, /*lockstep=*/false, 4096);
-  rig.Send(Lorenz(600, 0), 600);  // past the first due time (5 s): the cold start runs
+  rig.Send(testing::LorenzSamples(600, 0), 600);  // past the first due time (5 s): the cold start runs
   rig.Drain();
   for (int i = 0; i < 2000 && !rig.scheduler().schedule(0).running; ++i) {
     std::this_thread::sleep_for(std::chrono::milliseconds(5));
@@ -223,7 +207,7 @@ TEST(Scheduler, ACadenceJobDueWhileAnotherRunsWaitsAndSaysSo) {
   Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   Rig rig(config, dir.path() / "w.db", /*lockstep=*/false, 4096);
-  rig.Send(Lorenz(600, 0), 600);
+  rig.Send(testing::LorenzSamples(600, 0), 600);
   rig.Drain();
   const auto settled = [&rig] {
     const FeedSchedule s = rig.scheduler().schedule(0);
@@ -237,7 +221,7 @@ TEST(Scheduler, ACadenceJobDueWhileAnotherRunsWaitsAndSaysSo) {
 
   // No job runs now, so the config may change: the next job runs until Stop().
   config.feeds[0].retrain.iterations = 2'000'000;
-  rig.Send(Lorenz(100, 6'000'000), 100);  // new data, short of the due time
+  rig.Send(testing::LorenzSamples(100, 6'000'000), 100);  // new data, short of the due time
   rig.Drain();
   ASSERT_LT(7'000'000, due);
   ASSERT_TRUE(rig.scheduler().Trigger(0, TriggerKind::kOperator, "test").ok());
@@ -246,7 +230,7 @@ TEST(Scheduler, ACadenceJobDueWhileAnotherRunsWaitsAndSaysSo) {
   }
   ASSERT_TRUE(rig.scheduler().schedule(0).running);
   EXPECT_FALSE(rig.Logged("waits for the running job"));
-  rig.Send(Lorenz(400, 7'000'000), 400);  // data to 11 s: past the cadence due time
+  rig.Send(testing::LorenzSamples(400, 7'000'000), 400);  // data to 11 s: past the cadence due time
   rig.Drain();
   EXPECT_TRUE(rig.Logged("waits for the running job"));
   EXPECT_TRUE(rig.scheduler().schedule(0).pending);
@@ -263,7 +247,7 @@ TEST(Scheduler, ARejectedCandidateIsNeverServed) {
   const fs::path db = dir.path() / "w.db";
   {
     Rig rig(config, db, /*lockstep=*/true, 4096);
-    rig.Send(Lorenz(1500, 0), 100);
+    rig.Send(testing::LorenzSamples(1500, 0), 100);
     rig.Drain();
     const FeedSchedule s = rig.scheduler().schedule(0);
     EXPECT_EQ(s.promoted, 1u);
@@ -285,7 +269,7 @@ TEST(Scheduler, PrunesVersionsBeyondKeepModelsButNeverTheActiveOne) {
   const fs::path db = dir.path() / "w.db";
   {
     Rig rig(config, db, /*lockstep=*/true, 4096, /*keep_models=*/2);
-    rig.Send(Lorenz(2000, 0), 100);
+    rig.Send(testing::LorenzSamples(2000, 0), 100);
     rig.Drain();
     EXPECT_GE(rig.scheduler().schedule(0).rejected, 3u);
     EXPECT_TRUE(rig.Logged("beyond keep_models 2"));
@@ -302,7 +286,7 @@ TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
   Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
   ASSERT_TRUE(rig.scheduler().SetPaused(0, true).ok());
   EXPECT_TRUE(rig.scheduler().paused(0));
-  rig.Send(Lorenz(1200, 0), 100);  // well past the first due time
+  rig.Send(testing::LorenzSamples(1200, 0), 100);  // well past the first due time
   rig.Drain();
   EXPECT_EQ(rig.scheduler().schedule(0).last_job, std::nullopt);
   EXPECT_EQ(rig.scheduler().Trigger(0, TriggerKind::kOperator, "x").status().code(),
@@ -318,7 +302,7 @@ TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
   Rig rig(config, db, /*lockstep=*/true, 4096);
-  rig.Send(Lorenz(1200, 0), 100);
+  rig.Send(testing::LorenzSamples(1200, 0), 100);
   rig.Drain();
   ASSERT_GE(rig.scheduler().active(0)->record.version, 2);
   ASSERT_TRUE(rig.scheduler().Activate(0, 1, "roll back for a test").ok());
@@ -327,7 +311,7 @@ TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
   EXPECT_EQ(rig.scheduler().Activate(0, 99, "x").code(), StatusCode::kNotFound);
   EXPECT_EQ(rig.scheduler().active(0)->record.version, 1) << "a failed activation changes nothing";
 
-  rig.Send(Lorenz(800, 12'000'000), 100);
+  rig.Send(testing::LorenzSamples(800, 12'000'000), 100);
   rig.Drain();
   const FeedSchedule s = rig.scheduler().schedule(0);
   ASSERT_TRUE(s.last_job.has_value());
@@ -350,7 +334,7 @@ TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
   const Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
-  const std::vector<FeedSample> data = Lorenz(2000, 0);
+  const std::vector<FeedSample> data = testing::LorenzSamples(2000, 0);
   std::int64_t active_before = 0;
   DataTime last_before = 0, due_before = 0;
   {

@@ -9,7 +9,9 @@
 #include <vector>
 
 #include "config/config.h"
+#include "core/sample.h"
 #include "physics/dynamics.h"
+#include "physics/integrators.h"
 
 namespace lyapcast::testing {
 
@@ -46,6 +48,23 @@ inline Dynamics MustCompile(const FeedConfig& feed) {
     std::abort();
   }
   return std::move(r).value();
+}
+
+// Lorenz-63 samples of feed 0 every 10 ms for `n` steps from data time t0,
+// starting on the attractor (20 time units of transient from (1, 1, 1));
+// RK4 with 2 ms steps. Every call gives the same trajectory.
+inline std::vector<FeedSample> LorenzSamples(int n, DataTime t0) {
+  const Dynamics d = MustCompile(LorenzFeed());
+  const Rhs f = [&d](const double* x, double* dx) { d.Eval(x, dx); };
+  Eigen::VectorXd x(3);
+  x << 1, 1, 1;
+  x = IntegrateRk4(f, x, 20.0, 2e-3);
+  std::vector<FeedSample> out;
+  for (int i = 0; i < n; ++i) {
+    out.push_back({0, Sample{t0 + i * 10'000LL, {x[0], x[1], x[2]}, 0}});
+    x = IntegrateRk4(f, x, 0.01, 2e-3);
+  }
+  return out;
 }
 
 }  // namespace lyapcast::testing
