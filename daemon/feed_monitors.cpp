@@ -61,6 +61,9 @@ double ValidationRms(const ModelRecord& r) {
 void FeedMonitors::SyncModel(Feed& f) {
   std::shared_ptr<const ActiveModel> active = scheduler_.active(f.index);
   if (active == f.model) return;
+  // A cadence or drift retrain warm-starts from the model it replaces; the
+  // change test may then carry on (DriftMonitor::Handover).
+  const bool successor = active && f.model && active->record.parent == f.model->record.version;
   f.model = active;
   if (!active) {
     (void)f.monitor.SetModel(nullptr, 0, std::numeric_limits<double>::quiet_NaN(), 0, 0);
@@ -70,8 +73,8 @@ void FeedMonitors::SyncModel(Feed& f) {
   auto created = ParseRfc3339(r.created_at);
   const DataTime promoted_wall = created.ok() ? *created : WallNowMicros();
   Status s = f.monitor.SetModel(std::shared_ptr<const FlowMap<float>>(active, &active->model), r.version,
-                                ValidationRms(r), r.trained_to,
-                                promoted_wall);
+                                ValidationRms(r), r.trained_to, promoted_wall,
+                                successor ? DriftMonitor::Handover::kSuccessor : DriftMonitor::Handover::kFresh);
   if (!s.ok()) spdlog::error("feed {}: the drift monitor cannot use version {}: {}", f.config->id, r.version,
                              s.message());
 }

@@ -31,7 +31,8 @@ DriftMonitor::DriftMonitor(const FeedConfig& feed)
       change_(change_options_) {}
 
 Status DriftMonitor::SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
-                              double validation_error, DataTime trained_to, DataTime promoted_wall) {
+                              double validation_error, DataTime trained_to, DataTime promoted_wall,
+                              Handover handover) {
   if (model != nullptr && (model->empty() || model->channels() != channels_)) {
     return Status::Invalid(fmt::format("model version {} has {} channels, the feed {}", version,
                                        model->empty() ? 0 : model->channels(), channels_));
@@ -41,18 +42,27 @@ Status DriftMonitor::SetModel(std::shared_ptr<const FlowMap<float>> model, std::
   validation_error_ = validation_error;
   trained_to_ = trained_to;
   promoted_wall_ = promoted_wall;
-  Reset();
+  const bool carry = handover == Handover::kSuccessor && model_ != nullptr && alarms_ == 0;
+  if (carry) {
+    ResetScores();
+  } else {
+    Reset();
+  }
   return Status::Ok();
 }
 
 void DriftMonitor::Reset() {
+  ResetScores();
+  change_.Reset();
+  block_sum_ = 0;
+  block_count_ = 0;
+}
+
+void DriftMonitor::ResetScores() {
   scored_ = 0;
   last_error_ = 0;
   ewma_sq_ = 0;
   window_sq_.fill(0);
-  change_.Reset();
-  block_sum_ = 0;
-  block_count_ = 0;
   drift_flag_ = false;
   flagged_at_.reset();
   alarms_ = 0;

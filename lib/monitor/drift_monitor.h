@@ -40,6 +40,20 @@
 // estimate so a persisting or new change alarms again later. The flag is
 // cleared only by SetModel or Reset.
 //
+// A feed retrained every few tens of samples would keep the change test in
+// its warm-up forever if every new model restarted it (a 2 Hz feed
+// retrained every 30 s scores 60 samples per model; the warm-up needs
+// kWarmupBlocks * kBlock = 300). So a SUCCESSOR (a model warm-started from
+// the one it replaces, after a quiet spell: no alarm under the outgoing
+// model) carries the change test over: its warm-up progress, in-control
+// estimate, statistic and partial block. Its error level is close to its
+// parent's, and an in-control estimate that spans several successive models
+// also spans their spread. After an alarm, or for any other model (the
+// first one, an operator's activation of an older version), the test starts
+// afresh: the regime or the model changed, so the old level no longer says
+// what is normal. The per-model scores (EWMA, window, drift ratio, alarms)
+// always restart with a new model.
+//
 // Not thread-safe: the daemon serializes calls (e.g. one mutex per feed).
 // Allocation: none per Observe after the first scored sample.
 #pragma once
@@ -102,9 +116,16 @@ class DriftMonitor {
   // `feed` need not outlive the monitor. Starts without a model, unpaused.
   explicit DriftMonitor(const FeedConfig& feed);
 
-  // A new active model (null: none). Resets the scores, the change test, the
-  // drift flag and the per-model alarm count; keeps the arrival record and
-  // the previous sample. The monitor shares ownership of the model (the
+  // How a new model relates to the one it replaces (see the header comment).
+  enum class Handover {
+    kFresh,      // restart the change test
+    kSuccessor,  // warm-started from the outgoing model: carry the change test over unless it alarmed
+  };
+
+  // A new active model (null: none). Resets the scores, the drift flag and
+  // the per-model alarm count, and the change test unless `handover` is
+  // kSuccessor and the outgoing model raised no alarm; keeps the arrival
+  // record and the previous sample. The monitor shares ownership of the model (the
   // daemon can alias its published ActiveModel:
   // std::shared_ptr<const FlowMap<float>>(active, &active->model)).
   // validation_error: the model's one-step error at promotion, normalized
@@ -113,7 +134,8 @@ class DriftMonitor {
   // kInvalidArgument (nothing changed) when the model's channel count is not
   // the feed's.
   [[nodiscard]] Status SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
-                                double validation_error, DataTime trained_to, DataTime promoted_wall);
+                                double validation_error, DataTime trained_to, DataTime promoted_wall,
+                                Handover handover = Handover::kFresh);
 
   // Records one committed sample of this feed that arrived at wall time
   // `arrived_wall` and scores it when the rules above allow. Requires
@@ -140,6 +162,7 @@ class DriftMonitor {
 
  private:
   double RmseWindow() const;
+  void ResetScores();
   bool Consecutive(DataTime from, DataTime to) const;
   double Score(const Sample& s);  // e; requires a model, a complete prev_, a present channel in s
 

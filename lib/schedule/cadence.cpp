@@ -19,14 +19,26 @@ const char* LyapunovSourceName(LyapunovSource s) {
 std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& e, bool has_model) {
   const auto usable = [](const std::optional<double>& v) { return v.has_value() && std::isfinite(*v); };
   const auto positive = [&](const std::optional<double>& v) { return usable(v) && *v > 0; };
-  // A freshly warm-started model can be briefly non-chaotic (its free run
-  // settles on a cycle or a point) while the process is not; pacing by it
-  // would stretch the cadence to max_interval exactly when the process has
-  // just changed. So a positive estimate wins over a non-positive one, in
-  // the order model, dynamics, data.
-  if (has_model && positive(e.model)) return ChosenExponent{*e.model, LyapunovSource::kModel};
-  if (positive(e.dynamics)) return ChosenExponent{*e.dynamics, LyapunovSource::kDynamics};
-  if (positive(e.data)) return ChosenExponent{*e.data, LyapunovSource::kData};
+  // The estimates disagree most right after a change: a freshly
+  // warm-started model's free run can settle on a cycle or linger near a
+  // fixed point (exponent near or below zero) while the process is as
+  // chaotic as ever. Pacing by it stretched the cadence to max_interval
+  // exactly when retraining mattered most (the demo's loop-a in lockstep:
+  // T = 2 300 s from the model just after the jump, 11 s from the
+  // equations). So the cadence follows the LARGEST positive estimate, the
+  // shortest Lyapunov time: retraining too often costs compute, bounded by
+  // min_interval; too rarely costs forecasts. Ties go to the model, then
+  // the dynamics.
+  std::optional<ChosenExponent> best;
+  const auto consider = [&](const std::optional<double>& v, LyapunovSource source) {
+    if (positive(v) && (!best || *v > best->lambda_max)) best = ChosenExponent{*v, source};
+  };
+  if (has_model) consider(e.model, LyapunovSource::kModel);
+  consider(e.dynamics, LyapunovSource::kDynamics);
+  consider(e.data, LyapunovSource::kData);
+  if (best) return best;
+  // None is positive: the model's, else the dynamics', else the data's
+  // (then NextRetrain waits max_interval: no chaos to pace by).
   if (has_model && usable(e.model)) return ChosenExponent{*e.model, LyapunovSource::kModel};
   if (usable(e.dynamics)) return ChosenExponent{*e.dynamics, LyapunovSource::kDynamics};
   if (usable(e.data)) return ChosenExponent{*e.data, LyapunovSource::kData};

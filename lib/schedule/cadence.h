@@ -33,10 +33,10 @@ struct ChosenExponent {
   LyapunovSource source = LyapunovSource::kData;
 };
 
-// The estimate to pace by: the model's when `has_model` and it is known,
-// otherwise the dynamics', otherwise the data's; but a positive estimate
-// wins over a non-positive one (a fresh model can be briefly non-chaotic
-// while the process is not); nullopt when none is known.
+// The estimate to pace by: the largest positive one (the shortest Lyapunov
+// time) among the model's (only when `has_model`), the dynamics' and the
+// data's, ties in that order; when none is positive, the first known in that
+// order; nullopt when none is known. See cadence.cpp for why the largest.
 std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& estimates, bool has_model);
 
 struct CadenceDecision {

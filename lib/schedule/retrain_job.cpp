@@ -1,6 +1,7 @@
 #include "schedule/retrain_job.h"
 
 #include <fmt/format.h>
+#include <simdjson.h>
 
 #include <algorithm>
 #include <cmath>
@@ -28,6 +29,11 @@ std::string JoinErrors(const std::vector<double>& v) {
     s += std::isfinite(v[i]) ? fmt::format("{:.6g}", v[i]) : "null";  // JSON has no NaN
   }
   return s + "]";
+}
+
+// Round-trips exactly ({:.17g}); JSON has no NaN or infinity.
+std::string JsonNumber(const std::optional<double>& v) {
+  return v && std::isfinite(*v) ? fmt::format("{:.17g}", *v) : "null";
 }
 
 // True (with the reason) when the data left the model's normalization.
@@ -236,14 +242,31 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
   record.lyapunov_max = out.lyapunov_per_s;
   record.details = fmt::format(
       R"({{"iterations":{},"seconds":{:.3f},"stop":"{}","train_pairs":{},"validation_pairs":{},)"
-      R"("validation_per_channel":{},"active_error":{},"refit":"{}","trigger":"{}"}})",
+      R"("validation_per_channel":{},"active_error":{},"refit":"{}","trigger":"{}",)"
+      R"("exponents":{{"data":{},"dynamics":{}}}}})",
       out.fit.iterations, out.fit.seconds, FitStopName(out.fit.stop), set.train.size(), set.validation.size(),
       JoinErrors(out.fit.validation_rmse),
-      std::isfinite(out.active_error) ? fmt::format("{:.6g}", out.active_error) : "null", refit_note, in.trigger);
+      std::isfinite(out.active_error) ? fmt::format("{:.6g}", out.active_error) : "null", refit_note, in.trigger,
+      JsonNumber(in.data_exponent), JsonNumber(in.dynamics_exponent));
   record.file = std::move(bytes).value();
   auto version = registry.Insert(record);
   if (!version.ok()) return version.status();
   out.version = *version;
+  return out;
+}
+
+RecordedExponents ParseRecordedExponents(const std::string& details) {
+  RecordedExponents out;
+  simdjson::dom::parser parser;
+  simdjson::dom::element doc;
+  if (parser.parse(details).get(doc) != simdjson::SUCCESS) return out;
+  const auto read = [&](const char* key) -> std::optional<double> {
+    double v = 0;
+    if (doc["exponents"][key].get_double().get(v) != simdjson::SUCCESS || !std::isfinite(v)) return std::nullopt;
+    return v;
+  };
+  out.data = read("data");
+  out.dynamics = read("dynamics");
   return out;
 }
 

@@ -47,7 +47,19 @@ struct RetrainInput {
   bool lockstep = false;                // ignore retrain.time_budget
   const std::atomic<bool>* cancel = nullptr;
   std::string trigger = "cadence";      // recorded in the version's details
+  // The feed's exponent estimates (per second) from the data and the known
+  // dynamics that pace the cadence after this job; recorded in the version's
+  // details ("exponents") so a restarted daemon resumes the same cadence.
+  std::optional<double> data_exponent{}, dynamics_exponent{};
 };
+
+// The "exponents" a version's details recorded (RetrainInput above); each
+// absent when not recorded, null or not a finite number. Tolerates any
+// details text (older versions, hand-edited rows).
+struct RecordedExponents {
+  std::optional<double> data, dynamics;
+};
+RecordedExponents ParseRecordedExponents(const std::string& details);
 
 enum class RetrainVerdict { kPromoted, kRejected, kNotEnoughData, kCancelled };
 const char* RetrainVerdictName(RetrainVerdict v);

@@ -130,8 +130,12 @@ Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
     const auto model = f.active.load();
     if (!newest->empty()) {
       // Resume from the newest job that recorded a version: its data end
-      // is where the next interval starts.
+      // is where the next interval starts, paced by the estimates it
+      // recorded (the data's is otherwise unknown until the next job).
       f.s.last_retrain = newest->front().trained_to;
+      const RecordedExponents recorded = ParseRecordedExponents(newest->front().details);
+      f.s.estimates.data = recorded.data;
+      f.s.estimates.dynamics = recorded.dynamics;
       ScheduleNextLocked(f, i, *f.s.last_retrain, false);
       Log(SchedulerLogLevel::kInfo,
           fmt::format("feed {}: active {}, last retrain used data to {}; next retrain due at {} ({})", f.config->id,
@@ -188,6 +192,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   const std::shared_ptr<const ActiveModel> active = f.active.load();
   DataTime until = 0;
   bool estimate_dynamics = false;
+  LyapunovEstimates known;  // before this job
   std::string trigger;
   const char* trigger_kind = "cadence";
   {
@@ -207,6 +212,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     f.running_until = until;
     estimate_dynamics = fc.dynamics.has_value() && !f.dynamics_tried;
     f.dynamics_tried = true;
+    known = f.s.estimates;
   }
   Log(SchedulerLogLevel::kInfo,
       fmt::format("feed {}: job {} started ({}), data before {}, {}", fc.id, job_id, trigger, FormatRfc3339(until),
@@ -253,6 +259,8 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   in.lockstep = options_.lockstep;
   in.cancel = &cancel_;
   in.trigger = trigger_kind;
+  in.data_exponent = from_data ? std::optional<double>(from_data->per_second) : known.data;
+  in.dynamics_exponent = from_dynamics ? std::optional<double>(from_dynamics->per_second) : known.dynamics;
   double last_info = 0;
   int last_tenth = 0;
   const auto progress = [&](const FitProgress& p) {

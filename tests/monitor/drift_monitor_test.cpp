@@ -286,6 +286,56 @@ TEST(DriftMonitor, DriftFlagRisesWhenTheProcessChangesAndANewModelClearsIt) {
   EXPECT_NEAR(*m.Snapshot(kWall0).drift_ratio, 1.0, 0.3);
 }
 
+TEST(DriftMonitor, SuccessorsCarryTheChangeTestSoFrequentRetrainsDoNotBlindIt) {
+  // A model replaced every 60 samples (a 2 Hz feed retrained every 30 s)
+  // never finishes a 300-sample warm-up if each new model restarts it.
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 0.3 * kStd[0], -0.5};
+  const auto run = [&](DriftMonitor::Handover handover) {
+    DriftMonitor m(Feed());
+    Process p(99);
+    std::int64_t version = 1;
+    EXPECT_TRUE(m.SetModel(ShiftModel(v.cast<float>()), version, 0.1, kT0 - kStep, kWall0).ok());
+    int alarm_at = -1;
+    for (int i = 0; i < 1200 && alarm_at < 0; ++i) {
+      const Sample s = p.Next(i < 600 ? v : changed);
+      if (Observe(m, s).alarm_raised) alarm_at = i;
+      if (i % 60 == 59) {  // a cadence retrain promotes a warm-started successor
+        EXPECT_TRUE(m.SetModel(ShiftModel(v.cast<float>()), ++version, 0.1, s.t, kWall0, handover).ok());
+      }
+    }
+    return std::pair{alarm_at, m.Snapshot(kWall0)};
+  };
+  const auto [fresh_alarm, fresh] = run(DriftMonitor::Handover::kFresh);
+  EXPECT_EQ(fresh_alarm, -1) << "restarted every 60 samples, the test never leaves its warm-up";
+  EXPECT_TRUE(fresh.warming_up);
+  const auto [carried_alarm, carried] = run(DriftMonitor::Handover::kSuccessor);
+  EXPECT_GE(carried_alarm, 600) << "no alarm before the change";
+  EXPECT_LT(carried_alarm, 700) << "flagged within 100 samples of the change";
+  EXPECT_TRUE(carried.drift_flag);
+  EXPECT_LT(carried.scored, 60) << "the per-model scores still restart";
+}
+
+TEST(DriftMonitor, AfterAnAlarmEvenASuccessorRestartsTheChangeTest) {
+  DriftMonitor m(Feed());
+  ASSERT_TRUE(m.SetModel(ShiftModel({0.25f, -0.5f}), 1, 0.1, kT0 - kStep, kWall0).ok());
+  Process p(17);
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5};
+  for (int i = 0; i < 350; ++i) Observe(m, p.Next(v));
+  ASSERT_FALSE(m.Snapshot(kWall0).warming_up);
+  Sample last;
+  for (int i = 0; i < 50; ++i) Observe(m, last = p.Next(changed));
+  ASSERT_TRUE(m.Snapshot(kWall0).drift_flag);
+  // The drift retrain's model, warm-started from the flagged one: the old
+  // in-control level says nothing about the new regime.
+  ASSERT_TRUE(m.SetModel(ShiftModel(changed.cast<float>()), 2, 0.1, last.t, kWall0,
+                         DriftMonitor::Handover::kSuccessor)
+                  .ok());
+  const DriftSnapshot d = m.Snapshot(kWall0);
+  EXPECT_FALSE(d.drift_flag);
+  EXPECT_TRUE(d.warming_up);
+  EXPECT_EQ(d.change_statistic, 0);
+}
+
 TEST(DriftMonitor, PausedMeansNoScoringAndNoAlarm) {
   DriftMonitor m(Feed());
   ASSERT_TRUE(m.SetModel(ShiftModel({0.25f, -0.5f}), 1, 0.1, kT0 - kStep, kWall0).ok());

@@ -17,22 +17,31 @@ RetrainConfig Config() {
   return c;
 }
 
-TEST(ChooseExponent, ModelFirstOnceOneExistsThenDynamicsThenData) {
+TEST(ChooseExponent, TheLargestPositiveEstimateWins) {
   LyapunovEstimates e{0.1, 0.2, 0.3};
-  EXPECT_EQ(ChooseExponent(e, true)->source, LyapunovSource::kModel);
+  EXPECT_EQ(ChooseExponent(e, true)->source, LyapunovSource::kData);
+  EXPECT_EQ(ChooseExponent(e, true)->lambda_max, 0.3);
+  const LyapunovEstimates model_fastest{0.5, 0.2, 0.3};
+  EXPECT_EQ(ChooseExponent(model_fastest, true)->source, LyapunovSource::kModel);
+  EXPECT_EQ(ChooseExponent(model_fastest, false)->source, LyapunovSource::kData) << "no model: its estimate is ignored";
+  const LyapunovEstimates ties{0.2, 0.2, 0.2};
+  EXPECT_EQ(ChooseExponent(ties, true)->source, LyapunovSource::kModel);
+  EXPECT_EQ(ChooseExponent(ties, false)->source, LyapunovSource::kDynamics);
+  e.data.reset();
   EXPECT_EQ(ChooseExponent(e, false)->source, LyapunovSource::kDynamics);
   e.dynamics.reset();
-  EXPECT_EQ(ChooseExponent(e, false)->source, LyapunovSource::kData);
-  EXPECT_EQ(ChooseExponent(e, false)->lambda_max, 0.3);
-  e.data.reset();
   EXPECT_FALSE(ChooseExponent(e, false).has_value());
   const LyapunovEstimates nan_model{std::nan(""), 0.2, std::nullopt};
   EXPECT_EQ(ChooseExponent(nan_model, true)->source, LyapunovSource::kDynamics) << "NaN is no estimate";
 }
 
-TEST(ChooseExponent, APositiveEstimateWinsOverANonPositiveModel) {
+TEST(ChooseExponent, ANearZeroModelEstimateDoesNotStretchTheCadence) {
+  // Seen in the demo in lockstep right after the operating-point jump: the
+  // warm-started model gave T = 2 300 s, the equations 11 s.
+  const LyapunovEstimates lingering{1.0 / 2300, 1.0 / 11.1, std::nullopt};
+  EXPECT_EQ(ChooseExponent(lingering, true)->source, LyapunovSource::kDynamics);
   const LyapunovEstimates settled{-0.3, 0.9, 1.0};  // a fresh model whose free run settled on a cycle
-  EXPECT_EQ(ChooseExponent(settled, true)->source, LyapunovSource::kDynamics);
+  EXPECT_EQ(ChooseExponent(settled, true)->source, LyapunovSource::kData);
   const LyapunovEstimates data_only{-0.3, std::nullopt, 1.0};
   EXPECT_EQ(ChooseExponent(data_only, true)->source, LyapunovSource::kData);
   const LyapunovEstimates none_positive{-0.3, -0.1, 0.0};

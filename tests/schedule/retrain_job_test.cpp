@@ -84,6 +84,8 @@ TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
   EXPECT_TRUE(std::isfinite(warm->candidate_error));
   EXPECT_TRUE(std::isfinite(warm->active_error));
   EXPECT_EQ(db.registry.Get(0, 2)->parent, 1);
+  // Without estimates the details say null; a restart then has none to resume with.
+  EXPECT_FALSE(ParseRecordedExponents(db.registry.Get(0, 2)->details).data.has_value());
 
   // A candidate trained with a learning rate that wrecks it must not be served.
   const std::int64_t active_before = (*db.registry.Active(0).value()).version;
@@ -97,6 +99,22 @@ TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
   EXPECT_EQ(bad->verdict, RetrainVerdict::kRejected) << bad->reason;
   EXPECT_EQ(db.registry.Get(0, *bad->version)->status, ModelStatus::kRejected);
   EXPECT_EQ((*db.registry.Active(0).value()).version, active_before);
+}
+
+TEST(RunRetrain, RecordsTheCadenceEstimatesExactlyForARestart) {
+  Db db;
+  const FeedConfig feed = Feed();
+  db.Add(testing::LorenzSamples(1500, 0));
+  RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 15'000'000, std::nullopt, 1, true, nullptr};
+  in.data_exponent = 0.1 / 3.0;  // not exact in decimal: the round trip must be
+  in.dynamics_exponent = 0.9056;
+  auto job = RunRetrain(*db.reader, db.registry, in);
+  ASSERT_TRUE(job.ok() && job->version);
+  const RecordedExponents back = ParseRecordedExponents(db.registry.Get(0, *job->version)->details);
+  EXPECT_EQ(back.data, in.data_exponent);
+  EXPECT_EQ(back.dynamics, in.dynamics_exponent);
+  EXPECT_FALSE(ParseRecordedExponents("not json").data.has_value());
+  EXPECT_FALSE(ParseRecordedExponents(R"({"exponents":{"data":"fast"}})").data.has_value());
 }
 
 TEST(RunRetrain, LockstepJobsAreDeterministicToTheByte) {
