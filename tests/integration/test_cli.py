@@ -1,5 +1,6 @@
 """The lyapcast CLI's offline commands end to end: simulate -> train ->
-forecast on files, and simulate --send into a real daemon."""
+forecast on files, simulate --send into a real daemon, and backup of a running
+daemon's database (checked with the sqlite3 shell)."""
 
 import json
 import math
@@ -7,9 +8,10 @@ import os
 import shutil
 import subprocess
 import tempfile
+import threading
 import unittest
 
-from harness import Daemon
+from harness import SQLITE3, Daemon, base_config, now_us, t_text
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 
@@ -258,6 +260,148 @@ class SendTest(unittest.TestCase):
             self.assertEqual(d.stop(), 0)
             self.assertEqual(len(d.stored_times("lorenz")), sent)
         shutil.rmtree(cfg, ignore_errors=True)
+
+
+def sqlite_rows(db, query):
+    """Runs a query with the sqlite3 shell (read-only); returns (exit code, rows, stderr)."""
+    out = subprocess.run([SQLITE3, "-readonly", "-separator", "|", db, query], capture_output=True, text=True,
+                         timeout=60)
+    return out.returncode, [line.split("|") for line in out.stdout.splitlines()], out.stderr
+
+
+def sample_counts(db):
+    code, rows, err = sqlite_rows(db, "SELECT name, count(t_us) FROM feeds LEFT JOIN samples USING (feed_id) "
+                                      "GROUP BY name ORDER BY name")
+    if code != 0:
+        raise AssertionError(f"sqlite3 on {db}: {err}")
+    return {name: int(n) for name, n in rows}
+
+
+class BackupTest(unittest.TestCase):
+    def test_backup_of_a_running_daemon(self):
+        with Daemon() as d:
+            d.start()
+            base = now_us() - 600 * 1_000_000  # inside the 6 h retention, not in the future
+            n = 3000
+            c = d.connect()
+            c.send_lines([f"rig-b,{t_text(base + i * 50_000)},{i},{-i}" for i in range(n)])
+            replies = c.wait_replies(n)
+            self.assertEqual(replies, [f"ok {i + 1}" for i in range(n)], "every sample acknowledged (committed)")
+            c.close()
+            status, body = d.http_get("/v1/feeds/rig-b/status")
+            self.assertEqual(status, 200, body)
+            self.assertEqual(body["window"]["samples"], n)
+            # The commits are still in the WAL: the main file alone misses them.
+            self.assertGreater(os.path.getsize(d.db + "-wal"), 0)
+            main_only = os.path.join(d.dir, "main-only.db")
+            shutil.copyfile(d.db, main_only)
+            code, rows, _ = sqlite_rows(main_only, "SELECT count(*) FROM samples")
+            self.assertLess(int(rows[0][0]) if code == 0 and rows else 0, n, "test premise: data in the WAL")
+
+            # Another sender keeps committing during the backup; one page per step
+            # makes the copy take many steps while it does.
+            stop = threading.Event()
+            sent = [0]
+
+            def keep_sending():
+                s = d.connect()
+                i = 0
+                while not stop.is_set() and i < 20_000:
+                    t0 = base - 3600 * 1_000_000  # an hour of older data, 0.1 s apart
+                    s.send_lines([f"loop-a,{t_text(t0 + (i + k) * 100_000)},{k},0.5,-0.5" for k in range(50)])
+                    i += 50
+                    s.wait_replies(i, timeout=30)
+                sent[0] = i
+                s.close()
+
+            sender = threading.Thread(target=keep_sending)
+            sender.start()
+            out = os.path.join(d.dir, "backup.db")
+            try:
+                r = run("backup", "--config", d.config_path, "--step-pages", "1", out)
+            finally:
+                stop.set()
+                sender.join()
+            self.assertTrue(d.proc.poll() is None, "the daemon kept running")
+            self.assertFalse(os.path.exists(out + ".partial"))
+            summary = r.stdout.strip()
+            self.assertEqual(len(summary.splitlines()), 1, r.stdout)
+            self.assertIn(f"backed up {d.db} to {out}: {os.path.getsize(out)} bytes, ", summary)
+            self.assertIn("integrity_check ok", summary)
+            self.assertRegex(summary, r"\d+ pages, .* \d+\.\d+ s$")
+            self.assertIn("pages copied", r.stderr, "progress on stderr for a copy of many steps")
+
+            # The outside reference: the sqlite3 shell on the copy.
+            self.assertEqual(sqlite_rows(out, "PRAGMA integrity_check")[1], [["ok"]])
+            counts = sample_counts(out)
+            self.assertEqual(counts["rig-b"], n, "every acknowledged sample, including those in the WAL")
+            self.assertLessEqual(counts["loop-a"], sent[0], "a consistent snapshot of the concurrent sender")
+            self.assertIn(f" {counts['rig-b'] + counts['loop-a']} samples, ", summary)
+            self.assertEqual(sqlite_rows(out, "PRAGMA journal_mode")[1], [["delete"]], "a single-file copy")
+            self.assertFalse(os.path.exists(out + "-wal") or os.path.exists(out + "-shm"))
+            with open(out, "rb") as f:
+                backup_bytes = f.read()
+
+            # An existing file is kept unless --force.
+            again = run("backup", "--db", d.db, out, check=False)
+            self.assertEqual(again.returncode, 2, again.stderr)
+            self.assertIn(f"{out} exists", again.stderr)
+            self.assertIn("--force", again.stderr)
+            self.assertEqual(again.stdout, "")
+            with open(out, "rb") as f:
+                self.assertEqual(f.read(), backup_bytes, "untouched")
+            self.assertFalse(os.path.exists(out + ".partial"))
+            forced = run("backup", "--db", d.db, "--force", out)
+            self.assertIn("integrity_check ok", forced.stdout)
+            self.assertEqual(sample_counts(out)["rig-b"], n)
+            self.assertEqual(d.stop(), 0)
+            with open(out, "rb") as f:
+                backup_bytes = f.read()
+
+        # The copy restores: a daemon started on it serves the same window.
+        with Daemon() as restored:
+            with open(restored.db, "wb") as f:
+                f.write(backup_bytes)
+            restored.start()
+            status, body = restored.http_get("/v1/feeds/rig-b/status")
+            self.assertEqual(body["window"]["samples"], n, body)
+            self.assertEqual(restored.stop(), 0)
+
+    def test_clear_errors(self):
+        d = tempfile.mkdtemp(prefix="lyapcast-cli-backup-")
+        self.addCleanup(shutil.rmtree, d, ignore_errors=True)
+        out = os.path.join(d, "out.db")
+
+        missing = os.path.join(d, "absent", "lyapcast.db")
+        r = run("backup", "--db", missing, out, check=False)
+        self.assertEqual(r.returncode, 2, r.stderr)
+        self.assertIn(f"no database at {missing}", r.stderr)
+        config = os.path.join(d, "lyapcast.yaml")
+        with open(config, "w") as f:
+            f.write(base_config(missing))
+        r = run("backup", "--config", config, out, check=False)
+        self.assertEqual(r.returncode, 2, r.stderr)
+        self.assertIn(f"no database at {missing} (storage.path in {config})", r.stderr)
+
+        garbage = os.path.join(d, "garbage.db")
+        with open(garbage, "wb") as f:
+            f.write(b"not a database\n" * 500)
+        r = run("backup", "--db", garbage, out, check=False)
+        self.assertEqual(r.returncode, 2, r.stderr)
+        self.assertIn("is not an SQLite database", r.stderr)
+
+        other = os.path.join(d, "other.db")
+        subprocess.run([SQLITE3, other, "CREATE TABLE t(x)"], check=True, timeout=60)
+        r = run("backup", "--db", other, out, check=False)
+        self.assertEqual(r.returncode, 2, r.stderr)
+        self.assertIn("is not a lyapcast database", r.stderr)
+
+        r = run("backup", "--db", other, other + "-wal", "--force", check=False)
+        self.assertEqual(r.returncode, 2, r.stderr)
+        self.assertIn("is the database being copied", r.stderr)
+        self.assertEqual(run("backup", out, check=False).returncode, 2, "no source given")
+        self.assertEqual(run("backup", "--db", other, "--config", config, out, check=False).returncode, 2)
+        self.assertEqual(sorted(os.listdir(d)), ["garbage.db", "lyapcast.yaml", "other.db"], "nothing left behind")
 
 
 if __name__ == "__main__":

@@ -15,6 +15,8 @@ void AddTrainCommand(CLI::App& app, int* exit_code);
 void AddForecastCommand(CLI::App& app, int* exit_code);
 void AddLyapunovCommand(CLI::App& app, int* exit_code);
 void AddScoreCommand(CLI::App& app, int* exit_code);
+// A consistent copy of the daemon's SQLite database, safe while it runs.
+void AddBackupCommand(CLI::App& app, int* exit_code);
 // Commands that talk to a running daemon (README "HTTP API", "Ingest protocol").
 void AddStatusCommand(CLI::App& app, int* exit_code);
 void AddModelsCommand(CLI::App& app, int* exit_code);

@@ -1,7 +1,8 @@
 // lyapcast: the command-line tool. Offline commands work on files (simulate,
-// train, forecast --model, lyapunov, score); the others talk to a running
-// daemon over its HTTP API (status, models, retrain, forecast --feed, check,
-// export) or its ingest port (replay, simulate --send).
+// train, forecast --model, lyapunov, score) or on the daemon's database file
+// (backup); the others talk to a running daemon over its HTTP API (status,
+// models, retrain, forecast --feed, check, export) or its ingest port (replay,
+// simulate --send).
 #include <CLI/CLI.hpp>
 
 #include <cstdio>
@@ -18,6 +19,7 @@ int main(int argc, char** argv) {
   app.footer(
       "Talk to a running daemon: status, models, retrain, forecast --feed, check, export (HTTP API; --url,\n"
       "--token-file), replay (ingest port). Offline, on files: simulate, train, forecast --model, lyapunov, score.\n"
+      "On the daemon's database file (safe while it runs): backup.\n"
       "`lyapcast <command> --help` explains each command with examples.");
   int exit_code = 0;
   lyapcast::cli::AddStatusCommand(app, &exit_code);
@@ -31,6 +33,7 @@ int main(int argc, char** argv) {
   lyapcast::cli::AddTrainCommand(app, &exit_code);
   lyapcast::cli::AddLyapunovCommand(app, &exit_code);
   lyapcast::cli::AddScoreCommand(app, &exit_code);
+  lyapcast::cli::AddBackupCommand(app, &exit_code);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
