@@ -69,6 +69,7 @@ struct Scheduler::Feed {
   DataTime running_until = 0;  // data end of the running job
   bool activating = false;     // an operator's Activate holds jobs off
   bool dynamics_tried = false;
+  bool warned_model_age = false;  // the health/cadence mismatch below is logged once
 };
 
 struct Scheduler::Trainer {
@@ -404,6 +405,21 @@ void Scheduler::ScheduleNextLocked(Feed& f, std::uint32_t, DataTime since, bool 
   const CadenceDecision d = NextRetrain(rc, f.s.estimates, has_model, since);
   f.s.next_due = since + std::max(d.interval, fc.step);
   f.s.next_reason = d.reason;
+  // The model ages between retrains by the interval itself: a warning
+  // threshold below it makes the health verdict read WARNING before every
+  // retrain, which teaches operators to ignore it.
+  if (d.exponent && d.exponent->lambda_max > 0 && !f.warned_model_age) {
+    const double interval_lt = static_cast<double>(d.interval) / 1e6 * d.exponent->lambda_max;
+    if (interval_lt >= fc.health.model_age_warn_lyapunov) {
+      f.warned_model_age = true;
+      Log(SchedulerLogLevel::kWarning,
+          fmt::format("feed {}: retrains are {} apart, {:.2g} Lyapunov times, not below health."
+                      "model_age_warn_lyapunov {:g}: the verdict will read WARNING before each retrain; raise "
+                      "model_age_warn_lyapunov (and _crit) above {:.2g} or lower retrain.min_interval",
+                      fc.id, FormatDuration(d.interval), interval_lt, fc.health.model_age_warn_lyapunov,
+                      interval_lt));
+    }
+  }
 }
 
 void Scheduler::QueueDueLocked() {

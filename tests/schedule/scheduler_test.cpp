@@ -280,6 +280,22 @@ TEST(Scheduler, PrunesVersionsBeyondKeepModelsButNeverTheActiveOne) {
   EXPECT_EQ(versions[0].status, ModelStatus::kActive);
 }
 
+TEST(Scheduler, WarnsOnceWhenHealthWouldCallEveryRetrainIntervalStale) {
+  // Lorenz-63 (lambda about 0.9/s, from the dynamics) retrained at least
+  // 2 s apart: about 1.8 Lyapunov times between retrains.
+  for (const double warn : {0.5, 1000.0}) {
+    Config config = LorenzConfig();
+    config.feeds[0].health.model_age_warn_lyapunov = warn;
+    config.feeds[0].health.model_age_crit_lyapunov = 2 * warn;
+    testing::TempDir dir("lyapcast-scheduler-test");
+    Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
+    rig.Send(testing::LorenzSamples(900, 0), 100);
+    rig.Drain();
+    ASSERT_NE(rig.scheduler().active(0), nullptr);
+    EXPECT_EQ(rig.Logged("the verdict will read WARNING before each retrain"), warn < 1) << warn;
+  }
+}
+
 TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
   const Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
