@@ -276,13 +276,17 @@ bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
     }
   }
 
-  // Completions only after the outcome is durable (or definitely failed),
-  // in submission order; then the subscribers see what is newly stored.
-  for (size_t i = 0; i < group.size(); ++i) {
-    if (group[i].done) group[i].done(std::move(results[i]));
-  }
+  // The subscribers see what is newly stored first, then the completions
+  // run in submission order, only after the outcome is durable (or
+  // definitely failed). Subscribers first, so an acknowledged sample has
+  // also been seen by them: a retrain requested right after an
+  // acknowledgement covers it, and in lockstep an acknowledgement means the
+  // retrains due before it (and the drift checks on it) are done.
   if (!batch.samples.empty()) {
     for (const auto& subscriber : subscribers_) subscriber(batch);
+  }
+  for (size_t i = 0; i < group.size(); ++i) {
+    if (group[i].done) group[i].done(std::move(results[i]));
   }
   return committed;
 }

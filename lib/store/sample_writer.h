@@ -102,7 +102,10 @@ class SampleWriter {
   // blocks: callers bound how much they keep outstanding (backpressure).
   bool Submit(std::vector<FeedSample> samples, WriteCompletion done);
 
-  // Adds a subscriber for committed batches. Only before Start().
+  // Adds a subscriber for committed batches. Only before Start(). After each
+  // commit every subscriber is called with the newly stored samples BEFORE
+  // that group's completions run, so whoever sees an acknowledgement may
+  // rely on the subscribers having seen the sample.
   void Subscribe(std::function<void(const CommittedBatch&)> subscriber);
 
   // Commits and completes everything submitted so far, then joins the thread.

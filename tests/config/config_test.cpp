@@ -72,7 +72,7 @@ TEST(ConfigFiles, DemoLoadsAndValidates) {
   EXPECT_EQ(a.id, "loop-a");
   EXPECT_EQ(a.channels, (std::vector<std::string>{"flow", "dtemp_h", "dtemp_v"}));
   EXPECT_EQ(a.units, (std::vector<std::string>{"m/s", "K", "K"}));
-  EXPECT_EQ(a.step, 500'000);
+  EXPECT_EQ(a.step, 200'000);
   ASSERT_TRUE(a.dynamics.has_value());
   ASSERT_EQ(a.dynamics->equations.size(), 3u);
   EXPECT_EQ(a.dynamics->equations[0].first, "flow");
@@ -672,7 +672,7 @@ TEST(ConfigHelpers, DescribeSummarizes) {
   ASSERT_TRUE(r.ok()) << r.status().ToString();
   const std::string s = DescribeConfig(*r);
   for (const char* f : {"listen: ingest 127.0.0.1:7301, http 127.0.0.1:7302", "lyapcast.db", "retention 2h",
-                        "loop-a: flow [m/s], dtemp_h [K], dtemp_v [K]; step 500ms; dynamics known",
+                        "loop-a: flow [m/s], dtemp_h [K], dtemp_v [K]; step 200ms; dynamics known",
                         "constraints: velocity, residual", "rig-b:", "step 100ms", "silu"}) {
     EXPECT_NE(s.find(f), std::string::npos) << "missing '" << f << "' in:\n" << s;
   }

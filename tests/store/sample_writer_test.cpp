@@ -255,11 +255,15 @@ TEST(SampleWriter, SubscribersSeeOnlyNewlyStoredSamples) {
   });
   ASSERT_TRUE(writer.Start().ok());
   ASSERT_TRUE(Accepted(SubmitAndWait(writer, {Make(Sec(100), 1)}).at(0)));
+  {
+    std::lock_guard lock(mu);
+    EXPECT_EQ(batches.size(), 1U) << "the subscriber saw the sample before its acknowledgement";
+  }
   // A resend, a conflict and a too-old sample: nothing new, no batch.
   SubmitAndWait(writer, {Make(Sec(100), 1), Make(Sec(100), 9), Make(Sec(10), 1)});
   // Mixed: only the two new ones are handed on.
   SubmitAndWait(writer, {Make(Sec(101), 2), Make(Sec(100), 1), Make(Sec(5), 1), Make(Sec(102), 3)});
-  writer.Stop();  // subscribers run after completions; joining the writer makes sure they ran
+  writer.Stop();
   std::lock_guard lock(mu);
   ASSERT_EQ(batches.size(), 2U);
   EXPECT_EQ(batches[0], (std::vector<DataTime>{Sec(100)}));
