@@ -9,10 +9,6 @@
 #include <yaml-cpp/yaml.h>
 
 #include <algorithm>
-#include <cerrno>
-#include <cstring>
-#include <fstream>
-#include <sstream>
 
 #include "config/yaml_reader.h"
 
@@ -549,20 +545,9 @@ Result<Config> ParseConfig(std::string_view yaml, const std::filesystem::path& s
 }
 
 Result<Config> LoadConfig(const std::filesystem::path& file) {
-  std::error_code ec;
-  if (std::filesystem::is_directory(file, ec)) {
-    return Status::Io(fmt::format("cannot read config file '{}': it is a directory", file.string()));
-  }
-  std::ifstream in(file, std::ios::binary);
-  if (!in) {
-    return Status::Io(fmt::format("cannot read config file '{}': {}", file.string(), std::strerror(errno)));
-  }
-  std::ostringstream text;
-  text << in.rdbuf();
-  if (in.bad()) {
-    return Status::Io(fmt::format("cannot read config file '{}': read failed", file.string()));
-  }
-  return ParseConfig(text.str(), file);
+  auto text = config_internal::ReadYamlFile(file, "config");
+  if (!text.ok()) return text.status();
+  return ParseConfig(*text, file);
 }
 
 bool IsLoopbackHost(std::string_view host) {

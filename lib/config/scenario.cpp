@@ -5,13 +5,9 @@
 #include <fmt/format.h>
 #include <yaml-cpp/yaml.h>
 
-#include <cerrno>
 #include <charconv>
 #include <cmath>
 #include <cstdlib>
-#include <cstring>
-#include <fstream>
-#include <sstream>
 #include <system_error>
 
 #include "config/config.h"
@@ -195,18 +191,9 @@ Result<Scenario> ParseScenario(std::string_view yaml, const std::string& source_
 }
 
 Result<Scenario> LoadScenario(const std::filesystem::path& file) {
-  std::error_code ec;
-  if (std::filesystem::is_directory(file, ec)) {
-    return Status::Io(fmt::format("cannot read scenario file '{}': it is a directory", file.string()));
-  }
-  std::ifstream in(file, std::ios::binary);
-  if (!in) {
-    return Status::Io(fmt::format("cannot read scenario file '{}': {}", file.string(), std::strerror(errno)));
-  }
-  std::ostringstream text;
-  text << in.rdbuf();
-  if (in.bad()) return Status::Io(fmt::format("cannot read scenario file '{}': read failed", file.string()));
-  return ParseScenario(text.str(), file.string());
+  auto text = config_internal::ReadYamlFile(file, "scenario");
+  if (!text.ok()) return text.status();
+  return ParseScenario(*text, file.string());
 }
 
 }  // namespace lyapcast

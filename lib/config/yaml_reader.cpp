@@ -4,11 +4,28 @@
 
 #include <algorithm>
 #include <charconv>
+#include <cerrno>
 #include <cmath>
+#include <cstring>
+#include <fstream>
+#include <sstream>
 #include <system_error>
 #include <utility>
 
 namespace lyapcast::config_internal {
+
+Result<std::string> ReadYamlFile(const std::filesystem::path& file, std::string_view what) {
+  std::error_code ec;
+  if (std::filesystem::is_directory(file, ec)) {
+    return Status::Io(fmt::format("cannot read {} file '{}': it is a directory", what, file.string()));
+  }
+  std::ifstream in(file, std::ios::binary);
+  if (!in) return Status::Io(fmt::format("cannot read {} file '{}': {}", what, file.string(), std::strerror(errno)));
+  std::ostringstream text;
+  text << in.rdbuf();
+  if (in.bad()) return Status::Io(fmt::format("cannot read {} file '{}': read failed", what, file.string()));
+  return text.str();
+}
 namespace {
 
 // YAML writes "+5" for five; std::from_chars does not take the sign.

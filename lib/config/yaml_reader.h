@@ -23,7 +23,10 @@
 #include <string_view>
 #include <vector>
 
+#include <filesystem>
+
 #include "core/data_time.h"
+#include "core/status.h"
 
 namespace lyapcast::config_internal {
 
@@ -41,6 +44,10 @@ std::string DescribeNode(const YAML::Node& node);
 
 // "a, b, c".
 std::string Join(const std::vector<std::string>& items, std::string_view separator = ", ");
+
+// The whole text of a YAML file; kIo "cannot read <what> file '<path>': <why>"
+// when it is a directory, missing, unreadable or fails mid-read.
+[[nodiscard]] Result<std::string> ReadYamlFile(const std::filesystem::path& file, std::string_view what);
 
 // Names the config in messages.
 class Source {
