@@ -372,8 +372,8 @@ ContinualRun RunContinual(const fs::path& file, const FeedConfig& feed, const Tr
 
   DataTime since = TimeOf(first);
   for (std::uint64_t k = 1;; ++k) {
-    // As the daemon would: the active model's exponent, and the known
-    // dynamics' (nominal rho) as the fallback; NextRetrain prefers the model's.
+    // As the daemon would: the active model's exponent and the known
+    // dynamics' (nominal rho); NextRetrain paces by the larger.
     LyapunovEstimates estimates;
     estimates.model = active->lyapunov_max;
     estimates.dynamics = nominal_lambda;
@@ -665,7 +665,8 @@ int main(int argc, char** argv) {
   std::printf("   true lambda_max %.4f/s (T = %.3fs) at rho %.0f (Sprott: 0.9056), %.4f/s (T = %.3fs) at rho %.0f\n",
               lambda_before, 1 / lambda_before, kRho, lambda_after, 1 / lambda_after, kRhoAfter);
   std::printf("   retrain: iterations 2000, batch 256, lr 1e-3, replay 0.3, validation 0.2, promote_tolerance 0.05, "
-              "cadence NextRetrain on the active model's exponent, lyapunov_fraction 4, min 2s, max 30s; first model "
+              "cadence NextRetrain on the larger of the model's and the dynamics' exponent, lyapunov_fraction 4, min 2s, "
+              "max 30s; first model "
               "%d iterations\n",
               plan.cold_iterations);
   std::printf("   forecasts every T from delivered samples, horizon up to %.0f T, never across the change; VPT: "
