@@ -103,12 +103,14 @@ class Daemon:
         self.proc.wait()
         self.log.close()
 
-    def read_log(self):
+    def read_log(self, tail=8000):
+        """The daemon's log, its last `tail` characters (None: all of it)."""
         try:
             with open(self.log_path, "rb") as f:
-                return f.read().decode("utf-8", "replace")[-8000:]
+                text = f.read().decode("utf-8", "replace")
         except OSError:
             return ""
+        return text if tail is None else text[-tail:]
 
     def http_get(self, path, headers=None):
         req = urllib.request.Request(f"http://127.0.0.1:{self.http_port}{path}", headers=headers or {})
@@ -210,6 +212,19 @@ class IngestClient:
             self.sock.close()
         except OSError:
             pass
+
+
+def fill_disk(path):
+    """Writes `path` until the file system is full (ENOSPC), as another
+    process writing logs would; remove the file to free the space."""
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT)
+    try:
+        while os.write(fd, b"\0" * 4096) > 0:
+            pass
+    except OSError:
+        pass  # ENOSPC: the disk is full
+    finally:
+        os.close(fd)
 
 
 def t_text(t_us):

@@ -36,7 +36,7 @@ import unittest
 import urllib.parse
 
 import harness
-from harness import Daemon, IngestClient, daemon_config
+from harness import Daemon, IngestClient, daemon_config, fill_disk
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
@@ -1198,13 +1198,7 @@ class StorageUnavailableTest(unittest.TestCase, ApiAssertions):
         self.d.start()
         self.port = self.d.http_port
         filler = os.path.join(self.mnt, "filler")
-        fd = os.open(filler, os.O_WRONLY | os.O_CREAT)
-        try:
-            while os.write(fd, b"\0" * 4096) > 0:
-                pass
-        except OSError:
-            pass  # ENOSPC
-        os.close(fd)
+        fill_disk(filler)
         client = IngestClient(self.d.ingest_port)
         sent, refused = 0, False
         for _ in range(100):

@@ -220,6 +220,14 @@ class SdNotifyTest(unittest.TestCase):
             [daemon_binary(), "--config", self.config, "--ready-file", self.ready_path, "--log-level", "debug"],
             stdout=self.log, stderr=subprocess.STDOUT, env=env)
 
+    def wait_ready(self, timeout=60):
+        deadline = time.monotonic() + timeout
+        while not os.path.exists(self.ready_path):
+            if self.proc.poll() is not None:
+                raise AssertionError(f"lyapcastd exited ({self.proc.returncode}):\n{self.read_log()}")
+            self.assertLess(time.monotonic(), deadline, "lyapcastd did not become ready:\n" + self.read_log())
+            time.sleep(0.02)
+
     def stop(self, timeout=60):
         self.proc.send_signal(signal.SIGTERM)
         try:
@@ -270,12 +278,7 @@ class SdNotifyTest(unittest.TestCase):
         # NOTIFY_SOCKET names a path where nobody listens: the notification
         # fails, the daemon says so and serves anyway.
         self.start(os.path.join(self.dir, "nobody-listens.sock"))
-        deadline = time.monotonic() + 60
-        while not os.path.exists(self.ready_path):
-            if self.proc.poll() is not None:
-                raise AssertionError(f"lyapcastd exited ({self.proc.returncode}):\n{self.read_log()}")
-            self.assertLess(time.monotonic(), deadline, "lyapcastd did not become ready:\n" + self.read_log())
-            time.sleep(0.02)
+        self.wait_ready()
         with open(self.ready_path) as f:
             ready = json.load(f)
         with urllib.request.urlopen(f"http://127.0.0.1:{ready['http_port']}/v1/health/live", timeout=10) as r:
@@ -292,12 +295,7 @@ class SdNotifyTest(unittest.TestCase):
         self.proc = subprocess.Popen(
             [daemon_binary(), "--config", self.config, "--ready-file", self.ready_path, "--log-level", "debug"],
             stdout=self.log, stderr=subprocess.STDOUT, env=env)
-        deadline = time.monotonic() + 60
-        while not os.path.exists(self.ready_path):
-            if self.proc.poll() is not None:
-                raise AssertionError(f"lyapcastd exited ({self.proc.returncode}):\n{self.read_log()}")
-            self.assertLess(time.monotonic(), deadline, "lyapcastd did not become ready:\n" + self.read_log())
-            time.sleep(0.02)
+        self.wait_ready()
         self.assertEqual(self.stop(), 0, self.read_log())
         self.assertNotIn("systemd:", self.read_log())
 

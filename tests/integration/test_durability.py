@@ -8,7 +8,7 @@ import threading
 import time
 import unittest
 
-from harness import Daemon, t_text, now_us
+from harness import Daemon, fill_disk, t_text, now_us
 
 
 def stream_until(client, lines, stop_event, chunk=500):
@@ -124,13 +124,7 @@ class StorageFullTest(unittest.TestCase):
         # A smaller commit could still fit in what is left, so take the rest
         # of the disk, as another process writing logs would.
         filler = os.path.join(self.mnt, "filler")
-        fd = os.open(filler, os.O_WRONLY | os.O_CREAT)
-        try:
-            while os.write(fd, b"\0" * 4096) > 0:
-                pass
-        except OSError:
-            pass  # ENOSPC: the disk is full
-        os.close(fd)
+        fill_disk(filler)
         # Commits that fit in space SQLite already holds (its WAL file) may
         # still succeed and are acknowledged honestly; once nothing fits,
         # every line is refused. Send rounds until a whole round is refused.
