@@ -8,8 +8,16 @@
 
 int main(int argc, char** argv) {
   CLI::App app{
-      "lyapcastd - keeps a rolling SQLite window of instrument samples received over TCP and (from later\n"
-      "releases) a continually retrained flow-map model of the process, served over HTTP.\n\n"
+      "lyapcastd - the lyapcast daemon. Instruments stream samples to it over TCP (CSV or NDJSON lines,\n"
+      "each answered once it is committed); it keeps a rolling SQLite window of them per feed, retrains a\n"
+      "small neural network that learns each feed's flow map (state now -> state one step later) at a pace\n"
+      "set by the process's Lyapunov time, and serves forecasts with drift, staleness, a predictability\n"
+      "horizon and a health verdict over HTTP (the operator page is at /, the API under /v1/).\n"
+      "Forecasts are advisory: the site's safety systems, interlocks, local codes and licensed practice\n"
+      "always govern the plant.\n\n"
+      "Exit codes: 0 after a clean stop (SIGTERM or SIGINT: every received line is committed and answered\n"
+      "first), 1 on a runtime failure (a port or the database cannot be opened), 2 when the config is\n"
+      "invalid or a feed's channels or step differ from what the database recorded.\n\n"
       "Examples:\n"
       "  lyapcastd --config config/demo.yaml\n"
       "  lyapcastd --check-config /etc/lyapcast/plant.yaml\n"

@@ -1,5 +1,5 @@
 // Tangent (variational) dynamics of a known right-hand side, for Lyapunov
-// exponents from the equations (stage 3, lib/chaos; Benettin et al.,
+// exponents from the equations (lib/chaos; Benettin et al.,
 // Meccanica 15 (1980) 9; see REFERENCES.md).
 //
 // The augmented state z = [x; vec(Y)] has dim + dim*k entries: the state x

@@ -87,7 +87,7 @@ const char* RetrainVerdictName(RetrainVerdict v) {
   switch (v) {
     case RetrainVerdict::kPromoted: return "promoted";
     case RetrainVerdict::kRejected: return "rejected";
-    case RetrainVerdict::kNotEnoughData: return "not enough data";
+    case RetrainVerdict::kNotEnoughData: return "not_enough_data";
     case RetrainVerdict::kCancelled: return "cancelled";
   }
   return "?";

@@ -6,7 +6,7 @@
 // reaches its due time a job is queued. The first job is due once the window spans retrain.min_pairs steps
 // (and is retried every min_interval while it holds too few pairs); after a
 // job that used data up to U the next is due at NextRetrain(U) (cadence.h),
-// never sooner than one sample step later. Drift (stage 4's monitor) and an
+// never sooner than one sample step later. Drift (lib/monitor's change test) and an
 // operator can Trigger() a job earlier.
 //
 // Jobs: at most one per feed at a time; a trigger that arrives while the

@@ -569,7 +569,7 @@ std::string RunJson(const DriftResult& r) {
       R"("after_ratio_continual_vs_one_time":{}}})",
       r.run.retrains, r.run.max_interval_fallbacks, r.run.verdicts.count("promoted") ? r.run.verdicts.at("promoted") : 0,
       r.run.verdicts.count("rejected") ? r.run.verdicts.at("rejected") : 0,
-      r.run.verdicts.count("not enough data") ? r.run.verdicts.at("not enough data") : 0,
+      r.run.verdicts.count("not_enough_data") ? r.run.verdicts.at("not_enough_data") : 0,
       Json(Mean(r.run.intervals_before_s), 3), Json(Mean(r.run.intervals_after_s), 3), Json(r.run.retrain_wall_s, 2),
       Json(r.wall_s, 2), SkillJson(r.before.one_time), SkillJson(r.before.continual), SkillJson(r.after.one_time),
       SkillJson(r.after.continual), Json(r.after.one_time_late.mean(), 3), Json(r.after.continual_late.mean(), 3),

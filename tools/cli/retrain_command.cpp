@@ -39,8 +39,7 @@ std::string Outcome(const json& job) {
 // enough data: each a valid answer) or it failed.
 int JobExitCode(const json& job) {
   const std::string v = Text(Field(job, "verdict"));
-  return v == "promoted" || v == "rejected" || v == "not enough data" || v == "not_enough_data" ? kExitOk
-                                                                                                : kExitFailure;
+  return v == "promoted" || v == "rejected" || v == "not_enough_data" ? kExitOk : kExitFailure;
 }
 
 int RunRetrain(const RetrainArgs& a) {
