@@ -4,12 +4,28 @@
 
 #include <cmath>
 #include <limits>
+#include <optional>
 
 #include "api_common.h"
 #include "api_routes.h"
 #include "api_store.h"
 
 namespace lyapcast::api {
+namespace {
+
+// `Link: <...>; rel="next"` (RFC 8288) to the next page: the same request
+// from `next` on. Every value is an epoch number, an integer or a format
+// word, so nothing needs percent-encoding.
+std::string NextLink(const FeedConfig& fc, DataTime next, std::optional<DataTime> to, std::optional<std::int64_t> limit,
+                     bool csv) {
+  std::string target = fmt::format("/v1/feeds/{}/samples?from={}", fc.id, EpochText(next));
+  if (to) target += "&to=" + EpochText(*to);
+  if (limit) target += fmt::format("&limit={}", *limit);
+  target += csv ? "&format=csv" : "&format=json";
+  return fmt::format("<{}>; rel=\"next\"", target);
+}
+
+}  // namespace
 
 HttpResponse Samples(const ApiContext& c, std::uint32_t feed, const HttpRequest& req) {
   const FeedConfig& fc = c.config->feeds[feed];
@@ -37,7 +53,7 @@ HttpResponse Samples(const ApiContext& c, std::uint32_t feed, const HttpRequest&
       }
       r.body += '\n';
     }
-    if (page->next) r.headers.emplace_back("X-Lyapcast-Next", EpochText(*page->next));
+    if (page->next) r.headers.emplace_back("Link", NextLink(fc, *page->next, *to, *limit, true));
     return r;
   }
   json samples = json::array();
@@ -48,10 +64,12 @@ HttpResponse Samples(const ApiContext& c, std::uint32_t feed, const HttpRequest&
     }
     samples.push_back({{"t", TimeJson(s.t)}, {"values", std::move(values)}});
   }
-  return Json(200, json{{"feed", fc.id},
-                        {"channels", fc.channels},
-                        {"samples", std::move(samples)},
-                        {"next", page->next ? TimeJson(*page->next) : json(nullptr)}});
+  HttpResponse r = Json(200, json{{"feed", fc.id},
+                                  {"channels", fc.channels},
+                                  {"samples", std::move(samples)},
+                                  {"next", page->next ? TimeJson(*page->next) : json(nullptr)}});
+  if (page->next) r.headers.emplace_back("Link", NextLink(fc, *page->next, *to, *limit, false));
+  return r;
 }
 
 }  // namespace lyapcast::api

@@ -15,10 +15,26 @@
 namespace lyapcast::cli {
 namespace {
 
-// The header with the `from` of the next page in CSV answers (the JSON
-// answer's "next" field). Without it a full page is followed by a request
-// from just after its last row.
-constexpr const char* kNextHeader = "X-Lyapcast-Next";
+// The daemon names the next page in a `Link: <target>; rel="next"` header
+// (RFC 8288). Without one a full page is followed by a request from just
+// after its last row.
+constexpr const char* kLinkHeader = "Link";
+
+// The `from` value of a next-page link's target, or "" when the header
+// holds no rel="next" link with one (the daemon's links carry epoch
+// numbers, which need no percent-decoding).
+std::string NextFrom(const std::string& link) {
+  const auto open = link.find('<');
+  const auto close = link.find('>', open == std::string::npos ? 0 : open);
+  if (open == std::string::npos || close == std::string::npos) return "";
+  if (link.find("rel=\"next\"", close) == std::string::npos) return "";
+  const std::string target = link.substr(open + 1, close - open - 1);
+  auto at = target.find("?from=");
+  if (at == std::string::npos) at = target.find("&from=");
+  if (at == std::string::npos) return "";
+  const std::string rest = target.substr(at + 6);
+  return rest.substr(0, rest.find('&'));
+}
 
 struct ExportArgs {
   RemoteArgs remote;
@@ -103,16 +119,17 @@ int RunExport(const ExportArgs& a) {
     }
     progress.Update(reached - *from, *to - *from,
                     fmt::format("{} samples exported, up to {}", rows, page_rows > 0 ? TimeText(reached) : page_from));
-    std::string next = res->Header(kNextHeader);
+    std::string next = NextFrom(res->Header(kLinkHeader));
     // Without the header, a full page may not be the last: go on after its
     // last row (times are whole microseconds; the range is [from, to)).
     if (next.empty() && have_last && page_rows == static_cast<std::size_t>(a.page_size)) {
       next = FormatRfc3339(reached + 1);
     }
     if (next.empty()) break;
-    auto next_t = ParseTimeOption(next, kNextHeader);
-    if (!next_t.ok())
-      return fail(fmt::format("the daemon's {} header: {}", kNextHeader, next_t.status().message()), kExitFailure);
+    auto next_t = ParseTimeOption(next, "from");
+    if (!next_t.ok()) {
+      return fail(fmt::format("the daemon's next-page link: {}", next_t.status().message()), kExitFailure);
+    }
     auto current = ParseTimeOption(page_from, "from");
     if (!current.ok() || *next_t <= *current) {
       return fail(fmt::format("the daemon's next page starts at {}, not after {}; stopping", next, page_from),
