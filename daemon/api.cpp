@@ -59,7 +59,10 @@ class Api {
   explicit Api(ApiContext c) : c_(std::move(c)) {}
 
   HttpResponse operator()(const HttpRequest& req) const {
-    if (req.path == "/v1/health/live") return Only(req, "GET", [&] { return Live(); });
+    if (req.path == "/v1/heartbeat") return Only(req, "GET", [&] { return Heartbeat(); });
+    if (req.path == "/v1/health/live") {  // removed; say where it went rather than only 404
+      return Error(404, "not-found", "/v1/health/live was removed; the liveness route is GET /v1/heartbeat");
+    }
     if (auto page = ServePage(req)) return *page;  // the operator page holds no data: no token
     if (auto denied = CheckAccess(req)) return *denied;
     if (req.path == "/v1/health") return Only(req, "GET", [&] { return api::Health(c_); });
@@ -128,9 +131,9 @@ class Api {
     return r;
   }
 
-  HttpResponse Live() const {
+  HttpResponse Heartbeat() const {
     const DataTime now = WallNowMicros();
-    return api::Json(200, json{{"status", "live"},
+    return api::Json(200, json{{"alive", true},
                                {"version", c_.version},
                                {"uptime_s", static_cast<double>(now - c_.started_wall) / 1e6},
                                {"storage_available", c_.writer->storage_available()}});

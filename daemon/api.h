@@ -4,7 +4,7 @@
 // Access: when a read token is configured, GET needs `Authorization: Bearer
 // <read or admin token>` (RFC 6750); POST needs the admin token when one is
 // configured. Tokens are compared in constant time and never logged.
-// `GET /v1/health/live` is always open.
+// `GET /v1/heartbeat` (is the process up, is storage writable) is always open.
 //
 // Threads: the handler runs on io threads; it reads published state
 // (atomic model pointers, snapshots under short locks) and short SQLite

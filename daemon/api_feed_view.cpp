@@ -1,5 +1,6 @@
 #include "api_feed_view.h"
 
+#include <algorithm>
 #include <cmath>
 
 #include "feed_monitors.h"
@@ -16,9 +17,17 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now) {
   v.drift = c.monitors->Snapshot(feed, wall_now);
   v.model = c.scheduler->active(feed);
   v.exponent = ChooseExponent(v.schedule.estimates, v.model != nullptr);
-  if (v.exponent && v.exponent->lambda_max > 0 && v.drift.since_training_s) {
-    v.since_training_lyapunov_times = *v.drift.since_training_s * v.exponent->lambda_max;
+  std::optional<RetrainCycle> cycle;
+  if (v.exponent && v.exponent->lambda_max > 0) {
+    const double lambda = v.exponent->lambda_max;
+    if (v.drift.since_training_s) v.since_training_lyapunov_times = *v.drift.since_training_s * lambda;
+    const RetrainConfig& rc = v.config->retrain;
+    const Micros interval = std::max(NextRetrain(rc, v.schedule.estimates, v.model != nullptr, 0).interval,
+                                     v.config->step);
+    cycle = RetrainCycle{static_cast<double>(interval) / 1e6 * lambda,
+                         static_cast<double>(rc.time_budget) / 1e6 * lambda};
   }
+  v.model_age = ModelAgeInForce(v.config->health, cycle);
   HealthInputs in;
   in.has_data = v.extent.count > 0;
   in.has_model = v.model != nullptr;
@@ -28,7 +37,7 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now) {
   in.drift_ratio = v.drift.drift_ratio;
   in.drift_flag = v.drift.drift_flag;
   in.since_training_lyapunov_times = v.since_training_lyapunov_times;
-  v.health = EvaluateHealth(v.config->health, in);
+  v.health = EvaluateHealth(v.config->health, v.model_age, in);
   return v;
 }
 
@@ -69,13 +78,15 @@ json StalenessJson(const FeedView& v) {
           {"since_training_lyapunov_times", OptionalNumber(v.since_training_lyapunov_times)}};
 }
 
-json ThresholdsJson(const HealthConfig& h) {
-  return {{"drift_warn", h.drift_warn},
-          {"drift_crit", h.drift_crit},
-          {"data_age_warn_s", static_cast<double>(h.data_age_warn) / 1e6},
-          {"data_age_crit_s", static_cast<double>(h.data_age_crit) / 1e6},
-          {"model_age_warn_lyapunov", h.model_age_warn_lyapunov},
-          {"model_age_crit_lyapunov", h.model_age_crit_lyapunov}};
+json ThresholdsJson(const HealthConfig& h, const ModelAgeThresholds& model_age) {
+  return {{"drift_alert", h.drift_alert},
+          {"drift_alarm", h.drift_alarm},
+          {"data_age_alert_s", static_cast<double>(h.data_age_alert) / 1e6},
+          {"data_age_alarm_s", static_cast<double>(h.data_age_alarm) / 1e6},
+          {"model_age_alert_lyapunov", model_age.alert},
+          {"model_age_alarm_lyapunov", model_age.alarm},
+          {"model_age_alert_derived", model_age.alert_derived},
+          {"model_age_alarm_derived", model_age.alarm_derived}};
 }
 
 namespace {
@@ -138,7 +149,7 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
           {"health",
            {{"verdict", VerdictName(v.health.verdict)},
             {"reasons", v.health.reasons},
-            {"thresholds", ThresholdsJson(v.config->health)}}},
+            {"thresholds", ThresholdsJson(v.config->health, v.model_age)}}},
           {"window", std::move(window)},
           {"model", std::move(model)},
           {"drift", std::move(drift)},

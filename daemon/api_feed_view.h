@@ -24,6 +24,7 @@ struct FeedView {
   std::shared_ptr<const ActiveModel> model;
   std::optional<ChosenExponent> exponent;  // the one the cadence paces by
   std::optional<double> since_training_lyapunov_times;
+  ModelAgeThresholds model_age;  // the model-age levels in force (configured or derived)
   HealthResult health;
 };
 
@@ -33,6 +34,6 @@ json ModelJson(const ModelRecord& r);    // without the file
 json JobJson(const Config& config, const JobInfo& j);
 json StalenessJson(const FeedView& v);
 json StatusJson(const ApiContext& c, const FeedView& v);
-json ThresholdsJson(const HealthConfig& h);
+json ThresholdsJson(const HealthConfig& h, const ModelAgeThresholds& model_age);
 
 }  // namespace lyapcast::api

@@ -49,14 +49,14 @@ std::string FeedLabel(const FeedConfig& f) { return fmt::format("feed=\"{}\"", L
 
 HttpResponse Health(const ApiContext& c) {
   const DataTime now = WallNowMicros();
-  Verdict overall = Verdict::kOk;
+  Verdict overall = Verdict::kNormal;
   json feeds = json::array();
   for (std::uint32_t i = 0; i < c.config->feeds.size(); ++i) {
     const FeedView v = ViewFeed(c, i, now);
     overall = WorseVerdict(overall, v.health.verdict);
     feeds.push_back({{"id", v.config->id}, {"verdict", VerdictName(v.health.verdict)}, {"reasons", v.health.reasons}});
   }
-  return Json(overall == Verdict::kCritical ? 503 : 200,
+  return Json(overall == Verdict::kAlarm ? 503 : 200,
               json{{"status", VerdictName(overall)},
                    {"storage_available", c.writer->storage_available()},
                    {"feeds", std::move(feeds)}});
@@ -119,7 +119,7 @@ HttpResponse Metrics(const ApiContext& c) {
   constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
   per_feed("lyapcast_feed_window_samples", "gauge", "Samples in the feed's stored window.",
            [](const FeedView& v) { return static_cast<double>(v.extent.count); });
-  per_feed("lyapcast_feed_health", "gauge", "Health verdict as a monitoring exit code: 0 OK, 1 WARNING, 2 CRITICAL, 3 UNKNOWN.",
+  per_feed("lyapcast_feed_health", "gauge", "Health verdict as its exit code: 0 normal, 1 alert, 2 alarm, 3 indeterminate.",
            [](const FeedView& v) { return static_cast<double>(VerdictExitCode(v.health.verdict)); });
   per_feed("lyapcast_feed_paused", "gauge", "1 while the feed is paused (no retraining, no drift alarms).",
            [](const FeedView& v) { return v.schedule.paused ? 1.0 : 0.0; });

@@ -299,7 +299,7 @@
         sections.set(r.feed.id, sec);
       }
       sec.replaceChildren(...renderFeed(r));
-      sec.setAttribute("data-verdict", r.status && r.status.health ? r.status.health.verdict : "UNKNOWN");
+      sec.setAttribute("data-verdict", r.status && r.status.health ? r.status.health.verdict : "indeterminate");
       order.push(sec);
     }
     for (const id of Array.from(sections.keys())) if (!seen.has(id)) sections.delete(id);
@@ -307,10 +307,10 @@
   }
 
   const VERDICT_WORDS = {
-    OK: "Healthy: the model is fresh and tracks the data",
-    WARNING: "Warning: see the reasons below",
-    CRITICAL: "Critical: act on the reasons below",
-    UNKNOWN: "Unknown: no data or no model yet",
+    normal: "Normal: the model is fresh and tracks the data",
+    alert: "Alert: needs attention, see the reasons below",
+    alarm: "Alarm: act now on the reasons below",
+    indeterminate: "Indeterminate: cannot judge yet (no data or no model)",
   };
 
   function renderFeed(r) {
@@ -326,7 +326,7 @@
         " · step " + duration(f.step_s) + " · " + count + " samples in the window" +
         (f.dynamics_known ? " · known dynamics" : "") }));
 
-    const verdict = s && s.health ? s.health.verdict : "UNKNOWN";
+    const verdict = s && s.health ? s.health.verdict : "indeterminate";
     const reasons = s && s.health && Array.isArray(s.health.reasons) ? s.health.reasons : [];
     const vbox = el("div", { class: "verdict-box" },
       el("span", { class: "verdict", "data-field": "verdict", "data-value": verdict, text: verdict }),
@@ -350,10 +350,10 @@
 
   function errText(e) { return e ? (e.message || String(e)) : "unknown error"; }
 
-  function level(v, warn, crit) {
+  function level(v, alert, alarm) {
     if (!isNum(v)) return null;
-    if (isNum(crit) && v >= crit) return "crit";
-    if (isNum(warn) && v >= warn) return "warn";
+    if (isNum(alarm) && v >= alarm) return "alarm";
+    if (isNum(alert) && v >= alert) return "alert";
     return null;
   }
 
@@ -374,16 +374,16 @@
     const job = s.last_job;
     const figs = [];
 
-    let driftDetail = "rolling one-step error / validation error; warning at " + num(th.drift_warn) +
-      ", critical at " + num(th.drift_crit);
+    let driftDetail = "rolling one-step error / validation error; alert at " + num(th.drift_alert) +
+      ", alarm at " + num(th.drift_alarm);
     if (d.warming_up) driftDetail = "warming up (" + (d.scored || 0) + " samples scored); " + driftDetail;
     if (d.flag) driftDetail = "DRIFT FLAGGED" + (d.flagged_at ? " at " + timeText(d.flagged_at) : "") + "; " + driftDetail;
     figs.push(figure("drift-ratio", "Drift ratio", num(d.ratio), d.ratio, driftDetail,
-      d.flag ? "crit" : level(d.ratio, th.drift_warn, th.drift_crit)));
+      d.flag ? "alarm" : level(d.ratio, th.drift_alert, th.drift_alarm)));
 
     figs.push(figure("data-age", "Data age (wall time)", duration(st.data_age_s), st.data_age_s,
       s.window && s.window.newest ? "newest sample " + timeText(s.window.newest) : "no data yet",
-      level(st.data_age_s, th.data_age_warn_s, th.data_age_crit_s)));
+      level(st.data_age_s, th.data_age_alert_s, th.data_age_alarm_s)));
 
     figs.push(figure("model-version", "Active model", m ? "v" + m.version : "none yet", m ? m.version : null,
       m ? "trained on data up to " + timeText(m.trained_to) + "; validation error " + num(m.validation_error)
@@ -395,8 +395,9 @@
     figs.push(figure("since-training", "Since training", isNum(st.since_training_lyapunov_times)
       ? num(st.since_training_lyapunov_times) + " Lyapunov times" : "—", st.since_training_lyapunov_times,
       (isNum(st.since_training_s) ? duration(st.since_training_s) + " of data; " : "") +
-      "warning at " + num(th.model_age_warn_lyapunov) + ", critical at " + num(th.model_age_crit_lyapunov),
-      level(st.since_training_lyapunov_times, th.model_age_warn_lyapunov, th.model_age_crit_lyapunov)));
+      "alert at " + num(th.model_age_alert_lyapunov) + ", alarm at " + num(th.model_age_alarm_lyapunov) +
+      (th.model_age_alert_derived || th.model_age_alarm_derived ? " (derived from the retrain cadence)" : ""),
+      level(st.since_training_lyapunov_times, th.model_age_alert_lyapunov, th.model_age_alarm_lyapunov)));
 
     let lyText = "—", lyDetail = "no Lyapunov exponent estimate yet";
     if (ly) {
@@ -419,7 +420,7 @@
       }
     }
     figs.push(figure("horizon", "Predictability horizon", hzText, hz ? hz.seconds : null, hzDetail,
-      hz && hz.seconds === 0 ? "crit" : null));
+      hz && hz.seconds === 0 ? "alarm" : null));
 
     let nextText = "—";
     if (s.paused) nextText = "paused";
@@ -444,7 +445,7 @@
     jobDetail = (jobDetail ? jobDetail + ". " : "") + "Totals: " + (jobs.promoted || 0) + " promoted, " +
       (jobs.rejected || 0) + " rejected, " + (jobs.failed || 0) + " failed";
     figs.push(figure("last-job", "Last retrain job", jobText, job ? job.verdict : null, jobDetail,
-      job && job.verdict && job.verdict !== "promoted" ? "warn" : null));
+      job && job.verdict && job.verdict !== "promoted" ? "alert" : null));
 
     return el("dl", { class: "figures" }, figs);
   }

@@ -375,19 +375,36 @@ MonitorConfig ReadMonitor(const Value& v) {
 }
 
 HealthConfig ReadHealth(const Value& v) {
-  const MapReader m = v.Map({"drift_warn", "drift_crit", "data_age_warn", "data_age_crit", "model_age_warn_lyapunov",
-                             "model_age_crit_lyapunov"});
+  // Earlier releases named the levels warn/crit; say what they are called now
+  // rather than only "unknown key".
+  static constexpr std::pair<const char*, const char*> kRenamed[] = {
+      {"drift_warn", "drift_alert"},
+      {"drift_crit", "drift_alarm"},
+      {"data_age_warn", "data_age_alert"},
+      {"data_age_crit", "data_age_alarm"},
+      {"model_age_warn_lyapunov", "model_age_alert_lyapunov"},
+      {"model_age_crit_lyapunov", "model_age_alarm_lyapunov"}};
+  const MapReader any = v.MapAnyKeys();
+  for (const auto& [old_key, new_key] : kRenamed) {
+    if (auto x = any.Get(old_key)) {
+      x->Fail(fmt::format("renamed to {} (health levels are now alert and alarm); rename the key", new_key));
+    }
+  }
+  const MapReader m = v.Map({"drift_alert", "drift_alarm", "data_age_alert", "data_age_alarm",
+                             "model_age_alert_lyapunov", "model_age_alarm_lyapunov"});
   HealthConfig c;
-  if (auto x = m.Get("drift_warn")) c.drift_warn = x->Real(RealRange::Positive());
-  if (auto x = m.Get("drift_crit")) c.drift_crit = x->Real(RealRange::Positive());
-  if (auto x = m.Get("data_age_warn")) c.data_age_warn = x->Duration(DurationRule::Positive());
-  if (auto x = m.Get("data_age_crit")) c.data_age_crit = x->Duration(DurationRule::Positive());
-  if (auto x = m.Get("model_age_warn_lyapunov")) c.model_age_warn_lyapunov = x->Real(RealRange::Positive());
-  if (auto x = m.Get("model_age_crit_lyapunov")) c.model_age_crit_lyapunov = x->Real(RealRange::Positive());
-  CheckOrder(m, "drift_warn", c.drift_warn, "drift_crit", c.drift_crit, FormatReal);
-  CheckOrder(m, "data_age_warn", c.data_age_warn, "data_age_crit", c.data_age_crit, FormatDuration);
-  CheckOrder(m, "model_age_warn_lyapunov", c.model_age_warn_lyapunov, "model_age_crit_lyapunov",
-             c.model_age_crit_lyapunov, FormatReal);
+  if (auto x = m.Get("drift_alert")) c.drift_alert = x->Real(RealRange::Positive());
+  if (auto x = m.Get("drift_alarm")) c.drift_alarm = x->Real(RealRange::Positive());
+  if (auto x = m.Get("data_age_alert")) c.data_age_alert = x->Duration(DurationRule::Positive());
+  if (auto x = m.Get("data_age_alarm")) c.data_age_alarm = x->Duration(DurationRule::Positive());
+  if (auto x = m.Get("model_age_alert_lyapunov")) c.model_age_alert_lyapunov = x->Real(RealRange::Positive());
+  if (auto x = m.Get("model_age_alarm_lyapunov")) c.model_age_alarm_lyapunov = x->Real(RealRange::Positive());
+  CheckOrder(m, "drift_alert", c.drift_alert, "drift_alarm", c.drift_alarm, FormatReal);
+  CheckOrder(m, "data_age_alert", c.data_age_alert, "data_age_alarm", c.data_age_alarm, FormatDuration);
+  if (c.model_age_alert_lyapunov && c.model_age_alarm_lyapunov) {
+    CheckOrder(m, "model_age_alert_lyapunov", *c.model_age_alert_lyapunov, "model_age_alarm_lyapunov",
+               *c.model_age_alarm_lyapunov, FormatReal);
+  }
   return c;
 }
 

@@ -119,13 +119,15 @@ struct MonitorConfig {
   double change_drift = 0.5;       // change-test drift allowance per sample, same units
 };
 
+// Alert / alarm levels of the health checks (monitor/health.h).
 struct HealthConfig {
-  double drift_warn = 2.0;
-  double drift_crit = 5.0;
-  Micros data_age_warn = 30 * kMicrosPerSecond;
-  Micros data_age_crit = 5 * 60 * kMicrosPerSecond;
-  double model_age_warn_lyapunov = 2.0;
-  double model_age_crit_lyapunov = 10.0;
+  double drift_alert = 2.0;
+  double drift_alarm = 5.0;
+  Micros data_age_alert = 30 * kMicrosPerSecond;
+  Micros data_age_alarm = 5 * 60 * kMicrosPerSecond;
+  // Unset: derived from the retrain cadence (ModelAgeInForce in monitor/health.h).
+  std::optional<double> model_age_alert_lyapunov;
+  std::optional<double> model_age_alarm_lyapunov;
 };
 
 struct FeedConfig {

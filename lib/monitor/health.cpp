@@ -2,6 +2,7 @@
 
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cmath>
 #include <string>
 #include <utility>
@@ -10,16 +11,6 @@
 
 namespace lyapcast {
 namespace {
-
-int Severity(Verdict v) {  // OK < UNKNOWN < WARNING < CRITICAL
-  switch (v) {
-    case Verdict::kOk: return 0;
-    case Verdict::kUnknown: return 1;
-    case Verdict::kWarning: return 2;
-    case Verdict::kCritical: return 3;
-  }
-  return 1;
-}
 
 class Judge {
  public:
@@ -33,11 +24,12 @@ class Judge {
   HealthResult result_;
 };
 
-// CRITICAL at or above crit, WARNING at or above warn, else OK (NaN: OK).
-Verdict Level(double value, double warn, double crit) {
-  if (value >= crit) return Verdict::kCritical;
-  if (value >= warn) return Verdict::kWarning;
-  return Verdict::kOk;
+// alarm at or above the alarm level, alert at or above the alert level,
+// else normal (NaN: normal).
+Verdict Level(double value, double alert, double alarm) {
+  if (value >= alarm) return Verdict::kAlarm;
+  if (value >= alert) return Verdict::kAlert;
+  return Verdict::kNormal;
 }
 
 // A measured value for a reason: two decimals, truncated, so a value just
@@ -48,25 +40,51 @@ std::string Shown(double x) { return fmt::format("{}", std::floor(x * 100 + 1e-9
 
 const char* VerdictName(Verdict v) {
   switch (v) {
-    case Verdict::kOk: return "OK";
-    case Verdict::kWarning: return "WARNING";
-    case Verdict::kCritical: return "CRITICAL";
-    case Verdict::kUnknown: return "UNKNOWN";
+    case Verdict::kNormal: return "normal";
+    case Verdict::kAlert: return "alert";
+    case Verdict::kAlarm: return "alarm";
+    case Verdict::kIndeterminate: return "indeterminate";
   }
-  return "UNKNOWN";
+  return "indeterminate";
 }
 
 int VerdictExitCode(Verdict v) {
   switch (v) {
-    case Verdict::kOk: return 0;
-    case Verdict::kWarning: return 1;
-    case Verdict::kCritical: return 2;
-    case Verdict::kUnknown: return 3;
+    case Verdict::kNormal: return 0;
+    case Verdict::kAlert: return 1;
+    case Verdict::kAlarm: return 2;
+    case Verdict::kIndeterminate: return 3;
   }
   return 3;
 }
 
-Verdict WorseVerdict(Verdict a, Verdict b) { return Severity(b) > Severity(a) ? b : a; }
+int VerdictSeverity(Verdict v) {
+  switch (v) {
+    case Verdict::kNormal: return 0;
+    case Verdict::kIndeterminate: return 1;
+    case Verdict::kAlert: return 2;
+    case Verdict::kAlarm: return 3;
+  }
+  return 1;
+}
+
+Verdict WorseVerdict(Verdict a, Verdict b) { return VerdictSeverity(b) > VerdictSeverity(a) ? b : a; }
+
+ModelAgeThresholds ModelAgeInForce(const HealthConfig& configured, const std::optional<RetrainCycle>& cycle) {
+  ModelAgeThresholds t;
+  if (cycle) {
+    t.alert = std::max(t.alert, 3 * cycle->interval_lyapunov_times + cycle->time_budget_lyapunov_times);
+    t.alarm = std::max(t.alarm, 10 * cycle->interval_lyapunov_times + cycle->time_budget_lyapunov_times);
+  }
+  t.alert_derived = cycle && !configured.model_age_alert_lyapunov;
+  t.alarm_derived = cycle && !configured.model_age_alarm_lyapunov;
+  if (configured.model_age_alert_lyapunov) t.alert = *configured.model_age_alert_lyapunov;
+  if (configured.model_age_alarm_lyapunov) t.alarm = *configured.model_age_alarm_lyapunov;
+  // One set, the other derived: keep alert below alarm.
+  if (configured.model_age_alert_lyapunov && !configured.model_age_alarm_lyapunov) t.alarm = std::max(t.alarm, t.alert);
+  if (configured.model_age_alarm_lyapunov && !configured.model_age_alert_lyapunov) t.alert = std::min(t.alert, t.alarm);
+  return t;
+}
 
 std::string FormatAge(double seconds) {
   if (std::isnan(seconds)) return "?";
@@ -81,45 +99,46 @@ std::string FormatAge(double seconds) {
   return fmt::format("{}d{}h", s / 86400, s % 86400 / 3600);
 }
 
-HealthResult EvaluateHealth(const HealthConfig& t, const HealthInputs& in) {
+HealthResult EvaluateHealth(const HealthConfig& t, const ModelAgeThresholds& model_age, const HealthInputs& in) {
   Judge judge;
   if (!in.storage_available) {
-    judge.Add(Verdict::kCritical, "storage unavailable: samples are not being committed");
+    judge.Add(Verdict::kAlarm, "storage unavailable: samples are not being committed");
   }
-  if (!in.has_data) judge.Add(Verdict::kUnknown, "no sample received yet");
-  if (!in.has_model) judge.Add(Verdict::kUnknown, "no model yet");
+  if (!in.has_data) judge.Add(Verdict::kIndeterminate, "no sample received yet");
+  if (!in.has_model) judge.Add(Verdict::kIndeterminate, "no model yet");
   if (in.paused) {
-    judge.Add(Verdict::kOk, "paused: data age, drift and model age are not judged");
+    judge.Add(Verdict::kNormal, "paused: data age, drift and model age are not judged");
     return judge.Take();
   }
   if (in.has_data && in.data_age_s) {
     const double age = *in.data_age_s;
     const Verdict v =
-        Level(age, static_cast<double>(t.data_age_warn) / 1e6, static_cast<double>(t.data_age_crit) / 1e6);
-    if (v != Verdict::kOk) {
-      const bool crit = v == Verdict::kCritical;
-      judge.Add(v, fmt::format("no sample for {} ({} {})", FormatAge(age), crit ? "data_age_crit" : "data_age_warn",
-                               FormatDuration(crit ? t.data_age_crit : t.data_age_warn)));
+        Level(age, static_cast<double>(t.data_age_alert) / 1e6, static_cast<double>(t.data_age_alarm) / 1e6);
+    if (v != Verdict::kNormal) {
+      const bool alarm = v == Verdict::kAlarm;
+      judge.Add(v, fmt::format("no sample for {} ({} {})", FormatAge(age), alarm ? "data_age_alarm" : "data_age_alert",
+                               FormatDuration(alarm ? t.data_age_alarm : t.data_age_alert)));
     }
   }
   if (!in.has_model) return judge.Take();
   if (in.drift_ratio) {
-    const Verdict v = Level(*in.drift_ratio, t.drift_warn, t.drift_crit);
-    if (v != Verdict::kOk) {
-      const bool crit = v == Verdict::kCritical;
-      judge.Add(v, fmt::format("drift ratio {} >= {} {:g}", Shown(*in.drift_ratio), crit ? "drift_crit" : "drift_warn",
-                               crit ? t.drift_crit : t.drift_warn));
+    const Verdict v = Level(*in.drift_ratio, t.drift_alert, t.drift_alarm);
+    if (v != Verdict::kNormal) {
+      const bool alarm = v == Verdict::kAlarm;
+      judge.Add(v, fmt::format("drift ratio {} >= {} {:g}", Shown(*in.drift_ratio),
+                               alarm ? "drift_alarm" : "drift_alert", alarm ? t.drift_alarm : t.drift_alert));
     }
   }
-  if (in.drift_flag) judge.Add(Verdict::kWarning, "drift flag raised by the change test");
+  if (in.drift_flag) judge.Add(Verdict::kAlert, "drift flag raised by the change test");
   if (in.since_training_lyapunov_times) {
     const double lt = *in.since_training_lyapunov_times;
-    const Verdict v = Level(lt, t.model_age_warn_lyapunov, t.model_age_crit_lyapunov);
-    if (v != Verdict::kOk) {
-      const bool crit = v == Verdict::kCritical;
-      judge.Add(v, fmt::format("{} Lyapunov times of data since the model's training chunk >= {} {:g}", Shown(lt),
-                               crit ? "model_age_crit_lyapunov" : "model_age_warn_lyapunov",
-                               crit ? t.model_age_crit_lyapunov : t.model_age_warn_lyapunov));
+    const Verdict v = Level(lt, model_age.alert, model_age.alarm);
+    if (v != Verdict::kNormal) {
+      const bool alarm = v == Verdict::kAlarm;
+      judge.Add(v, fmt::format("{} Lyapunov times of data since the model's training chunk >= {} {}{}", Shown(lt),
+                               alarm ? "model_age_alarm_lyapunov" : "model_age_alert_lyapunov",
+                               Shown(alarm ? model_age.alarm : model_age.alert),
+                               (alarm ? model_age.alarm_derived : model_age.alert_derived) ? " (derived from the retrain cadence)" : ""));
     }
   }
   return judge.Take();

@@ -1,17 +1,27 @@
-// Health of one feed: OK / WARNING / CRITICAL / UNKNOWN from configured
-// thresholds (DESIGN.md "Monitoring"), for /v1/health and for
-// `lyapcast check` (which may override the thresholds on its command line).
+// Health of one feed, judged against configured thresholds, for /v1/health,
+// the status routes, the metrics and `lyapcast check` (which may override
+// the thresholds on its command line).
+//
+// The four verdicts use the words of process alarm management: an *alert*
+// asks the operator to look at something when convenient, an *alarm* asks
+// for a response now.
+//   normal         every check passes (exit code 0)
+//   alert          needs attention: a threshold's alert level is reached (1)
+//   alarm          act now: an alarm level is reached, or storage is down (2)
+//   indeterminate  cannot judge: no sample or no model yet (3)
+// The exit codes are the widely used monitoring-plugin convention, so any
+// scheduler or monitoring system can act on them.
 //
 // Checks, in the order their reasons are listed (each value compared with
 // >=: reaching a threshold counts):
-//   - storage unavailable                         -> CRITICAL
-//   - no sample yet / no model yet                -> UNKNOWN (nothing to judge)
-//   - paused                                      -> a note only, see below
-//   - data_age_s vs data_age_warn / data_age_crit -> WARNING / CRITICAL
-//   - drift_ratio vs drift_warn / drift_crit      -> WARNING / CRITICAL
-//   - drift flag raised by the change test        -> WARNING
-//   - since_training_lyapunov_times vs model_age_warn_lyapunov /
-//     model_age_crit_lyapunov                     -> WARNING / CRITICAL
+//   - storage unavailable                            -> alarm
+//   - no sample yet / no model yet                   -> indeterminate
+//   - paused                                         -> a note only, see below
+//   - data_age_s vs data_age_alert / data_age_alarm  -> alert / alarm
+//   - drift_ratio vs drift_alert / drift_alarm       -> alert / alarm
+//   - drift flag raised by the change test           -> alert
+//   - since_training_lyapunov_times vs the model-age thresholds in force
+//     (ModelAgeInForce)                              -> alert / alarm
 // While paused (plant shutdown) only storage and the no-data / no-model
 // checks apply -- a stopped plant sends nothing and its model cannot drift --
 // and "paused" is listed as a note that does not change the verdict.
@@ -19,11 +29,11 @@
 // nor model age is. Absent or NaN values are not judged.
 //
 // The verdict is the worst of all checks in the order
-// OK < UNKNOWN < WARNING < CRITICAL: a problem that is known (data stopped,
-// storage down) matters more to an alert than "no model to judge yet", so
-// UNKNOWN never hides it. reasons lists every check that is not OK (and
-// the pause note) in plain words with the value and the threshold, e.g.
-// "drift ratio 5.3 >= drift_crit 5", "no sample for 6m12s (data_age_crit 5m)".
+// normal < indeterminate < alert < alarm: a problem that is known (data
+// stopped, storage down) matters more than "no model to judge yet", so
+// indeterminate never hides it. reasons lists every check that is not normal
+// (and the pause note) in plain words with the value and the threshold, e.g.
+// "drift ratio 5.3 >= drift_alarm 5", "no sample for 6m12s (data_age_alarm 5m)".
 //
 // Pure functions of their arguments; thread-safe; no daemon state.
 #pragma once
@@ -36,14 +46,38 @@
 
 namespace lyapcast {
 
-enum class Verdict { kOk, kWarning, kCritical, kUnknown };
+enum class Verdict { kNormal, kAlert, kAlarm, kIndeterminate };
 
-// "OK", "WARNING", "CRITICAL", "UNKNOWN".
+// "normal", "alert", "alarm", "indeterminate".
 const char* VerdictName(Verdict v);
-// Monitoring-plugin exit code: 0 OK, 1 WARNING, 2 CRITICAL, 3 UNKNOWN.
+// Monitoring-plugin exit code: 0 normal, 1 alert, 2 alarm, 3 indeterminate.
 int VerdictExitCode(Verdict v);
 // The worse of two verdicts in the order above.
 Verdict WorseVerdict(Verdict a, Verdict b);
+// Rank for sorting, worst highest: normal 0, indeterminate 1, alert 2, alarm 3.
+int VerdictSeverity(Verdict v);
+
+// The model-age thresholds that apply, in Lyapunov times of data since the
+// model's training chunk. The configured ones when set; otherwise derived
+// from the retrain cycle, because the model ages by a whole retrain
+// interval (plus the job's run time) before every promotion, and a fixed
+// default below that would read "alert" forever on a healthy feed:
+//   alert = max(2,  (3 * interval + time_budget) / T)   two retrains missed
+//   alarm = max(10, (10 * interval + time_budget) / T)  about nine missed
+// with interval the cadence's current retrain interval and T the Lyapunov
+// time it paces by. `cycle` absent (no positive exponent) gives the fixed
+// floors 2 and 10.
+struct RetrainCycle {
+  double interval_lyapunov_times = 0;     // the cadence's interval / T
+  double time_budget_lyapunov_times = 0;  // retrain.time_budget / T
+};
+struct ModelAgeThresholds {
+  double alert = 2;
+  double alarm = 10;
+  bool alert_derived = false;  // not configured and derived from a known cycle
+  bool alarm_derived = false;
+};
+ModelAgeThresholds ModelAgeInForce(const HealthConfig& configured, const std::optional<RetrainCycle>& cycle);
 
 struct HealthInputs {
   bool has_data = false;           // any sample of the feed stored
@@ -59,11 +93,13 @@ struct HealthInputs {
 };
 
 struct HealthResult {
-  Verdict verdict = Verdict::kOk;
-  std::vector<std::string> reasons;  // empty when every check is OK and the feed is not paused
+  Verdict verdict = Verdict::kNormal;
+  std::vector<std::string> reasons;  // empty when every check passes and the feed is not paused
 };
 
-HealthResult EvaluateHealth(const HealthConfig& thresholds, const HealthInputs& in);
+// `model_age` is ModelAgeInForce's answer for this feed.
+HealthResult EvaluateHealth(const HealthConfig& thresholds, const ModelAgeThresholds& model_age,
+                            const HealthInputs& in);
 
 // A span of seconds as operators read it: "45s", "6m12s", "2h05m", "3d4h";
 // below 10 s with one decimal ("2.5s"); negative spans get a minus sign.

@@ -405,19 +405,21 @@ void Scheduler::ScheduleNextLocked(Feed& f, std::uint32_t, DataTime since, bool 
   const CadenceDecision d = NextRetrain(rc, f.s.estimates, has_model, since);
   f.s.next_due = since + std::max(d.interval, fc.step);
   f.s.next_reason = d.reason;
-  // The model ages between retrains by the interval itself: a warning
-  // threshold below it makes the health verdict read WARNING before every
-  // retrain, which teaches operators to ignore it.
-  if (d.exponent && d.exponent->lambda_max > 0 && !f.warned_model_age) {
+  // The model ages between retrains by the interval itself: an alert level
+  // below it makes the health verdict read "alert" before every retrain,
+  // which teaches operators to ignore it. (Unset levels are derived from
+  // the cadence and cannot fall below it.)
+  const std::optional<double> alert_level = fc.health.model_age_alert_lyapunov;
+  if (alert_level && d.exponent && d.exponent->lambda_max > 0 && !f.warned_model_age) {
     const double interval_lt = static_cast<double>(d.interval) / 1e6 * d.exponent->lambda_max;
-    if (interval_lt >= fc.health.model_age_warn_lyapunov) {
+    if (interval_lt >= *alert_level) {
       f.warned_model_age = true;
       Log(SchedulerLogLevel::kWarning,
           fmt::format("feed {}: retrains are {} apart, {:.2g} Lyapunov times, not below health."
-                      "model_age_warn_lyapunov {:g}: the verdict will read WARNING before each retrain; raise "
-                      "model_age_warn_lyapunov (and _crit) above {:.2g} or lower retrain.min_interval",
-                      fc.id, FormatDuration(d.interval), interval_lt, fc.health.model_age_warn_lyapunov,
-                      interval_lt));
+                      "model_age_alert_lyapunov {:g}: the verdict will read alert before each retrain; raise "
+                      "model_age_alert_lyapunov (and _alarm) above {:.2g}, leave both unset to derive them from "
+                      "the cadence, or lower retrain.min_interval",
+                      fc.id, FormatDuration(d.interval), interval_lt, *alert_level, interval_lt));
     }
   }
 }

@@ -151,12 +151,12 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_DOUBLE_EQ(f.monitor.horizon_tol, 0.5);
   EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 15.0);
   EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.5);
-  EXPECT_DOUBLE_EQ(f.health.drift_warn, 2.0);
-  EXPECT_DOUBLE_EQ(f.health.drift_crit, 5.0);
-  EXPECT_EQ(f.health.data_age_warn, 30 * kMicrosPerSecond);
-  EXPECT_EQ(f.health.data_age_crit, 300 * kMicrosPerSecond);
-  EXPECT_DOUBLE_EQ(f.health.model_age_warn_lyapunov, 2.0);
-  EXPECT_DOUBLE_EQ(f.health.model_age_crit_lyapunov, 10.0);
+  EXPECT_DOUBLE_EQ(f.health.drift_alert, 2.0);
+  EXPECT_DOUBLE_EQ(f.health.drift_alarm, 5.0);
+  EXPECT_EQ(f.health.data_age_alert, 30 * kMicrosPerSecond);
+  EXPECT_EQ(f.health.data_age_alarm, 300 * kMicrosPerSecond);
+  EXPECT_FALSE(f.health.model_age_alert_lyapunov) << "unset: derived from the cadence";
+  EXPECT_FALSE(f.health.model_age_alarm_lyapunov);
 }
 
 TEST(ConfigDefaults, EveryKeyIsRead) {
@@ -182,8 +182,8 @@ feeds:
               replay: 0, validation: 0.5, iterations: 1, batch: 1, learning_rate: 0.1,
               weight_decay: 1e-4, clip: 3, time_budget: 2m, promote_tolerance: 0}
     monitor: {horizon_tol: 0.1, change_threshold: 1, change_drift: 0}
-    health: {drift_warn: 1, drift_crit: 1, data_age_warn: 1s, data_age_crit: 1s,
-             model_age_warn_lyapunov: 0.5, model_age_crit_lyapunov: 0.75}
+    health: {drift_alert: 1, drift_alarm: 1, data_age_alert: 1s, data_age_alarm: 1s,
+             model_age_alert_lyapunov: 0.5, model_age_alarm_lyapunov: 0.75}
 )";
   const Config c = MustParse(yaml, "/etc/lc/x.yaml");
   EXPECT_EQ(c.listen.ingest.host, "::1");
@@ -242,12 +242,12 @@ feeds:
   EXPECT_DOUBLE_EQ(f.monitor.horizon_tol, 0.1);
   EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 1.0);
   EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.0);
-  EXPECT_DOUBLE_EQ(f.health.drift_warn, 1.0);
-  EXPECT_DOUBLE_EQ(f.health.drift_crit, 1.0);
-  EXPECT_EQ(f.health.data_age_warn, kMicrosPerSecond);
-  EXPECT_EQ(f.health.data_age_crit, kMicrosPerSecond);
-  EXPECT_DOUBLE_EQ(f.health.model_age_warn_lyapunov, 0.5);
-  EXPECT_DOUBLE_EQ(f.health.model_age_crit_lyapunov, 0.75);
+  EXPECT_DOUBLE_EQ(f.health.drift_alert, 1.0);
+  EXPECT_DOUBLE_EQ(f.health.drift_alarm, 1.0);
+  EXPECT_EQ(f.health.data_age_alert, kMicrosPerSecond);
+  EXPECT_EQ(f.health.data_age_alarm, kMicrosPerSecond);
+  EXPECT_EQ(f.health.model_age_alert_lyapunov, 0.5);
+  EXPECT_EQ(f.health.model_age_alarm_lyapunov, 0.75);
 }
 
 TEST(ConfigDefaults, EmptySectionsReadAsDefaults) {
@@ -356,7 +356,7 @@ TEST(ConfigErrors, DurationsAndSizes) {
   ExpectError("limits: {max_line: 64KB}\n" + std::string(kMinimal), 1, "limits.max_line",
               {"must be a size from 1 byte to 1GiB such as 65536 or 64KiB", "got '64KB'"});
   ExpectError("limits: {max_line: 0}\n" + std::string(kMinimal), 1, "limits.max_line", {"must be a size from 1"});
-  ExpectError(FeedWith("    health: {data_age_warn: soon}\n"), 4, "feeds[0].health.data_age_warn",
+  ExpectError(FeedWith("    health: {data_age_alert: soon}\n"), 4, "feeds[0].health.data_age_alert",
               {"positive duration", "got 'soon'"});
 }
 
@@ -426,14 +426,19 @@ INSTANTIATE_TEST_SUITE_P(
                   "a number > 0"},
         RangeCase{"change_drift", FeedWith("    monitor: {change_drift: -1}\n"), 4, "feeds[0].monitor.change_drift",
                   "a number >= 0"},
-        RangeCase{"drift_order", FeedWith("    health:\n      drift_warn: 6\n      drift_crit: 5\n"), 5,
-                  "feeds[0].health.drift_warn",
-                  "drift_warn (6) is above drift_crit (5); drift_warn must be <= drift_crit"},
-        RangeCase{"data_age_order", FeedWith("    health:\n      data_age_warn: 10m\n"), 5,
-                  "feeds[0].health.data_age_warn", "data_age_warn (10m) is above data_age_crit (5m)"},
-        RangeCase{"model_age_order", FeedWith("    health: {model_age_crit_lyapunov: 1}\n"), 4,
-                  "feeds[0].health.model_age_crit_lyapunov",
-                  "model_age_warn_lyapunov must be <= model_age_crit_lyapunov"},
+        RangeCase{"drift_order", FeedWith("    health:\n      drift_alert: 6\n      drift_alarm: 5\n"), 5,
+                  "feeds[0].health.drift_alert",
+                  "drift_alert (6) is above drift_alarm (5); drift_alert must be <= drift_alarm"},
+        RangeCase{"data_age_order", FeedWith("    health:\n      data_age_alert: 10m\n"), 5,
+                  "feeds[0].health.data_age_alert", "data_age_alert (10m) is above data_age_alarm (5m)"},
+        RangeCase{"model_age_order",
+                  FeedWith("    health: {model_age_alert_lyapunov: 3, model_age_alarm_lyapunov: 1}\n"), 4,
+                  "feeds[0].health.model_age_alert_lyapunov",
+                  "model_age_alert_lyapunov must be <= model_age_alarm_lyapunov"},
+        RangeCase{"renamed_warn", FeedWith("    health: {drift_warn: 3}\n"), 4, "feeds[0].health.drift_warn",
+                  "renamed to drift_alert"},
+        RangeCase{"renamed_crit", FeedWith("    health:\n      model_age_crit_lyapunov: 3\n"), 5,
+                  "feeds[0].health.model_age_crit_lyapunov", "renamed to model_age_alarm_lyapunov"},
         RangeCase{"anneal_mid",
                   FeedWith("    dynamics:\n      equations: {x: y, y: x}\n      constraints:\n"
                            "        - {kind: velocity, anneal: {mid: 1.5}}\n"),

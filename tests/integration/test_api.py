@@ -12,8 +12,8 @@ clamped to [30 s, 60 s]) puts the next cadence retrain after the end of the
 stream, so only the operator's retrains add versions (the retrain test sends
 5 s more data first). `sparse` has a few samples and no model, `idle` has nothing. The
 health thresholds of `lorenz` are wide (data age 1 h, drift 50, model age
-1000 Lyapunov times) so its verdict is OK however slowly the machine runs.
-Small daemons cover a CRITICAL feed (data_age_crit 1s) and the token
+1000 Lyapunov times) so its verdict is normal however slowly the machine runs.
+Small daemons cover a feed in alarm (data_age_alarm 1s) and the token
 configurations.
 
 Standard library only; /usr/bin/python3; $LYAPCASTD, $LYAPCAST_CLI and
@@ -54,8 +54,8 @@ LORENZ = """
     retrain: {lyapunov_fraction: 50, min_interval: 30s, max_interval: 60s, min_pairs: 1200, iterations: 400,
               batch: 128, learning_rate: 0.003}
     monitor: {change_threshold: 1000}
-    health: {drift_warn: 50, drift_crit: 100, data_age_warn: 1h, data_age_crit: 2h,
-             model_age_warn_lyapunov: 1000, model_age_crit_lyapunov: 2000}
+    health: {drift_alert: 50, drift_alarm: 100, data_age_alert: 1h, data_age_alarm: 2h,
+             model_age_alert_lyapunov: 1000, model_age_alarm_lyapunov: 2000}
   - id: sparse
     channels: [a, b]
     step: 1s
@@ -69,7 +69,7 @@ STALE = """
   - id: stale
     channels: [v]
     step: 100ms
-    health: {data_age_warn: 500ms, data_age_crit: 1s}
+    health: {data_age_alert: 500ms, data_age_alarm: 1s}
 """
 
 SMALL = """
@@ -233,8 +233,9 @@ def check_shape(test, value, spec, path="$"):
 
 
 TIME = "time"
-THRESHOLDS = {"drift_warn": "num", "drift_crit": "num", "data_age_warn_s": "num", "data_age_crit_s": "num",
-              "model_age_warn_lyapunov": "num", "model_age_crit_lyapunov": "num"}
+THRESHOLDS = {"drift_alert": "num", "drift_alarm": "num", "data_age_alert_s": "num", "data_age_alarm_s": "num",
+              "model_age_alert_lyapunov": "num", "model_age_alarm_lyapunov": "num",
+              "model_age_alert_derived": "bool", "model_age_alarm_derived": "bool"}
 JOB = {"id": "int", "feed": "str", "trigger": "str", "trigger_reason": "str", "state": "str", "until": Opt(TIME),
        "parent": Opt("int"), "verdict": Opt("str"), "version": Opt("int"), "outcome": "str", "iterations": "int",
        "seconds": "num"}
@@ -270,8 +271,8 @@ FORECAST = {"feed": "str", "model_version": "int", "channels": ["str"], "step_s"
             "staleness": STATUS["staleness"],
             "points": [{"t": TIME, "values": [Opt("num")], "beyond_horizon": "bool"}],
             "advisory": "str"}
-VERDICTS = {"OK", "WARNING", "CRITICAL", "UNKNOWN"}
-JOB_VERDICTS = {"promoted", "rejected", "not enough data", "cancelled", None}
+VERDICTS = {"normal", "alert", "alarm", "indeterminate"}
+JOB_VERDICTS = {"promoted", "rejected", "not_enough_data", "cancelled", None}
 
 
 # ---------------------------------------------------------------- metrics
@@ -452,21 +453,21 @@ class ApiTest(unittest.TestCase, ApiAssertions):
 
     # ------------------------------------------------------------ health
 
-    def test_health_live(self):
-        body = self.get_json("/v1/health/live")
-        self.assertEqual(body["status"], "live")
+    def test_heartbeat(self):
+        body = self.get_json("/v1/heartbeat")
+        self.assertIs(body["alive"], True)
         self.assertIsInstance(body["version"], str)
         self.assertTrue(body["version"])
         self.assertTrue(is_num(body["uptime_s"]) and body["uptime_s"] >= 0, body)
         self.assertIs(body["storage_available"], True)
 
-    def test_health_per_feed_verdicts_unknown_before_data_and_model(self):
+    def test_health_per_feed_verdicts_indeterminate_before_data_and_model(self):
         before = self.before_health
         self.assertEqual(before.status, 200, before)
         b = before.json()
-        self.assertEqual(b["status"], "UNKNOWN")
+        self.assertEqual(b["status"], "indeterminate")
         for f in b["feeds"]:
-            self.assertEqual(f["verdict"], "UNKNOWN", b)
+            self.assertEqual(f["verdict"], "indeterminate", b)
             self.assertEqual(f["reasons"], ["no sample received yet", "no model yet"], b)
 
         body = self.get_json("/v1/health")
@@ -474,14 +475,14 @@ class ApiTest(unittest.TestCase, ApiAssertions):
                                  "feeds": [{"id": "str", "verdict": "str", "reasons": ["str"]}]})
         feeds = {f["id"]: f for f in body["feeds"]}
         self.assertEqual(list(feeds), ["lorenz", "sparse", "idle"])
-        self.assertEqual(feeds["lorenz"]["verdict"], "OK", body)
+        self.assertEqual(feeds["lorenz"]["verdict"], "normal", body)
         self.assertEqual(feeds["lorenz"]["reasons"], [], body)
-        self.assertEqual(feeds["sparse"]["verdict"], "UNKNOWN")
+        self.assertEqual(feeds["sparse"]["verdict"], "indeterminate")
         self.assertEqual(feeds["sparse"]["reasons"], ["no model yet"])
-        self.assertEqual(feeds["idle"]["verdict"], "UNKNOWN")
+        self.assertEqual(feeds["idle"]["verdict"], "indeterminate")
         self.assertEqual(feeds["idle"]["reasons"], ["no sample received yet", "no model yet"])
-        # The worst feed's verdict, UNKNOWN counting above OK and below WARNING.
-        self.assertEqual(body["status"], "UNKNOWN")
+        # The worst feed's verdict, indeterminate counting above normal and below alert.
+        self.assertEqual(body["status"], "indeterminate")
         self.assertIs(body["storage_available"], True)
         for feed in feeds:
             s = self.status(feed)
@@ -536,7 +537,7 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         self.assertEqual(before["window"], {"samples": 0, "oldest": None, "newest": None})
         self.assertIsNone(before["staleness"]["data_age_s"])
         self.assertIsNone(before["drift"]["ratio"])
-        self.assertEqual(before["health"]["verdict"], "UNKNOWN")
+        self.assertEqual(before["health"]["verdict"], "indeterminate")
 
         for feed in ("idle", "sparse"):
             s = self.status(feed)
@@ -551,9 +552,11 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         s = self.status()
         check_shape(self, s, STATUS)
         self.assertIn(s["health"]["verdict"], VERDICTS)
-        self.assertEqual(s["health"]["thresholds"], {"drift_warn": 50, "drift_crit": 100, "data_age_warn_s": 3600,
-                                                     "data_age_crit_s": 7200, "model_age_warn_lyapunov": 1000,
-                                                     "model_age_crit_lyapunov": 2000})
+        self.assertEqual(s["health"]["thresholds"], {"drift_alert": 50, "drift_alarm": 100, "data_age_alert_s": 3600,
+                                                     "data_age_alarm_s": 7200, "model_age_alert_lyapunov": 1000,
+                                                     "model_age_alarm_lyapunov": 2000,
+                                                     "model_age_alert_derived": False,
+                                                     "model_age_alarm_derived": False})
         # After a model exists, these figures are known.
         self.assertIsNotNone(s["model"])
         self.assertIsNotNone(s["last_job"])
@@ -901,7 +904,7 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         self.assertEqual(r.json(), {"feed": "lorenz", "paused": False})
         self.assertIs(self.status()["paused"], False)
         health = {f["id"]: f for f in self.get_json("/v1/health")["feeds"]}
-        self.assertEqual(health["lorenz"]["verdict"], "OK", health)
+        self.assertEqual(health["lorenz"]["verdict"], "normal", health)
         self.assertEqual(health["lorenz"]["reasons"], [])
 
     # ------------------------------------------------------------ samples
@@ -910,7 +913,9 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         stored = self.stored("lorenz")
         seen, pages, query = [], 0, "?limit=700"
         while True:
-            body = self.get_json("/v1/feeds/lorenz/samples" + query)
+            r = self.get("/v1/feeds/lorenz/samples" + query)
+            self.assertEqual(r.status, 200, r)
+            body = r.json()
             pages += 1
             self.assertEqual(body["feed"], "lorenz")
             self.assertEqual(body["channels"], ["x", "y", "z"])
@@ -920,8 +925,12 @@ class ApiTest(unittest.TestCase, ApiAssertions):
                 seen.append(t)
                 self.assertEqual(s["values"], self.sent[("lorenz", t)], t)
             if body["next"] is None:
+                self.assertNotIn("link", r.headers)
                 break
             nxt = time_us(body["next"])
+            self.assertEqual(r.headers.get("link"),
+                             f'</v1/feeds/lorenz/samples?from={nxt // 1_000_000}.{nxt % 1_000_000:06d}&limit=700'
+                             f'&format=json>; rel="next"')
             self.assertEqual(len(body["samples"]), 700)
             self.assertGreater(nxt, seen[-1])
             # Alternate the two forms of a time parameter.
@@ -946,6 +955,9 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         self.assertEqual([s["values"] for s in sparse], [self.sent[("sparse", time_us(s["t"]))] for s in sparse])
         self.assertEqual(sparse[1]["values"], [0.25, None])
 
+    def test_the_removed_liveness_path_names_its_successor(self):
+        self.assert_error(self.get("/v1/health/live"), 404, "not-found", ["/v1/heartbeat"])
+
     def test_samples_as_csv_are_ingest_lines_that_replay(self):
         stored = self.stored("lorenz")
         rows, query = [], "?format=csv&limit=1500"
@@ -955,11 +967,15 @@ class ApiTest(unittest.TestCase, ApiAssertions):
             self.assertTrue(r.headers["content-type"].startswith("text/csv"), r.headers)
             page = r.text().splitlines()
             rows += page
-            nxt = r.headers.get("x-lyapcast-next")
-            if nxt is None:
+            link = r.headers.get("link")
+            if link is None:
                 break
             self.assertEqual(len(page), 1500)
-            query = f"?format=csv&limit=1500&from={nxt}"
+            # RFC 8288: the next page's target, the same request from its first sample on.
+            m = re.fullmatch(r'</v1/feeds/lorenz/samples\?from=(\d+\.\d{6})&limit=1500&format=csv>; rel="next"', link)
+            self.assertIsNotNone(m, link)
+            self.assertGreater(float(m.group(1)), parse_ingest_csv(page[-1])[1] / 1e6)
+            query = link[link.index("?"):link.index(">")]
         self.assertEqual(len(rows), len(stored))
         for row in rows:
             self.assertRegex(row, r"^lorenz,\d+\.\d{6},")
@@ -994,7 +1010,7 @@ class ApiTest(unittest.TestCase, ApiAssertions):
     # ------------------------------------------------------------ protocol limits
 
     def test_wrong_method_is_405_with_allow(self):
-        cases = [("POST", "/v1/health/live", "GET"), ("POST", "/v1/health", "GET"), ("DELETE", "/v1/feeds", "GET"),
+        cases = [("POST", "/v1/heartbeat", "GET"), ("POST", "/v1/health", "GET"), ("DELETE", "/v1/feeds", "GET"),
                  ("PUT", "/v1/feeds/lorenz/status", "GET"), ("POST", "/v1/feeds/lorenz/forecast", "GET"),
                  ("POST", "/v1/feeds/lorenz/models", "GET"), ("POST", "/v1/feeds/lorenz/models/1/file", "GET"),
                  ("POST", "/v1/feeds/lorenz/samples", "GET"), ("POST", "/v1/feeds/lorenz/jobs/1", "GET"),
@@ -1018,18 +1034,18 @@ class ApiTest(unittest.TestCase, ApiAssertions):
 
     def test_oversized_headers_are_431(self):
         big = b"X-Big: " + b"a" * (16 * 1024) + b"\r\n"
-        r = raw_exchange(self.port, b"GET /v1/health/live HTTP/1.1\r\nHost: x\r\nConnection: close\r\n" + big + b"\r\n")
+        r = raw_exchange(self.port, b"GET /v1/heartbeat HTTP/1.1\r\nHost: x\r\nConnection: close\r\n" + big + b"\r\n")
         self.assert_error(r, 431, "headers-too-large", ["16384"])
         # Just under the limit is fine.
-        r = request(self.port, "GET", "/v1/health/live", headers={"X-Big": "a" * (15 * 1024)})
+        r = request(self.port, "GET", "/v1/heartbeat", headers={"X-Big": "a" * (15 * 1024)})
         self.assertEqual(r.status, 200, r)
 
     def test_too_many_header_fields_are_431(self):
         fields = b"".join(b"X-F%d: 1\r\n" % i for i in range(120))
-        r = raw_exchange(self.port, b"GET /v1/health/live HTTP/1.1\r\nHost: x\r\nConnection: close\r\n"
+        r = raw_exchange(self.port, b"GET /v1/heartbeat HTTP/1.1\r\nHost: x\r\nConnection: close\r\n"
                                     + fields + b"\r\n")
         self.assert_error(r, 431, "too-many-headers", ["100"])
-        r = request(self.port, "GET", "/v1/health/live", headers={f"X-F{i}": "1" for i in range(90)})
+        r = request(self.port, "GET", "/v1/heartbeat", headers={f"X-F{i}": "1" for i in range(90)})
         self.assertEqual(r.status, 200, r)
 
     # ------------------------------------------------------------ metrics
@@ -1100,7 +1116,7 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         for feed, s in statuses.items():
             self.assertEqual(metric(samples, "lyapcast_feed_window_samples", feed=feed), s["window"]["samples"])
             self.assertEqual(metric(samples, "lyapcast_feed_health", feed=feed),
-                             {"OK": 0, "WARNING": 1, "CRITICAL": 2, "UNKNOWN": 3}[s["health"]["verdict"]])
+                             {"normal": 0, "alert": 1, "alarm": 2, "indeterminate": 3}[s["health"]["verdict"]])
             self.assertEqual(metric(samples, "lyapcast_feed_paused", feed=feed), int(s["paused"]))
             model = s["model"]
             self.assertEqual(metric(samples, "lyapcast_feed_model_version", feed=feed),
@@ -1128,24 +1144,24 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         self.assertIsNotNone(metric(samples, "lyapcast_feed_drift_ratio", feed="lorenz"))
 
 
-# ---------------------------------------------------------------- a CRITICAL feed
+# ---------------------------------------------------------------- a feed in alarm
 
-class HealthCriticalTest(unittest.TestCase, ApiAssertions):
-    def test_a_feed_past_data_age_crit_makes_health_503_with_the_reason(self):
+class HealthAlarmTest(unittest.TestCase, ApiAssertions):
+    def test_a_feed_past_data_age_alarm_makes_health_503_with_the_reason(self):
         with Daemon() as d:
             with open(d.config_path, "w") as f:
                 f.write(config(d.db, STALE))
             d.start()
             self.port = d.http_port
             before = self.get_json("/v1/health")
-            self.assertEqual(before["status"], "UNKNOWN")
-            self.assertEqual(before["feeds"], [{"id": "stale", "verdict": "UNKNOWN",
+            self.assertEqual(before["status"], "indeterminate")
+            self.assertEqual(before["feeds"], [{"id": "stale", "verdict": "indeterminate",
                                                 "reasons": ["no sample received yet", "no model yet"]}])
             client = IngestClient(d.ingest_port)
             client.send_lines([f"stale,{START_S}.{k}00000,{k}" for k in range(5)])
             self.assertEqual(len(client.wait_replies(5)), 5)
             client.close()
-            time.sleep(1.1)  # data_age_crit is 1s of wall time after the last sample arrived
+            time.sleep(1.1)  # data_age_alarm is 1s of wall time after the last sample arrived
             deadline = time.monotonic() + 10
             r = self.get("/v1/health")
             while r.status != 503 and time.monotonic() < deadline:
@@ -1153,23 +1169,23 @@ class HealthCriticalTest(unittest.TestCase, ApiAssertions):
                 r = self.get("/v1/health")
             self.assertEqual(r.status, 503, r)
             body = r.json()
-            self.assertEqual(body["status"], "CRITICAL", body)
-            self.assertEqual(body["feeds"][0]["verdict"], "CRITICAL")
+            self.assertEqual(body["status"], "alarm", body)
+            self.assertEqual(body["feeds"][0]["verdict"], "alarm")
             reasons = body["feeds"][0]["reasons"]
-            self.assertTrue(any(re.fullmatch(r"no sample for \d+(\.\d)?s \(data_age_crit 1s\)", x) for x in reasons),
+            self.assertTrue(any(re.fullmatch(r"no sample for \d+(\.\d)?s \(data_age_alarm 1s\)", x) for x in reasons),
                             reasons)
             self.assertIn("no model yet", reasons)
             status = self.get_json("/v1/feeds/stale/status")
-            self.assertEqual(status["health"]["verdict"], "CRITICAL")
+            self.assertEqual(status["health"]["verdict"], "alarm")
             self.assertGreaterEqual(status["staleness"]["data_age_s"], 1.0)
             _, samples = parse_metrics(self.get("/metrics").text())
             self.assertEqual(metric(samples, "lyapcast_feed_health", feed="stale"), 2)
-            # /v1/health/live is about the process, not the feeds.
-            self.assertEqual(self.get("/v1/health/live").status, 200)
+            # /v1/heartbeat is about the process, not the feeds.
+            self.assertEqual(self.get("/v1/heartbeat").status, 200)
             # Paused (plant shutdown): data age is not judged.
             self.assertEqual(self.post("/v1/feeds/stale/pause").status, 200)
             body = self.get_json("/v1/health")
-            self.assertEqual(body["status"], "UNKNOWN", body)
+            self.assertEqual(body["status"], "indeterminate", body)
             self.assertTrue(any(x.startswith("paused") for x in body["feeds"][0]["reasons"]), body)
             self.assertEqual(self.post("/v1/feeds/stale/resume").status, 200)
             self.assertEqual(self.get("/v1/health").status, 503)
@@ -1178,7 +1194,7 @@ class HealthCriticalTest(unittest.TestCase, ApiAssertions):
 
 @unittest.skipUnless(os.geteuid() == 0, "needs root to mount a small tmpfs as a full disk")
 class StorageUnavailableTest(unittest.TestCase, ApiAssertions):
-    """A full disk (a 1 MiB tmpfs, as test_durability): health is 503 CRITICAL."""
+    """A full disk (a 1 MiB tmpfs, as test_durability): health is 503, alarm."""
 
     def setUp(self):
         d = Daemon()
@@ -1194,7 +1210,7 @@ class StorageUnavailableTest(unittest.TestCase, ApiAssertions):
             f.write(config(d.db, SMALL))
         self.d = d
 
-    def test_a_full_disk_makes_health_critical(self):
+    def test_a_full_disk_makes_health_an_alarm(self):
         self.d.start()
         self.port = self.d.http_port
         filler = os.path.join(self.mnt, "filler")
@@ -1213,10 +1229,10 @@ class StorageUnavailableTest(unittest.TestCase, ApiAssertions):
         r = self.get("/v1/health")
         self.assertEqual(r.status, 503, r)
         body = r.json()
-        self.assertEqual(body["status"], "CRITICAL")
+        self.assertEqual(body["status"], "alarm")
         self.assertIs(body["storage_available"], False)
         self.assertTrue(any(x.startswith("storage unavailable") for x in body["feeds"][0]["reasons"]), body)
-        live = self.get_json("/v1/health/live")
+        live = self.get_json("/v1/heartbeat")
         self.assertIs(live["storage_available"], False)
         self.assertIs(self.get_json("/v1/feeds")["storage_available"], False)
         _, samples = parse_metrics(self.get("/metrics").text())
@@ -1310,8 +1326,8 @@ class TokenScopesTest(unittest.TestCase, ApiAssertions):
         self.assertEqual(self.get("/v1/feeds", headers={"Authorization": f"bearer {READ_TOKEN}"}).status, 200)
 
     def test_liveness_is_open(self):
-        self.assertEqual(self.get("/v1/health/live").status, 200)
-        self.assertEqual(self.get("/v1/health/live", token="wrong-token").status, 200)
+        self.assertEqual(self.get("/v1/heartbeat").status, 200)
+        self.assertEqual(self.get("/v1/heartbeat", token="wrong-token").status, 200)
 
     def test_post_needs_the_admin_token(self):
         for path in ("/v1/feeds/loop/pause", "/v1/feeds/loop/retrain", "/v1/feeds/loop/models/1/activate"):
@@ -1354,7 +1370,7 @@ class ReadOnlyTokenTest(unittest.TestCase, ApiAssertions):
         with token_daemon(admin=False) as d:
             d.start()
             self.port = d.http_port
-            self.assertEqual(self.get("/v1/health/live").status, 200)
+            self.assertEqual(self.get("/v1/heartbeat").status, 200)
             self.assert_error(self.get("/v1/feeds"), 401, "unauthorized")
             self.assertEqual(self.get("/v1/feeds", token=READ_TOKEN).status, 200)
             for path in ("/v1/feeds/loop/pause", "/v1/feeds/loop/retrain"):

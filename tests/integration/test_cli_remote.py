@@ -10,8 +10,8 @@ steps plus the validation share); the cadence (50 Lyapunov times, clamped to
 [20 s, 60 s]) puts the next retrain after the end of the 45 s stream, so
 one model scores the rest of the stream and its drift ratio is known. The
 health thresholds are wide (data age 1 h, drift 50, model age 1000
-Lyapunov times) so the verdict is OK however slowly the machine runs the
-tests; WARNING and CRITICAL are forced from the command line."""
+Lyapunov times) so the verdict is normal however slowly the machine runs
+the tests; alert and alarm are forced from the command line."""
 
 import json
 import os
@@ -41,8 +41,8 @@ LORENZ = """
     retrain: {lyapunov_fraction: 50, min_interval: 20s, max_interval: 60s, min_pairs: 1500, iterations: 400,
               batch: 128, learning_rate: 0.003}
     monitor: {change_threshold: 1000}
-    health: {drift_warn: 50, drift_crit: 100, data_age_warn: 1h, data_age_crit: 2h,
-             model_age_warn_lyapunov: 1000, model_age_crit_lyapunov: 2000}
+    health: {drift_alert: 50, drift_alarm: 100, data_age_alert: 1h, data_age_alarm: 2h,
+             model_age_alert_lyapunov: 1000, model_age_alarm_lyapunov: 2000}
 """
 IDLE = """
   - id: idle
@@ -142,34 +142,34 @@ class TrainedDaemonTest(LockstepDaemon):
         self.assertIn("4500 accepted, 0 rejected", self.replay.stderr)
         self.assertEqual(len(self.d.stored_times("lorenz")), 4500)
 
-    def test_check_ok_then_forced_warning_and_critical(self):
+    def test_check_normal_then_forced_alert_and_alarm(self):
         out = self.cli("check", "--feed", "lorenz", code=0).stdout
         self.assertEqual(len(out.splitlines()), 1, out)
-        self.assertRegex(out, r"^LYAPCAST OK - lorenz: model v\d+")
+        self.assertRegex(out, r"^normal lorenz: model v\d+")
         text, perf = out.strip().split(" | ")
         # Perfdata: value (U when unknown), then the daemon's thresholds.
         self.assertRegex(perf, r"^drift_ratio=[0-9.e+-]+;50;100 data_age=[0-9.e+-]+s;3600;7200 "
                                r"model_age_lyapunov=([0-9.e+-]+|U);1000;2000$")
         # Thresholds from the command line override the daemon's.
-        warn = self.cli("check", "--feed", "lorenz", "--data-age-warn", "0s", code=1).stdout
-        self.assertTrue(warn.startswith("LYAPCAST WARNING - lorenz: "), warn)
-        self.assertIn("data_age_warn", warn)
+        warn = self.cli("check", "--feed", "lorenz", "--data-age-alert", "0s", code=1).stdout
+        self.assertTrue(warn.startswith("alert lorenz: "), warn)
+        self.assertIn("data_age_alert", warn)
         self.assertRegex(warn, r"data_age=[0-9.e+-]+s;0;7200")
-        crit = self.cli("check", "--feed", "lorenz", "--data-age-crit", "0s", code=2).stdout
-        self.assertTrue(crit.startswith("LYAPCAST CRITICAL - lorenz: "), crit)
-        self.assertIn("data_age_crit", crit)
+        crit = self.cli("check", "--feed", "lorenz", "--data-age-alarm", "0s", code=2).stdout
+        self.assertTrue(crit.startswith("alarm lorenz: "), crit)
+        self.assertIn("data_age_alarm", crit)
         # The drift ratio is known (one model scored the last ~25 s of the stream).
         self.assertIsNotNone(self.status()["drift"]["ratio"], self.status())
-        drift = self.cli("check", "--feed", "lorenz", "--drift-warn", "0", code=1).stdout
+        drift = self.cli("check", "--feed", "lorenz", "--drift-alert", "0", code=1).stdout
         self.assertIn("drift ratio", drift)
-        self.assertIn("drift_warn 0", drift)
-        drift = self.cli("check", "--feed", "lorenz", "--drift-warn", "0", "--drift-crit", "0", code=2).stdout
-        self.assertIn("drift_crit 0", drift)
-        # Bad arguments are UNKNOWN for a monitoring system, not CRITICAL.
-        bad = self.cli("check", "--drift-warn", "lots", code=3).stdout
-        self.assertTrue(bad.startswith("LYAPCAST UNKNOWN - bad argument: --drift-warn"), bad)
+        self.assertIn("drift_alert 0", drift)
+        drift = self.cli("check", "--feed", "lorenz", "--drift-alert", "0", "--drift-alarm", "0", code=2).stdout
+        self.assertIn("drift_alarm 0", drift)
+        # Bad arguments are indeterminate (3) for a monitoring system, not alarm (2).
+        bad = self.cli("check", "--drift-alert", "lots", code=3).stdout
+        self.assertTrue(bad.startswith("indeterminate: bad argument: --drift-alert"), bad)
         bad = run("check", "--no-such-flag", code=3).stdout
-        self.assertTrue(bad.startswith("LYAPCAST UNKNOWN - "), bad)
+        self.assertTrue(bad.startswith("indeterminate: "), bad)
 
     def test_check_while_paused_judges_neither_data_age_nor_drift(self):
         def post(path):
@@ -179,41 +179,41 @@ class TrainedDaemonTest(LockstepDaemon):
 
         post("pause")
         try:
-            # A plant shutdown: thresholds that would be CRITICAL do not apply.
-            out = self.cli("check", "--feed", "lorenz", "--data-age-crit", "0s", "--drift-crit", "0", code=0).stdout
-            self.assertTrue(out.startswith("LYAPCAST OK - lorenz"), out)
+            # A plant shutdown: thresholds that would raise an alarm do not apply.
+            out = self.cli("check", "--feed", "lorenz", "--data-age-alarm", "0s", "--drift-alarm", "0", code=0).stdout
+            self.assertTrue(out.startswith("normal lorenz: "), out)
             self.assertIn("paused", out)
         finally:
             post("resume")
-        self.cli("check", "--feed", "lorenz", "--data-age-crit", "0s", code=2)
+        self.cli("check", "--feed", "lorenz", "--data-age-alarm", "0s", code=2)
 
-    def test_check_every_feed_worst_wins_unknown_only_beats_ok(self):
-        # lorenz OK, idle has no data: UNKNOWN beats OK.
+    def test_check_every_feed_worst_wins_indeterminate_only_beats_normal(self):
+        # lorenz normal, idle has no data: indeterminate beats normal.
         out = self.cli("check", code=3).stdout
         self.assertEqual(len(out.splitlines()), 1, out)
-        self.assertTrue(out.startswith("LYAPCAST UNKNOWN - idle UNKNOWN: "), out)
-        self.assertIn("lorenz OK: model v", out)
+        self.assertTrue(out.startswith("indeterminate idle: "), out)
+        self.assertIn("; normal lorenz: model v", out)
         self.assertIn("lorenz.drift_ratio=", out, "perfdata labels name the feed when there are several")
-        # A WARNING beats the UNKNOWN.
-        out = self.cli("check", "--data-age-warn", "0s", code=1).stdout
-        self.assertTrue(out.startswith("LYAPCAST WARNING - lorenz WARNING: "), out)
-        self.assertIn("idle UNKNOWN", out)
+        # An alert beats indeterminate.
+        out = self.cli("check", "--data-age-alert", "0s", code=1).stdout
+        self.assertTrue(out.startswith("alert lorenz: "), out)
+        self.assertIn("; indeterminate idle: ", out)
         # The address comes from $LYAPCAST_URL as well.
         env = dict(os.environ, LYAPCAST_URL=self.url)
         out = subprocess.run([CLI, "check", "--feed", "lorenz"], capture_output=True, text=True, env=env, timeout=60)
         self.assertEqual(out.returncode, 0, out.stdout + out.stderr)
 
-    def test_check_unreachable_or_not_a_daemon_is_unknown(self):
+    def test_check_unreachable_or_not_a_daemon_is_indeterminate(self):
         port = closed_port()
         out = run("check", "--url", f"http://127.0.0.1:{port}", code=3).stdout
         self.assertEqual(len(out.splitlines()), 1, out)
-        self.assertTrue(out.startswith(f"LYAPCAST UNKNOWN - cannot connect to http://127.0.0.1:{port}"), out)
+        self.assertTrue(out.startswith(f"indeterminate: cannot connect to http://127.0.0.1:{port}"), out)
         # The ingest port speaks lines, not HTTP: garbage to the check.
         out = run("check", "--url", f"http://127.0.0.1:{self.d.ingest_port}", "--timeout", "5s", code=3).stdout
         self.assertEqual(len(out.splitlines()), 1, out)
-        self.assertTrue(out.startswith("LYAPCAST UNKNOWN - "), out)
+        self.assertTrue(out.startswith("indeterminate"), out)
         out = self.cli("check", "--feed", "nosuch", code=3).stdout
-        self.assertTrue(out.startswith("LYAPCAST UNKNOWN - nosuch: "), out)
+        self.assertTrue(out.startswith("indeterminate nosuch: "), out)
         self.assertIn("(HTTP 404)", out)
 
     def test_status_block_and_json(self):
@@ -233,7 +233,7 @@ class TrainedDaemonTest(LockstepDaemon):
         every = json.loads(self.cli("status", "--json").stdout)
         self.assertEqual([f["feed"] for f in every["feeds"]], ["lorenz", "idle"])
         both = self.cli("status").stdout
-        self.assertIn("idle  UNKNOWN", both)
+        self.assertIn("idle  indeterminate", both)
         self.assertIn("none yet", both)
         missing = self.cli("status", "--feed", "nosuch", code=1)
         self.assertRegex(missing.stderr, r"^lyapcast status: .*nosuch.* \(HTTP 404\)\n$")
@@ -323,33 +323,66 @@ class RetrainTest(LockstepDaemon):
 
     def test_retrain_wait_reports_the_outcome(self):
         out = self.cli("retrain", "--feed", "lorenz", "--wait", "--wait-timeout", "5m")
-        m = re.search(r"^job (\d+) done: (promoted|rejected|not enough data)", out.stdout, re.M)
+        m = re.search(r"^job (\d+) done: (promoted|rejected|not_enough_data)", out.stdout, re.M)
         self.assertIsNotNone(m, out.stdout + out.stderr)
         _, job = self.d.http_get(f"/v1/feeds/lorenz/jobs/{m.group(1)}")
         self.assertEqual(job["state"], "done")
         self.assertEqual(job["verdict"], m.group(2))
         doc = json.loads(self.cli("retrain", "--feed", "lorenz", "--wait", "--json").stdout)
         self.assertEqual(doc["state"], "done")
-        self.assertIn(doc["verdict"], ("promoted", "rejected", "not enough data"))
+        self.assertIn(doc["verdict"], ("promoted", "rejected", "not_enough_data"))
         queued = self.cli("retrain", "--feed", "lorenz").stdout
         self.assertRegex(queued, r"^job \d+ (queued|joined)")
 
 
+class DefaultThresholdsTest(LockstepDaemon):
+    """A feed that sets only its channels and step: every health level at its
+    default. The retrain cadence (min_interval 30 s) spans about 27 Lyapunov
+    times of Lorenz-63 (lambda 0.9056/s, Sprott's table), so a fixed model-age
+    alert level of 2 Lyapunov times read "alert" on every healthy feed like
+    this one; the levels derived from the cadence read it as normal."""
+    FEEDS = """
+  - id: lorenz
+    channels: [x, y, z]
+    step: 10ms
+"""
+
+    def test_a_default_config_feed_with_a_good_model_reads_normal(self):
+        s = self.status()
+        self.assertIsNotNone(s["model"], s)
+        self.assertEqual(s["health"]["verdict"], "normal", s)
+        self.assertEqual(s["health"]["reasons"], [], s)
+        t = s["health"]["thresholds"]
+        self.assertIs(t["model_age_alert_derived"], True, t)
+        self.assertIs(t["model_age_alarm_derived"], True, t)
+        lt = s["staleness"]["since_training_lyapunov_times"]
+        self.assertIsNotNone(lt, s)
+        # The data since training spans more than the old fixed level of 2 ...
+        self.assertGreater(lt, 2, s)
+        # ... and the derived level is above a whole retrain interval.
+        interval_lt = 30 * s["lyapunov"]["chosen"]["per_s"]
+        self.assertGreaterEqual(t["model_age_alert_lyapunov"], 3 * interval_lt, t)
+        self.assertGreater(t["model_age_alarm_lyapunov"], t["model_age_alert_lyapunov"], t)
+        out = self.cli("check", code=0).stdout
+        self.assertTrue(out.startswith("normal lorenz: model v"), out)
+        self.assertRegex(out, r"model_age_lyapunov=[0-9.]+;[0-9.]+;[0-9.]+$")
+
+
 class BeforeAnyModelTest(unittest.TestCase):
-    def test_unknown_until_there_is_data_and_a_model(self):
+    def test_indeterminate_until_there_is_data_and_a_model(self):
         with Daemon() as d:
             d.start()
             url = f"http://127.0.0.1:{d.http_port}"
             out = run("check", "--url", url, code=3).stdout
             self.assertEqual(len(out.splitlines()), 1, out)
-            self.assertTrue(out.startswith("LYAPCAST UNKNOWN - "), out)
+            self.assertTrue(out.startswith("indeterminate"), out)
             self.assertIn("loop-a", out)
             self.assertIn("rig-b", out)
             out = run("check", "--url", url, "--feed", "loop-a", code=3).stdout
-            self.assertTrue(out.startswith("LYAPCAST UNKNOWN - loop-a: "), out)
+            self.assertTrue(out.startswith("indeterminate loop-a: "), out)
             self.assertIn("drift_ratio=U;2;5 data_age=U;30;300", out, "the configured defaults, values unknown")
             status = run("status", "--url", url, "--feed", "loop-a").stdout
-            self.assertTrue(status.startswith("loop-a  UNKNOWN"), status)
+            self.assertTrue(status.startswith("loop-a  indeterminate"), status)
             self.assertIn("model     none yet", status)
             self.assertIn("no samples yet", status)
             fc = run("forecast", "--url", url, "--feed", "loop-a", code=1)
@@ -472,9 +505,9 @@ class TokenTest(unittest.TestCase):
                 return out
 
             self.assertTrue(cli("status", "--feed", "loop-a", "--token-file", files["read"],
-                                code=0).stdout.startswith("loop-a  UNKNOWN"))
+                                code=0).stdout.startswith("loop-a  indeterminate"))
             self.assertTrue(cli("status", "--feed", "loop-a", "--token-file", files["admin"],
-                                code=0).stdout.startswith("loop-a  UNKNOWN"))
+                                code=0).stdout.startswith("loop-a  indeterminate"))
             # The daemon's own 401 messages, with the status.
             _, no_token = d.http_get("/v1/feeds/loop-a/status")
             _, wrong = d.http_get("/v1/feeds/loop-a/status", {"Authorization": "Bearer " + self.WRONG})
@@ -486,7 +519,7 @@ class TokenTest(unittest.TestCase):
             self.assertIn("(HTTP 401)", out.stderr)
             out = cli("check", "--feed", "loop-a", "--token-file", files["wrong"], code=3)
             self.assertIn("(HTTP 401)", out.stdout)
-            out = cli("check", "--token-file", files["read"], code=3)  # authorized: UNKNOWN for lack of data
+            out = cli("check", "--token-file", files["read"], code=3)  # authorized: indeterminate for lack of data
             self.assertNotIn("HTTP", out.stdout)
             # A read token may not POST; the admin token may.
             out = cli("retrain", "--feed", "loop-a", "--token-file", files["read"], code=1)

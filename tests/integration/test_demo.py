@@ -10,7 +10,7 @@ same scenario, only with lockstep on, ephemeral ports and a fixed start:
   - forecasts come with a predictability horizon;
   - loop-a's abrupt operating-point change (ra 30 -> 38 at 15 min) raises
     the drift flag, and the retrain it triggers promotes a version whose
-    drift ratio is back under health.drift_warn.
+    drift ratio is back under health.drift_alert.
 
 Data are sent in slices of SLICE_S seconds of data time; after each slice
 is acknowledged the test reads both feeds' /status. In lockstep an
@@ -151,7 +151,7 @@ class DemoScenarioTest(unittest.TestCase):
 
     def test_the_abrupt_change_raises_the_drift_flag_and_a_retrain_brings_the_ratio_back(self):
         rows = self.timeline["loop-a"]
-        warn = rows[-1][1]["health"]["thresholds"]["drift_warn"]
+        warn = rows[-1][1]["health"]["thresholds"]["drift_alert"]
         summary = "\n".join(
             f"  t+{t - START_S:5d}s v{s['model']['version'] if s['model'] else '-'} "
             f"ratio {s['drift']['ratio'] if s['drift']['ratio'] is None else round(s['drift']['ratio'], 2)} "
@@ -173,14 +173,14 @@ class DemoScenarioTest(unittest.TestCase):
         self.assertLess(alarm_at, CHANGE_S + 60, "flagged within a minute of data after the change")
         self.assertIn("drift: change test alarm at", self.daemon.read_log(tail=None))
         self.assertIn(first["status"], ("active", "retired"), "the drift retrain was promoted")
-        # ...and under that version the drift ratio is back under drift_warn.
+        # ...and under that version the drift ratio is back under drift_alert.
         under = [s for t, s in rows if s["model"] and s["model"]["version"] == first["version"]
                  and s["drift"]["ratio"] is not None]
         self.assertTrue(under, f"version {first['version']} was never observed serving")
         settled = max(under, key=lambda s: s["drift"]["scored"])
         self.assertLess(settled["drift"]["ratio"], warn, summary)
         self.assertFalse(settled["drift"]["flag"])
-        # The change was real for the model served before it: its ratio rose past drift_warn.
+        # The change was real for the model served before it: its ratio rose past drift_alert.
         peak = max((s["drift"]["ratio"] or 0) for t, s in rows if CHANGE_S < t <= alarm_at + SLICE_S)
         self.assertGreaterEqual(peak, warn, summary)
 

@@ -256,7 +256,7 @@ class SdNotifyTest(unittest.TestCase):
             self.assertIsNotNone(m, f"STATUS should name both ports: {status!r}")
             self.assertEqual((int(m.group(1)), int(m.group(2))), (ready["ingest_port"], ready["http_port"]))
             socket.create_connection(("127.0.0.1", ready["ingest_port"]), timeout=10).close()
-            url = f"http://127.0.0.1:{ready['http_port']}/v1/health/live"
+            url = f"http://127.0.0.1:{ready['http_port']}/v1/heartbeat"
             with urllib.request.urlopen(url, timeout=10) as r:
                 self.assertEqual(r.status, 200)
 
@@ -281,7 +281,7 @@ class SdNotifyTest(unittest.TestCase):
         self.wait_ready()
         with open(self.ready_path) as f:
             ready = json.load(f)
-        with urllib.request.urlopen(f"http://127.0.0.1:{ready['http_port']}/v1/health/live", timeout=10) as r:
+        with urllib.request.urlopen(f"http://127.0.0.1:{ready['http_port']}/v1/heartbeat", timeout=10) as r:
             self.assertEqual(r.status, 200)
         self.assertEqual(self.stop(), 0, self.read_log())
         log = self.read_log()

@@ -117,7 +117,7 @@ class StorageFullTest(unittest.TestCase):
             if send_round(500, "1.25,-3.5"):
                 break
         self.assertTrue(refused, "the 1 MiB disk filled up")
-        status, body = d.http_get("/v1/health/live")
+        status, body = d.http_get("/v1/heartbeat")
         self.assertEqual(status, 200)
         self.assertFalse(body["storage_available"])
 
@@ -134,7 +134,7 @@ class StorageFullTest(unittest.TestCase):
                 whole_round_refused = True
                 break
         self.assertTrue(whole_round_refused, "a full disk refuses every line")
-        status, body = d.http_get("/v1/health/live")
+        status, body = d.http_get("/v1/heartbeat")
         self.assertFalse(body["storage_available"])
 
         # Room returns: ingest recovers by itself on the same connection.
@@ -153,7 +153,7 @@ class StorageFullTest(unittest.TestCase):
             refused.append(t_us)
             time.sleep(0.1)
         self.assertTrue(recovered, "ingest resumed after the disk had room again")
-        status, body = d.http_get("/v1/health/live")
+        status, body = d.http_get("/v1/heartbeat")
         self.assertTrue(body["storage_available"])
         self.assertEqual(d.stop(), 0, d.read_log())
         stored = set(d.stored_times("loop-a"))

@@ -196,10 +196,10 @@ class IngestProtocolTest(unittest.TestCase):
                 break
             time.sleep(0.02)
 
-    def test_http_feeds_and_live(self):
-        status, body = self.d.http_get("/v1/health/live")
+    def test_http_feeds_and_heartbeat(self):
+        status, body = self.d.http_get("/v1/heartbeat")
         self.assertEqual(status, 200)
-        self.assertEqual(body["status"], "live")
+        self.assertIs(body["alive"], True)
         status, body = self.d.http_get("/v1/feeds")
         self.assertEqual(status, 200)
         ids = [f["id"] for f in body["feeds"]]
@@ -302,7 +302,7 @@ class HttpAccessTest(unittest.TestCase):
             for token in ("reader-token", "admin-token"):
                 status, body = d.http_get("/v1/feeds", {"Authorization": f"Bearer {token}"})
                 self.assertEqual(status, 200, token)
-            status, _ = d.http_get("/v1/health/live")
+            status, _ = d.http_get("/v1/heartbeat")
             self.assertEqual(status, 200, "liveness needs no token")
             self.assertEqual(d.stop(), 0)
             log = d.read_log()

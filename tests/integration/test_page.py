@@ -53,7 +53,7 @@ LORENZ_FEED = """
       iterations: 400
       batch: 128
       learning_rate: 0.003
-    health: {{data_age_warn: 1h, data_age_crit: 2h, model_age_warn_lyapunov: 20, model_age_crit_lyapunov: 50}}
+    health: {{data_age_alert: 1h, data_age_alarm: 2h, model_age_alert_lyapunov: 20, model_age_alarm_lyapunov: 50}}
 """
 IDLE_FEED = """
   - id: idle
@@ -321,7 +321,7 @@ class OperatorPageTest(unittest.TestCase):
                 return None
 
             page, status = wait_for(driver, matches, 15, "the page to show the status route's figures")
-            self.assertIn(page["verdict"], ("OK", "WARNING", "CRITICAL", "UNKNOWN"))
+            self.assertIn(page["verdict"], ("normal", "alert", "alarm", "indeterminate"))
             self.assertEqual(page["verdict_text"], status["health"]["verdict"])
             if status["drift"]["ratio"] is None:  # a retrain just before the stream's end: still warming up
                 self.assertIn("warming up", page["text"])
@@ -339,7 +339,7 @@ class OperatorPageTest(unittest.TestCase):
             # The feed without data says so in words.
             idle = driver.execute_script(READ_FEED_JS, "idle")
             self.assertTrue(idle["no_data"], idle["text"])
-            self.assertEqual(idle["verdict"], "UNKNOWN")
+            self.assertEqual(idle["verdict"], "indeterminate")
             self.assertIn("No data yet", idle["text"])
 
             advisory = driver.find_element("id", "advisory")
@@ -420,7 +420,7 @@ class OperatorPageTokenTest(unittest.TestCase):
                 self.assertFalse(driver.find_element("id", "auth").is_displayed())
                 self.assertEqual(driver.execute_script("return sessionStorage.getItem('lyapcast.readToken')"), TOKEN)
                 self.assertIn("No model yet", page["text"])
-                self.assertEqual(page["verdict"], "UNKNOWN")
+                self.assertEqual(page["verdict"], "indeterminate")
                 self.assertIn("[<b id=injected>x-unit</b>]", page["text"])
                 self.assertEqual(driver.find_elements("id", "injected"), [])
                 self.assertEqual(driver.find_element("id", "auth-token").get_attribute("value"), "")

@@ -1,5 +1,6 @@
 // EvaluateHealth: every check at, below and above its thresholds, the
-// UNKNOWN cases, pause, the worst-of rule and the wording of the reasons.
+// indeterminate cases, pause, the worst-of rule and the wording of the
+// reasons; ModelAgeInForce: configured and cadence-derived model-age levels.
 #include "monitor/health.h"
 
 #include <gtest/gtest.h>
@@ -12,8 +13,10 @@
 namespace lyapcast {
 namespace {
 
-// The config defaults: drift 2 / 5, data age 30s / 5m, model age 2 / 10 Lyapunov times.
+// The config defaults: drift 2 / 5, data age 30s / 5m; model age 2 / 10
+// Lyapunov times (the floors of the derived levels, as without an exponent).
 const HealthConfig kThresholds{};
+const ModelAgeThresholds kModelAge = ModelAgeInForce(kThresholds, std::nullopt);
 
 // A healthy feed.
 HealthInputs Healthy() {
@@ -34,18 +37,18 @@ std::string Describe(const HealthResult& r) {
 }
 
 TEST(Verdict, NamesAndMonitoringPluginExitCodes) {
-  EXPECT_STREQ(VerdictName(Verdict::kOk), "OK");
-  EXPECT_STREQ(VerdictName(Verdict::kWarning), "WARNING");
-  EXPECT_STREQ(VerdictName(Verdict::kCritical), "CRITICAL");
-  EXPECT_STREQ(VerdictName(Verdict::kUnknown), "UNKNOWN");
-  EXPECT_EQ(VerdictExitCode(Verdict::kOk), 0);
-  EXPECT_EQ(VerdictExitCode(Verdict::kWarning), 1);
-  EXPECT_EQ(VerdictExitCode(Verdict::kCritical), 2);
-  EXPECT_EQ(VerdictExitCode(Verdict::kUnknown), 3);
+  EXPECT_STREQ(VerdictName(Verdict::kNormal), "normal");
+  EXPECT_STREQ(VerdictName(Verdict::kAlert), "alert");
+  EXPECT_STREQ(VerdictName(Verdict::kAlarm), "alarm");
+  EXPECT_STREQ(VerdictName(Verdict::kIndeterminate), "indeterminate");
+  EXPECT_EQ(VerdictExitCode(Verdict::kNormal), 0);
+  EXPECT_EQ(VerdictExitCode(Verdict::kAlert), 1);
+  EXPECT_EQ(VerdictExitCode(Verdict::kAlarm), 2);
+  EXPECT_EQ(VerdictExitCode(Verdict::kIndeterminate), 3);
 }
 
-TEST(Verdict, WorseIsOkThenUnknownThenWarningThenCritical) {
-  const Verdict order[] = {Verdict::kOk, Verdict::kUnknown, Verdict::kWarning, Verdict::kCritical};
+TEST(Verdict, WorseIsNormalThenIndeterminateThenAlertThenAlarm) {
+  const Verdict order[] = {Verdict::kNormal, Verdict::kIndeterminate, Verdict::kAlert, Verdict::kAlarm};
   for (int i = 0; i < 4; ++i) {
     for (int j = 0; j < 4; ++j) {
       EXPECT_EQ(WorseVerdict(order[i], order[j]), order[std::max(i, j)]) << i << " " << j;
@@ -65,26 +68,26 @@ TEST(FormatAge, ReadsLikeAClock) {
   EXPECT_EQ(FormatAge(std::nan("")), "?");
 }
 
-TEST(EvaluateHealth, HealthyIsOkWithNoReasons) {
-  const HealthResult r = EvaluateHealth(kThresholds, Healthy());
-  EXPECT_EQ(r.verdict, Verdict::kOk) << Describe(r);
+TEST(EvaluateHealth, HealthyIsNormalWithNoReasons) {
+  const HealthResult r = EvaluateHealth(kThresholds, kModelAge, Healthy());
+  EXPECT_EQ(r.verdict, Verdict::kNormal) << Describe(r);
   EXPECT_TRUE(r.reasons.empty());
   HealthInputs absent = Healthy();  // values not known yet are not judged
   absent.data_age_s.reset();
   absent.drift_ratio.reset();
   absent.since_training_lyapunov_times.reset();
-  EXPECT_EQ(EvaluateHealth(kThresholds, absent).verdict, Verdict::kOk);
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, absent).verdict, Verdict::kNormal);
   HealthInputs nan = Healthy();
   nan.data_age_s = nan.drift_ratio = nan.since_training_lyapunov_times = std::nan("");
-  EXPECT_EQ(EvaluateHealth(kThresholds, nan).verdict, Verdict::kOk);
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, nan).verdict, Verdict::kNormal);
 }
 
-TEST(EvaluateHealth, UnknownWithoutDataOrModelSaysWhich) {
+TEST(EvaluateHealth, IndeterminateWithoutDataOrModelSaysWhich) {
   HealthInputs in = Healthy();
   in.has_data = false;
   in.data_age_s = 1e6;  // not judged without data
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kUnknown) << Describe(r);
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kIndeterminate) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"no sample received yet"});
 
   in = Healthy();
@@ -92,85 +95,85 @@ TEST(EvaluateHealth, UnknownWithoutDataOrModelSaysWhich) {
   in.drift_ratio = 100;  // not judged without a model
   in.drift_flag = true;
   in.since_training_lyapunov_times = 100;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kUnknown) << Describe(r);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kIndeterminate) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"no model yet"});
 
   in.has_data = false;
-  r = EvaluateHealth(kThresholds, in);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
   EXPECT_EQ(r.reasons, (std::vector<std::string>{"no sample received yet", "no model yet"}));
 }
 
 TEST(EvaluateHealth, DataAge) {
   HealthInputs in = Healthy();
   in.data_age_s = 29.9;
-  EXPECT_EQ(EvaluateHealth(kThresholds, in).verdict, Verdict::kOk);
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, in).verdict, Verdict::kNormal);
   in.data_age_s = 30.0;
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kWarning) << Describe(r);
-  EXPECT_EQ(r.reasons, std::vector<std::string>{"no sample for 30s (data_age_warn 30s)"});
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"no sample for 30s (data_age_alert 30s)"});
   in.data_age_s = 372.4;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
-  EXPECT_EQ(r.reasons, std::vector<std::string>{"no sample for 6m12s (data_age_crit 5m)"});
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"no sample for 6m12s (data_age_alarm 5m)"});
   // Judged without a model too: the data stopping is known either way, and
-  // it outranks UNKNOWN.
+  // it outranks indeterminate.
   in.has_model = false;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
   EXPECT_EQ(r.reasons.size(), 2u);
 }
 
 TEST(EvaluateHealth, DriftRatio) {
   HealthInputs in = Healthy();
   in.drift_ratio = 1.999;
-  EXPECT_EQ(EvaluateHealth(kThresholds, in).verdict, Verdict::kOk);
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, in).verdict, Verdict::kNormal);
   in.drift_ratio = 2.0;
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kWarning) << Describe(r);
-  EXPECT_EQ(r.reasons, std::vector<std::string>{"drift ratio 2 >= drift_warn 2"});
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"drift ratio 2 >= drift_alert 2"});
   in.drift_ratio = 4.9996;
-  EXPECT_EQ(EvaluateHealth(kThresholds, in).reasons, std::vector<std::string>{"drift ratio 4.99 >= drift_warn 2"});
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, in).reasons, std::vector<std::string>{"drift ratio 4.99 >= drift_alert 2"});
   in.drift_ratio = 5.3;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
-  EXPECT_EQ(r.reasons, std::vector<std::string>{"drift ratio 5.3 >= drift_crit 5"});
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"drift ratio 5.3 >= drift_alarm 5"});
 }
 
-TEST(EvaluateHealth, DriftFlagWarns) {
+TEST(EvaluateHealth, DriftFlagAlerts) {
   HealthInputs in = Healthy();
   in.drift_flag = true;
-  const HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kWarning) << Describe(r);
+  const HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"drift flag raised by the change test"});
 }
 
 TEST(EvaluateHealth, ModelAgeInLyapunovTimes) {
   HealthInputs in = Healthy();
   in.since_training_lyapunov_times = 1.99;
-  EXPECT_EQ(EvaluateHealth(kThresholds, in).verdict, Verdict::kOk);
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, in).verdict, Verdict::kNormal);
   in.since_training_lyapunov_times = 2.5;
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kWarning) << Describe(r);
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{
-                           "2.5 Lyapunov times of data since the model's training chunk >= model_age_warn_lyapunov 2"});
+                           "2.5 Lyapunov times of data since the model's training chunk >= model_age_alert_lyapunov 2"});
   in.since_training_lyapunov_times = 12.345;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
   EXPECT_EQ(r.reasons,
             std::vector<std::string>{
-                "12.34 Lyapunov times of data since the model's training chunk >= model_age_crit_lyapunov 10"});
+                "12.34 Lyapunov times of data since the model's training chunk >= model_age_alarm_lyapunov 10"});
 }
 
-TEST(EvaluateHealth, StorageUnavailableIsCriticalEvenWithoutDataOrModel) {
+TEST(EvaluateHealth, StorageUnavailableIsAnAlarmEvenWithoutDataOrModel) {
   HealthInputs in = Healthy();
   in.storage_available = false;
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"storage unavailable: samples are not being committed"});
   in.has_data = in.has_model = false;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
   EXPECT_EQ(r.reasons.size(), 3u);
 }
 
@@ -181,56 +184,119 @@ TEST(EvaluateHealth, PausedJudgesOnlyStorage) {
   in.drift_ratio = 100;
   in.drift_flag = true;
   in.since_training_lyapunov_times = 100;
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kOk) << Describe(r);
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kNormal) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"paused: data age, drift and model age are not judged"});
   in.storage_available = false;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
   EXPECT_EQ(r.reasons.size(), 2u);
   in = Healthy();
   in.paused = true;
   in.has_model = false;
-  EXPECT_EQ(EvaluateHealth(kThresholds, in).verdict, Verdict::kUnknown);
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, in).verdict, Verdict::kIndeterminate);
 }
 
 TEST(EvaluateHealth, WorstOfAllChecksWithEveryReasonListed) {
   HealthInputs in = Healthy();
-  in.data_age_s = 45;                     // WARNING
-  in.drift_ratio = 6;                     // CRITICAL
-  in.drift_flag = true;                   // WARNING
-  in.since_training_lyapunov_times = 3;   // WARNING
-  HealthResult r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
+  in.data_age_s = 45;                     // alert
+  in.drift_ratio = 6;                     // alarm
+  in.drift_flag = true;                   // alert
+  in.since_training_lyapunov_times = 3;   // alert
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
   EXPECT_EQ(r.reasons, (std::vector<std::string>{
-                           "no sample for 45s (data_age_warn 30s)",
-                           "drift ratio 6 >= drift_crit 5",
+                           "no sample for 45s (data_age_alert 30s)",
+                           "drift ratio 6 >= drift_alarm 5",
                            "drift flag raised by the change test",
-                           "3 Lyapunov times of data since the model's training chunk >= model_age_warn_lyapunov 2",
+                           "3 Lyapunov times of data since the model's training chunk >= model_age_alert_lyapunov 2",
                        }));
   in.drift_ratio = 1.0;
-  r = EvaluateHealth(kThresholds, in);
-  EXPECT_EQ(r.verdict, Verdict::kWarning) << Describe(r);
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
   EXPECT_EQ(r.reasons.size(), 3u);
 }
 
 TEST(EvaluateHealth, ThresholdsComeFromTheCaller) {
   // As `lyapcast check --drift-crit 1.5` would pass them.
   HealthConfig strict;
-  strict.drift_warn = 1.2;
-  strict.drift_crit = 1.5;
-  strict.data_age_warn = 500'000;
-  strict.data_age_crit = 2 * kMicrosPerSecond;
+  strict.drift_alert = 1.2;
+  strict.drift_alarm = 1.5;
+  strict.data_age_alert = 500'000;
+  strict.data_age_alarm = 2 * kMicrosPerSecond;
   HealthInputs in = Healthy();
   in.data_age_s = 0.2;
   in.drift_ratio = 1.3;
-  HealthResult r = EvaluateHealth(strict, in);
-  EXPECT_EQ(r.verdict, Verdict::kWarning) << Describe(r);
-  EXPECT_EQ(r.reasons, std::vector<std::string>{"drift ratio 1.3 >= drift_warn 1.2"});
+  HealthResult r = EvaluateHealth(strict, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"drift ratio 1.3 >= drift_alert 1.2"});
   in.data_age_s = 2.5;
-  r = EvaluateHealth(strict, in);
-  EXPECT_EQ(r.verdict, Verdict::kCritical) << Describe(r);
-  EXPECT_EQ(r.reasons.front(), "no sample for 2.5s (data_age_crit 2s)");
+  r = EvaluateHealth(strict, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlarm) << Describe(r);
+  EXPECT_EQ(r.reasons.front(), "no sample for 2.5s (data_age_alarm 2s)");
+}
+
+TEST(ModelAgeInForce, ConfiguredLevelsWin) {
+  HealthConfig h;
+  h.model_age_alert_lyapunov = 6;
+  h.model_age_alarm_lyapunov = 20;
+  const ModelAgeThresholds t = ModelAgeInForce(h, RetrainCycle{30, 60});
+  EXPECT_EQ(t.alert, 6);
+  EXPECT_EQ(t.alarm, 20);
+  EXPECT_FALSE(t.alert_derived);
+  EXPECT_FALSE(t.alarm_derived);
+}
+
+TEST(ModelAgeInForce, DerivedFromTheRetrainCycleWithFloors) {
+  const HealthConfig defaults;
+  // A Lorenz-type feed (lambda 0.9/s) under the default cadence: retrains are
+  // min_interval 30 s apart = 27 Lyapunov times, the time budget 60 s = 54.
+  const ModelAgeThresholds lorenz = ModelAgeInForce(defaults, RetrainCycle{27, 54});
+  EXPECT_DOUBLE_EQ(lorenz.alert, 3 * 27 + 54);
+  EXPECT_DOUBLE_EQ(lorenz.alarm, 10 * 27 + 54);
+  EXPECT_TRUE(lorenz.alert_derived && lorenz.alarm_derived);
+  // A slow process paced by lyapunov_fraction 0.5: the floors 2 and 10 apply.
+  const ModelAgeThresholds slow = ModelAgeInForce(defaults, RetrainCycle{0.5, 0.1});
+  EXPECT_DOUBLE_EQ(slow.alert, 2);
+  EXPECT_DOUBLE_EQ(slow.alarm, 10);
+  // No positive exponent: the floors.
+  EXPECT_DOUBLE_EQ(ModelAgeInForce(defaults, std::nullopt).alert, 2);
+  EXPECT_DOUBLE_EQ(ModelAgeInForce(defaults, std::nullopt).alarm, 10);
+  EXPECT_FALSE(ModelAgeInForce(defaults, std::nullopt).alert_derived);
+}
+
+TEST(ModelAgeInForce, OneConfiguredTheOtherDerivedStayOrdered) {
+  HealthConfig h;
+  h.model_age_alert_lyapunov = 500;  // above the derived alarm level
+  const ModelAgeThresholds t = ModelAgeInForce(h, RetrainCycle{27, 54});
+  EXPECT_DOUBLE_EQ(t.alert, 500);
+  EXPECT_DOUBLE_EQ(t.alarm, 500);
+  HealthConfig g;
+  g.model_age_alarm_lyapunov = 1;  // below the derived alert level
+  const ModelAgeThresholds u = ModelAgeInForce(g, RetrainCycle{27, 54});
+  EXPECT_DOUBLE_EQ(u.alert, 1);
+  EXPECT_DOUBLE_EQ(u.alarm, 1);
+}
+
+TEST(EvaluateHealth, DefaultConfigFeedRetrainedOnCadenceReadsNormal) {
+  // The case that used to read "alert" forever: default thresholds, a
+  // healthy model, and the data since training as large as it gets just
+  // before a retrain is promoted (one interval plus a job at the time
+  // budget), and after one rejected candidate (two intervals).
+  const ModelAgeThresholds t = ModelAgeInForce(HealthConfig{}, RetrainCycle{27, 54});
+  HealthInputs in = Healthy();
+  in.since_training_lyapunov_times = 27 + 54;
+  EXPECT_EQ(EvaluateHealth(HealthConfig{}, t, in).verdict, Verdict::kNormal);
+  in.since_training_lyapunov_times = 2 * 27 + 54;
+  EXPECT_EQ(EvaluateHealth(HealthConfig{}, t, in).verdict, Verdict::kNormal);
+  // Retraining stopped: alert, then alarm, and the reason says the level was derived.
+  in.since_training_lyapunov_times = 3 * 27 + 54;
+  HealthResult r = EvaluateHealth(HealthConfig{}, t, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"135 Lyapunov times of data since the model's training chunk >= "
+                                                "model_age_alert_lyapunov 135 (derived from the retrain cadence)"});
+  in.since_training_lyapunov_times = 400;
+  EXPECT_EQ(EvaluateHealth(HealthConfig{}, t, in).verdict, Verdict::kAlarm);
 }
 
 }  // namespace

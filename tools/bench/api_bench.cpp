@@ -6,7 +6,7 @@
 //     with the daemon idle and once while a retrain (POST .../retrain, one
 //     training thread) runs on the other core. The job is checked to be
 //     running before the first and after the last timed request. Reference:
-//     GET /v1/health/live on the same connection (round trip and scheduling
+//     GET /v1/heartbeat on the same connection (round trip and scheduling
 //     noise).
 //  2. GET /v1/feeds/{id}/status requests per second and latency from 16
 //     keep-alive connections driven by one client thread (poll loop), each
@@ -524,9 +524,9 @@ Latency MeasureTrivial(HttpConnection& http, int n) {
   std::vector<double> ms;
   for (int i = 0; i < n; ++i) {
     const auto t = Clock::now();
-    const Response r = http.Request("GET", "/v1/health/live");
+    const Response r = http.Request("GET", "/v1/heartbeat");
     ms.push_back(1e3 * Seconds(Clock::now() - t));
-    if (r.status != 200) Die("health/live: HTTP " + std::to_string(r.status));
+    if (r.status != 200) Die("heartbeat: HTTP " + std::to_string(r.status));
   }
   return Summarize(std::move(ms));
 }
@@ -643,7 +643,7 @@ StatusLoad MeasureStatusLoad(int port, int clients, double warmup_s, double dura
 
 struct RunResult {
   ForecastResult idle, loaded;
-  Latency reference;  // GET /v1/health/live: round trip and scheduling floor
+  Latency reference;  // GET /v1/heartbeat: round trip and scheduling floor
   StatusLoad status;
   bool idle_quiet = true;              // no job running before and after the idle measurement
   bool loaded_throughout = true;       // the retrain ran before and after the loaded measurement
@@ -735,7 +735,7 @@ int main(int argc, char** argv) {
           "holding a first model trained once at the start; the medians are reported. With\n"
           "--compare-io-threads N (default 1; 0 skips) the status load is measured again, --runs\n"
           "times, against a daemon started with --io-threads N.\n"
-          "To attribute the time it also reports GET /v1/health/live latency on the forecast\n"
+          "To attribute the time it also reports GET /v1/heartbeat latency on the forecast\n"
           "connection (round trip and scheduling noise), the daemon's CPU time and minor page\n"
           "faults (/proc/<pid>/stat) and the CPU other processes took meanwhile (/proc/stat).\n"
           "--daemon defaults to ../../daemon/lyapcastd next to this program; --keep keeps the\n"
@@ -773,7 +773,7 @@ int main(int argc, char** argv) {
     runs.push_back(RunOnce(o, dir, stream, 0, false));
     const RunResult& x = runs.back();
     std::printf("run %d: forecast idle p50 %.2f p99 %.2f max %.2f ms; retraining p50 %.2f p99 %.2f max %.2f ms "
-                "(job running before and after: %s); health/live p99 %.2f ms; status %.0f/s p99 %.2f ms; "
+                "(job running before and after: %s); heartbeat p99 %.2f ms; status %.0f/s p99 %.2f ms; "
                 "other processes' CPU %.1f / %.1f / %.1f cores\n",
                 r + 1, x.idle.latency.p50_ms, x.idle.latency.p99_ms, x.idle.latency.max_ms, x.loaded.latency.p50_ms,
                 x.loaded.latency.p99_ms, x.loaded.latency.max_ms, x.loaded_throughout ? "yes" : "NO",
@@ -843,7 +843,7 @@ int main(int argc, char** argv) {
               "timed request in %s\n",
               o.iterations, throughout ? "every run" : "NOT every run (see --iterations)");
   if (!quiet) std::printf("  note: a job was running during an idle measurement\n");
-  std::printf("  reference, GET /v1/health/live on the same connection: p50 %.2f ms  p99 %.2f ms  max %.2f ms\n",
+  std::printf("  reference, GET /v1/heartbeat on the same connection: p50 %.2f ms  p99 %.2f ms  max %.2f ms\n",
               live.p50_ms, live.p99_ms, live.max_ms);
   std::printf("  target p99 < %.0f ms while retraining: %s\n", kTargetForecastP99Ms,
               forecast_met ? "met"

@@ -1,13 +1,17 @@
-// lyapcast check: a monitoring-plugin style health check of a running daemon
-// for cron jobs and monitoring systems (Nagios, Icinga, Sensu, ...).
+// lyapcast check: the health of a running daemon in one line and an exit
+// code, for cron jobs and monitoring systems.
 //
 // It fetches each feed's status, re-evaluates the verdict from the status
 // figures with monitor/health.h EvaluateHealth -- the same function the
 // daemon uses -- under the thresholds the daemon reports (health.thresholds)
-// overridden by the command line, and prints exactly one line:
-//   LYAPCAST <VERDICT> - <feed>: <reasons> | <perfdata>
-// exiting 0 OK, 1 WARNING, 2 CRITICAL, 3 UNKNOWN (also for a daemon that
-// cannot be reached or answers something else, and for bad arguments).
+// overridden by the command line, and prints exactly one line, worst feed
+// first, each feed led by its own verdict:
+//   <verdict> <feed>: <reasons or figures>[; <verdict> <feed>: ...] | <perfdata>
+// so the first word is the overall verdict. Exit codes follow the
+// monitoring-plugin convention other tools read: 0 normal, 1 alert, 2 alarm,
+// 3 indeterminate (also for a daemon that cannot be reached or answers
+// something else, and for bad arguments: "indeterminate: <why>"). The
+// perfdata after '|' is the conventional label=value[unit];alert;alarm.
 #include <fmt/format.h>
 #include <CLI/CLI.hpp>
 
@@ -27,32 +31,19 @@ namespace {
 struct CheckArgs {
   RemoteArgs remote;
   std::string feed;
-  std::string drift_warn, drift_crit, data_age_warn, data_age_crit, model_age_warn, model_age_crit;
+  std::string drift_alert, drift_alarm, data_age_alert, data_age_alarm, model_age_alert, model_age_alarm;
 };
 
 struct FeedCheck {
   std::string id;
-  Verdict verdict = Verdict::kUnknown;
+  Verdict verdict = Verdict::kIndeterminate;
   std::vector<std::string> reasons;
   std::string summary;  // the figures, for a feed with nothing to report
   HealthConfig thresholds;
+  ModelAgeThresholds model_age;
   HealthInputs inputs;
   bool have_figures = false;  // perfdata only for feeds whose status was read
 };
-
-int Severity(Verdict v) {
-  switch (v) {
-    case Verdict::kOk:
-      return 0;
-    case Verdict::kUnknown:
-      return 1;
-    case Verdict::kWarning:
-      return 2;
-    case Verdict::kCritical:
-      return 3;
-  }
-  return 1;
-}
 
 // One line, no perfdata separator inside the text.
 std::string Clean(std::string s) {
@@ -63,9 +54,12 @@ std::string Clean(std::string s) {
   return s;
 }
 
-int Unknown(const std::string& why) {
-  std::printf("LYAPCAST UNKNOWN - %s\n", Clean(why).c_str());
-  return VerdictExitCode(Verdict::kUnknown);
+// The whole answer when nothing can be judged: "indeterminate: <why>", or
+// "indeterminate <feed>: <why>" when the one feed asked for cannot be read.
+int Indeterminate(const std::string& why, const std::string& feed = "") {
+  std::printf("%s%s%s: %s\n", VerdictName(Verdict::kIndeterminate), feed.empty() ? "" : " ", Clean(feed).c_str(),
+              Clean(why).c_str());
+  return VerdictExitCode(Verdict::kIndeterminate);
 }
 
 Result<double> NumberArg(const std::string& text, const char* name) {
@@ -84,15 +78,18 @@ Result<Micros> DurationArg(const std::string& text, const char* name) {
   return *d;
 }
 
-// The daemon's thresholds for the feed, then the command line's.
-Status ApplyThresholds(const json& status, const CheckArgs& a, HealthConfig* h) {
+// The daemon's thresholds for the feed (the model-age levels as in force
+// there, configured or derived), then the command line's.
+Status ApplyThresholds(const json& status, const CheckArgs& a, HealthConfig* h, ModelAgeThresholds* model_age) {
   if (const json* t = Path(status, {"health", "thresholds"})) {
-    if (auto v = Number(Field(*t, "drift_warn"))) h->drift_warn = *v;
-    if (auto v = Number(Field(*t, "drift_crit"))) h->drift_crit = *v;
-    if (auto v = Number(Field(*t, "data_age_warn_s"))) h->data_age_warn = std::llround(*v * 1e6);
-    if (auto v = Number(Field(*t, "data_age_crit_s"))) h->data_age_crit = std::llround(*v * 1e6);
-    if (auto v = Number(Field(*t, "model_age_warn_lyapunov"))) h->model_age_warn_lyapunov = *v;
-    if (auto v = Number(Field(*t, "model_age_crit_lyapunov"))) h->model_age_crit_lyapunov = *v;
+    if (auto v = Number(Field(*t, "drift_alert"))) h->drift_alert = *v;
+    if (auto v = Number(Field(*t, "drift_alarm"))) h->drift_alarm = *v;
+    if (auto v = Number(Field(*t, "data_age_alert_s"))) h->data_age_alert = std::llround(*v * 1e6);
+    if (auto v = Number(Field(*t, "data_age_alarm_s"))) h->data_age_alarm = std::llround(*v * 1e6);
+    if (auto v = Number(Field(*t, "model_age_alert_lyapunov"))) model_age->alert = *v;
+    if (auto v = Number(Field(*t, "model_age_alarm_lyapunov"))) model_age->alarm = *v;
+    model_age->alert_derived = Bool(Field(*t, "model_age_alert_derived")).value_or(false);
+    model_age->alarm_derived = Bool(Field(*t, "model_age_alarm_derived")).value_or(false);
   }
   const auto number = [](const std::string& text, const char* name, double* out) -> Status {
     if (text.empty()) return Status::Ok();
@@ -108,14 +105,17 @@ Status ApplyThresholds(const json& status, const CheckArgs& a, HealthConfig* h) 
     *out = *v;
     return Status::Ok();
   };
-  for (Status s :
-       {number(a.drift_warn, "--drift-warn", &h->drift_warn), number(a.drift_crit, "--drift-crit", &h->drift_crit),
-        duration(a.data_age_warn, "--data-age-warn", &h->data_age_warn),
-        duration(a.data_age_crit, "--data-age-crit", &h->data_age_crit),
-        number(a.model_age_warn, "--model-age-warn-lyapunov", &h->model_age_warn_lyapunov),
-        number(a.model_age_crit, "--model-age-crit-lyapunov", &h->model_age_crit_lyapunov)}) {
+  const double alert_before = model_age->alert, alarm_before = model_age->alarm;
+  for (Status s : {number(a.drift_alert, "--drift-alert", &h->drift_alert),
+                   number(a.drift_alarm, "--drift-alarm", &h->drift_alarm),
+                   duration(a.data_age_alert, "--data-age-alert", &h->data_age_alert),
+                   duration(a.data_age_alarm, "--data-age-alarm", &h->data_age_alarm),
+                   number(a.model_age_alert, "--model-age-alert-lyapunov", &model_age->alert),
+                   number(a.model_age_alarm, "--model-age-alarm-lyapunov", &model_age->alarm)}) {
     if (!s.ok()) return s;
   }
+  if (model_age->alert != alert_before) model_age->alert_derived = false;
+  if (model_age->alarm != alarm_before) model_age->alarm_derived = false;
   return Status::Ok();
 }
 
@@ -156,35 +156,36 @@ std::string Perf(std::optional<double> v, const char* unit, double warn, double 
 int RunCheck(const CheckArgs& a) {
   // Bad arguments are found before any request (thresholds are checked again per feed).
   HealthConfig probe;
-  if (Status s = ApplyThresholds(json::object(), a, &probe); !s.ok()) {
-    return Unknown("bad argument: " + s.message());
+  ModelAgeThresholds probe_age;
+  if (Status s = ApplyThresholds(json::object(), a, &probe, &probe_age); !s.ok()) {
+    return Indeterminate("bad argument: " + s.message());
   }
   std::vector<std::string> ids;
   if (!a.feed.empty()) {
-    if (auto p = FeedPath(a.feed); !p.ok()) return Unknown("bad argument: " + p.status().message());
+    if (auto p = FeedPath(a.feed); !p.ok()) return Indeterminate("bad argument: " + p.status().message());
   }
   auto remote = Remote::Open(a.remote);
-  if (!remote.ok()) return Unknown("bad argument: " + remote.status().message());
+  if (!remote.ok()) return Indeterminate("bad argument: " + remote.status().message());
   Remote& r = **remote;
 
-  // Storage: /v1/feeds says it with the feed list; /v1/health/live (always open) otherwise.
+  // Storage: /v1/feeds says it with the feed list; /v1/heartbeat (always open) otherwise.
   bool storage_available = true;
   if (a.feed.empty()) {
     auto feeds = r.GetJson("/v1/feeds");
-    if (!feeds.ok()) return Unknown(feeds.status().message());
+    if (!feeds.ok()) return Indeterminate(feeds.status().message());
     storage_available = Bool(Field(*feeds, "storage_available")).value_or(true);
     const json* list = Field(*feeds, "feeds");
     if (list == nullptr || !list->is_array())
-      return Unknown("GET /v1/feeds from " + r.url() + ": no 'feeds' list (is that lyapcastd?)");
+      return Indeterminate("GET /v1/feeds from " + r.url() + ": no 'feeds' list (is that lyapcastd?)");
     for (const json& f : *list) {
       const std::string id = Text(Field(f, "id"));
-      if (id.empty()) return Unknown("GET /v1/feeds from " + r.url() + ": a feed without an id");
+      if (id.empty()) return Indeterminate("GET /v1/feeds from " + r.url() + ": a feed without an id");
       ids.push_back(id);
     }
-    if (ids.empty()) return Unknown("the daemon at " + r.url() + " serves no feeds");
+    if (ids.empty()) return Indeterminate("the daemon at " + r.url() + " serves no feeds");
   } else {
-    auto live = r.GetJson("/v1/health/live");
-    if (!live.ok()) return Unknown(live.status().message());
+    auto live = r.GetJson("/v1/heartbeat");
+    if (!live.ok()) return Indeterminate(live.status().message());
     storage_available = Bool(Field(*live, "storage_available")).value_or(true);
     ids.push_back(a.feed);
   }
@@ -195,22 +196,24 @@ int RunCheck(const CheckArgs& a) {
     c.id = id;
     auto status = r.GetJson("/v1/feeds/" + id + "/status");
     if (!status.ok()) {
-      // One unreachable daemon or a refused token is one UNKNOWN, not one per feed.
+      // One unreachable daemon or a refused token is one indeterminate line, not one per feed.
       const bool no_daemon = status.status().code() == StatusCode::kUnavailable;
       if (no_daemon || r.last_http_status() == 401 || r.last_http_status() == 403 || ids.size() == 1) {
-        return Unknown((ids.size() == 1 ? id + ": " : "") + status.status().message());
+        return Indeterminate(status.status().message(), ids.size() == 1 ? id : "");
       }
       c.reasons.push_back(status.status().message());
       checks.push_back(std::move(c));
       continue;
     }
-    if (Status s = ApplyThresholds(*status, a, &c.thresholds); !s.ok()) return Unknown("bad argument: " + s.message());
+    if (Status s = ApplyThresholds(*status, a, &c.thresholds, &c.model_age); !s.ok()) {
+      return Indeterminate("bad argument: " + s.message());
+    }
     if (Status s = ReadInputs(*status, storage_available, &c.inputs); !s.ok()) {
       c.reasons.push_back(s.message());
       checks.push_back(std::move(c));
       continue;
     }
-    const HealthResult h = EvaluateHealth(c.thresholds, c.inputs);
+    const HealthResult h = EvaluateHealth(c.thresholds, c.model_age, c.inputs);
     c.verdict = h.verdict;
     c.reasons = h.reasons;
     c.have_figures = true;
@@ -226,30 +229,28 @@ int RunCheck(const CheckArgs& a) {
     checks.push_back(std::move(c));
   }
 
-  Verdict worst = Verdict::kOk;
+  Verdict worst = Verdict::kNormal;
   for (const FeedCheck& c : checks) worst = WorseVerdict(worst, c.verdict);
-  std::stable_sort(checks.begin(), checks.end(),
-                   [](const FeedCheck& x, const FeedCheck& y) { return Severity(x.verdict) > Severity(y.verdict); });
+  std::stable_sort(checks.begin(), checks.end(), [](const FeedCheck& x, const FeedCheck& y) {
+    return VerdictSeverity(x.verdict) > VerdictSeverity(y.verdict);
+  });
   const bool several = checks.size() > 1;
   std::string text, perf;
   for (const FeedCheck& c : checks) {
     std::string what;
     for (const std::string& reason : c.reasons) what += (what.empty() ? "" : ", ") + reason;
-    if (what.empty()) what = c.summary.empty() ? "ok" : c.summary;
-    text += fmt::format("{}{}{}: {}", text.empty() ? "" : "; ", c.id,
-                        several ? std::string(" ") + VerdictName(c.verdict) : "", what);
+    if (what.empty()) what = c.summary.empty() ? "no figures yet" : c.summary;
+    text += fmt::format("{}{} {}: {}", text.empty() ? "" : "; ", VerdictName(c.verdict), c.id, what);
     if (!c.have_figures) continue;
     const std::string prefix = several ? c.id + "." : "";
     const HealthConfig& t = c.thresholds;
-    perf += fmt::format(
-        "{}{}drift_ratio={} {}data_age={} {}model_age_lyapunov={}", perf.empty() ? "" : " ", prefix,
-        Perf(c.inputs.drift_ratio, "", t.drift_warn, t.drift_crit), prefix,
-        Perf(c.inputs.data_age_s, "s", static_cast<double>(t.data_age_warn) / 1e6,
-             static_cast<double>(t.data_age_crit) / 1e6),
-        prefix, Perf(c.inputs.since_training_lyapunov_times, "", t.model_age_warn_lyapunov, t.model_age_crit_lyapunov));
+    perf += fmt::format("{}{}drift_ratio={} {}data_age={} {}model_age_lyapunov={}", perf.empty() ? "" : " ", prefix,
+                        Perf(c.inputs.drift_ratio, "", t.drift_alert, t.drift_alarm), prefix,
+                        Perf(c.inputs.data_age_s, "s", static_cast<double>(t.data_age_alert) / 1e6,
+                             static_cast<double>(t.data_age_alarm) / 1e6),
+                        prefix, Perf(c.inputs.since_training_lyapunov_times, "", c.model_age.alert, c.model_age.alarm));
   }
-  std::printf("LYAPCAST %s - %s%s%s\n", VerdictName(worst), Clean(text).c_str(), perf.empty() ? "" : " | ",
-              perf.c_str());
+  std::printf("%s%s%s\n", Clean(text).c_str(), perf.empty() ? "" : " | ", perf.c_str());
   return VerdictExitCode(worst);
 }
 
@@ -257,35 +258,41 @@ int RunCheck(const CheckArgs& a) {
 
 void AddCheckCommand(CLI::App& app, int* exit_code) {
   auto args = std::make_shared<CheckArgs>();
-  CLI::App* cmd = app.add_subcommand("check", "Health check for cron and monitoring systems: one line, exit 0/1/2/3");
+  CLI::App* cmd = app.add_subcommand(
+      "check", "Health in one line for cron and monitoring systems: exit 0 normal, 1 alert, 2 alarm, 3 indeterminate");
   cmd->footer(
       std::string(
           "Fetches each feed's status (or the one given) and judges it with the daemon's own health rules:\n"
-          "storage down -> CRITICAL; no data or no model yet -> UNKNOWN; data age, drift ratio and model age\n"
-          "(data time since training, in Lyapunov times) against their warn/crit thresholds, each reached when\n"
-          "value >= threshold; a raised drift flag -> WARNING; a paused feed is judged only on storage and data.\n"
-          "Thresholds are the feed's (config health:, reported in its status) unless given here.\n"
-          "Prints exactly one line, worst feed first, with perfdata after '|' (labels prefixed with the feed\n"
-          "id when several feeds are reported; U = not known yet):\n"
-          "  LYAPCAST WARNING - loop-a: drift ratio 2.4 >= drift_warn 2 | drift_ratio=2.4;2;5 data_age=0.4s;30;300 "
-          "...\n"
-          "Exit codes: 0 OK, 1 WARNING, 2 CRITICAL, 3 UNKNOWN. The worst feed decides; UNKNOWN only beats OK.\n"
-          "3 also when the daemon cannot be reached, refuses the token or answers something else, and for bad\n"
-          "arguments (the line says why).\n"
+          "  alarm          act now: storage down, or an alarm level reached\n"
+          "  alert          needs attention: an alert level reached, or the drift flag raised\n"
+          "  indeterminate  cannot judge: no data or no model yet (or the daemon cannot be asked)\n"
+          "  normal         every check passes\n"
+          "The checks: data age, drift ratio and model age (data time since training, in Lyapunov times)\n"
+          "against their alert/alarm levels, each reached when value >= level; a paused feed is judged\n"
+          "only on storage and data. Levels are the feed's (config health:, reported in its status; model-age\n"
+          "levels not configured are derived from the retrain cadence) unless given here.\n"
+          "Prints exactly one line, worst feed first, each feed led by its verdict, so the first word is the\n"
+          "overall verdict; perfdata after '|' as label=value;alert;alarm (labels prefixed with the feed id\n"
+          "when several feeds are reported; U = not known yet):\n"
+          "  alert loop-a: drift ratio 2.4 >= drift_alert 2; normal rig-b: model v7, drift ratio 0.93 | "
+          "loop-a.drift_ratio=2.4;2;5 ...\n"
+          "Exit codes: 0 normal, 1 alert, 2 alarm, 3 indeterminate. The worst feed decides; indeterminate only\n"
+          "beats normal. 3 also when the daemon cannot be reached, refuses the token or answers something\n"
+          "else, and for bad arguments (the line says why).\n"
           "Examples:\n"
           "  lyapcast check\n"
-          "  lyapcast check --feed loop-a --drift-warn 1.5 --data-age-crit 2m --token-file /etc/lyapcast/read.token\n"
+          "  lyapcast check --feed loop-a --drift-alert 1.5 --data-age-alarm 2m --token-file /etc/lyapcast/read.token\n"
           "  */5 * * * *  lyapcast check >/dev/null || page-someone   # crontab\n") +
       kRemoteFooter);
   cmd->add_option("--feed", args->feed, "one feed id (default: every feed; the worst verdict wins)");
-  cmd->add_option("--drift-warn", args->drift_warn, "WARNING when the drift ratio reaches this");
-  cmd->add_option("--drift-crit", args->drift_crit, "CRITICAL when the drift ratio reaches this");
-  cmd->add_option("--data-age-warn", args->data_age_warn, "WARNING when no sample arrived for this long, e.g. 30s");
-  cmd->add_option("--data-age-crit", args->data_age_crit, "CRITICAL when no sample arrived for this long, e.g. 5m");
-  cmd->add_option("--model-age-warn-lyapunov", args->model_age_warn,
-                  "WARNING when the data since the model's training spans this many Lyapunov times");
-  cmd->add_option("--model-age-crit-lyapunov", args->model_age_crit,
-                  "CRITICAL when the data since the model's training spans this many Lyapunov times");
+  cmd->add_option("--drift-alert", args->drift_alert, "alert when the drift ratio reaches this");
+  cmd->add_option("--drift-alarm", args->drift_alarm, "alarm when the drift ratio reaches this");
+  cmd->add_option("--data-age-alert", args->data_age_alert, "alert when no sample arrived for this long, e.g. 30s");
+  cmd->add_option("--data-age-alarm", args->data_age_alarm, "alarm when no sample arrived for this long, e.g. 5m");
+  cmd->add_option("--model-age-alert-lyapunov", args->model_age_alert,
+                  "alert when the data since the model's training spans this many Lyapunov times");
+  cmd->add_option("--model-age-alarm-lyapunov", args->model_age_alarm,
+                  "alarm when the data since the model's training spans this many Lyapunov times");
   AddRemoteOptions(cmd, &args->remote);
   cmd->callback([args, exit_code] { *exit_code = RunCheck(*args); });
 }

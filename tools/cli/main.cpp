@@ -37,11 +37,11 @@ int main(int argc, char** argv) {
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
-    // `check` is a monitoring plugin: bad arguments are UNKNOWN (3) with one
-    // line on stdout, not 2 (which would read as CRITICAL).
+    // `check` speaks exit codes to monitoring systems: bad arguments are
+    // indeterminate (3) with one line on stdout, not 2 (which reads as alarm).
     const bool check = argc > 1 && std::strcmp(argv[1], "check") == 0;
     if (check && e.get_exit_code() != 0) {
-      std::printf("LYAPCAST UNKNOWN - bad argument: %s\n", e.what());
+      std::printf("indeterminate: bad argument: %s\n", e.what());
       std::fprintf(stderr, "Run with --help for more information.\n");
       return 3;
     }
