@@ -5,7 +5,7 @@
 // before the first page is copied and held until the last, so commits the
 // daemon makes meanwhile neither show up half in the copy nor restart it (an
 // unpinned stepwise backup starts over after every commit by another process,
-// which under steady ingest may never finish; deploy/OPERATIONS.md). In WAL
+// which under steady ingest may never finish; docs/operations.md). In WAL
 // mode a reader never blocks the writer; the daemon's WAL only grows until the
 // copy ends. The snapshot includes commits still in the WAL: the backup API
 // reads pages through the pager.
@@ -476,7 +476,7 @@ void AddBackupCommand(CLI::App& app, int* exit_code) {
       "OUT appears only when complete: the copy goes to OUT.partial, passes PRAGMA integrity_check, and is\n"
       "renamed. An existing OUT is kept unless --force. The copy is a single file (no -wal/-shm needed),\n"
       "readable with `sqlite3 -readonly OUT`. Progress on stderr, a summary line on stdout.\n"
-      "Restore (the daemon must be stopped; deploy/OPERATIONS.md \"Restore\"):\n"
+      "Restore (the daemon must be stopped; docs/operations.md \"Restore\"):\n"
       "  systemctl stop lyapcastd\n"
       "  mkdir -p /var/lib/lyapcast.before-restore\n"
       "  mv /var/lib/lyapcast/lyapcast.db* /var/lib/lyapcast.before-restore/    # the old db with its -wal/-shm\n"
