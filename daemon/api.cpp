@@ -70,7 +70,7 @@ class Api {
     if (req.path == "/v1/feeds") return Only(req, "GET", [&] { return Feeds(); });
     const auto seg = Segments(req.path);
     if (seg.size() >= 3 && seg[0] == "v1" && seg[1] == "feeds") return FeedRoute(req, seg);
-    return Error(404, "not-found", "no such endpoint: " + req.path + " (see the README's HTTP API section)");
+    return Error(404, "not-found", "no such endpoint: " + req.path + " (see docs/http-api.md)");
   }
 
  private:
@@ -106,7 +106,7 @@ class Api {
     if (n == 6 && seg[3] == "models" && seg[5] == "activate") {
       return Only(req, "POST", [&] { return api::Activate(c_, f, std::string(seg[4])); });
     }
-    return Error(404, "not-found", "no such endpoint: " + req.path + " (see the README's HTTP API section)");
+    return Error(404, "not-found", "no such endpoint: " + req.path + " (see docs/http-api.md)");
   }
 
   // GET needs the read (or admin) token when one is configured; anything

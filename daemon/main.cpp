@@ -1,4 +1,4 @@
-// lyapcastd: the lyapcast daemon. See `lyapcastd --help` and the README.
+// lyapcastd: the lyapcast daemon. See `lyapcastd --help` and docs/cli.md.
 #include <CLI/CLI.hpp>
 #include <spdlog/spdlog.h>
 
@@ -25,7 +25,7 @@ int main(int argc, char** argv) {
   app.set_version_flag("--version", lyapcast::kVersion);
   std::string config, check_config, ready_file, log_level = "info";
   int io_threads = 2;
-  app.add_option("--config,-c", config, "YAML config file (see config/demo.yaml and the README's config reference)")
+  app.add_option("--config,-c", config, "YAML config file (see config/demo.yaml and docs/configuration.md)")
       ->check(CLI::ExistingFile);
   app.add_option("--check-config", check_config, "validate FILE, print a summary and exit (0 valid, 2 invalid)");
   app.add_option("--ready-file", ready_file,
