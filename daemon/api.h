@@ -1,4 +1,4 @@
-// The HTTP API routes (README "HTTP API"), written against plain request
+// The HTTP API routes (docs/http-api.md), written against plain request
 // and response values; Beast stays in http_server.cpp.
 //
 // Access: when a read token is configured, GET needs `Authorization: Bearer

@@ -1,6 +1,6 @@
 // One consistent look at a feed for the routes: its window, schedule, drift
 // figures, active model, chosen Lyapunov exponent and health verdict, and
-// their JSON forms (README "HTTP API").
+// their JSON forms (docs/http-api.md).
 #pragma once
 
 #include <memory>

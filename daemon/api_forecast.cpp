@@ -1,6 +1,6 @@
 // GET /v1/feeds/{id}/forecast: a free run of the published active model
 // from the newest complete sample (or the one at a given data time), with
-// the predictability horizon and the staleness figures (README "HTTP API").
+// the predictability horizon and the staleness figures (docs/http-api.md "Forecast").
 #include <fmt/format.h>
 
 #include <cmath>

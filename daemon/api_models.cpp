@@ -1,5 +1,5 @@
 // Model history, model files, activation, retrain triggers, jobs, pause and
-// resume (README "HTTP API").
+// resume (docs/http-api.md).
 #include <fmt/format.h>
 
 #include <charconv>

@@ -1,4 +1,4 @@
-#include <utility>  // before Asio: Boost 1.74 needs std::exchange (PITFALLS.md)
+#include <utility>  // before Asio: Boost 1.74 needs std::exchange (DEVELOPERS.md "Pitfalls")
 
 #include "daemon.h"
 

@@ -1,5 +1,5 @@
 // Plain HTTP request/response values, so routes are written without Beast
-// (Beast stays inside http_server.cpp; PITFALLS.md "Compile time").
+// (Beast stays inside http_server.cpp; DEVELOPERS.md "Pitfalls": compile time).
 #pragma once
 
 #include <functional>

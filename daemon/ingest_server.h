@@ -1,5 +1,5 @@
-// IngestServer: the TCP listener for sample lines (DESIGN.md "Sample line
-// format"). Each connection is a session that splits the byte stream into
+// IngestServer: the TCP listener for sample lines (docs/protocol.md "Sample
+// line format"). Each connection is a session that splits the byte stream into
 // lines, parses them (lib/ingest), submits good samples to the SampleWriter
 // and answers every line exactly once, in order: `ok <n>` after its
 // transaction committed, or `error <line> <code> <text>`.

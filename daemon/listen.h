@@ -2,7 +2,7 @@
 // ingest and HTTP servers. Include only from .cpp files that use Asio.
 #pragma once
 
-#include <utility>  // before Asio: Boost 1.74 needs std::exchange (PITFALLS.md)
+#include <utility>  // before Asio: Boost 1.74 needs std::exchange (DEVELOPERS.md "Pitfalls")
 
 #include <fmt/format.h>
 

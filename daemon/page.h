@@ -1,4 +1,4 @@
-// The operator page (README "Operator page"): static files compiled into the
+// The operator page (docs/http-api.md "Operator page"): static files compiled into the
 // binary from daemon/page/ and served without a token (they hold no data; the
 // page reads everything through the API with the operator's token).
 #pragma once

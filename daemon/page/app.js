@@ -1,6 +1,6 @@
 // lyapcast operator view. Plain JavaScript, no framework, no build step.
 //
-// Polls the daemon's HTTP API (README "HTTP API") every POLL_MS while the tab
+// Polls the daemon's HTTP API (docs/http-api.md) every POLL_MS while the tab
 // is visible and draws, per feed: the recent observed channels and the latest
 // forecast as SVG lines with the predictability horizon, the health verdict
 // and its figures, and the model history. Every piece of text from the API is

@@ -1,5 +1,5 @@
-// Predictability horizon of a forecast (DESIGN.md "Lyapunov time and
-// cadence"; REFERENCES.md): an error growing as e(t) ~ e0 exp(lambda t)
+// Predictability horizon of a forecast (docs/design.md "Lyapunov time and
+// cadence"; docs/references.md "Predictability horizon"): an error growing as e(t) ~ e0 exp(lambda t)
 // reaches `tol` after (1 / lambda) ln(tol / e0) (the standard linear-growth
 // estimate). Units: those of 1 / lambda_max.
 // Thread safety: pure function. Header-only.

@@ -1,6 +1,6 @@
 // Lyapunov spectrum of any map with a Jacobian by the QR method (Benettin,
 // Galgani, Giorgilli & Strelcyn, Meccanica 15 (1980) 9; Shimada & Nagashima,
-// Prog. Theor. Phys. 61 (1979) 1605; DESIGN.md "Lyapunov time and cadence").
+// Prog. Theor. Phys. 61 (1979) 1605; docs/design.md "Lyapunov time and cadence").
 //
 // A flow enters through its integrator (FlowMapStep: one RK4 step of the
 // variational system per map step) and a learned model through its one-step

@@ -1,5 +1,5 @@
 // Largest Lyapunov exponent from a time series by the method of Rosenstein,
-// Collins & De Luca, Physica D 65 (1993) 117 (REFERENCES.md: +-25 %).
+// Collins & De Luca, Physica D 65 (1993) 117 (docs/references.md "Lyapunov exponents": +-25 %).
 //
 // 1. Delay embedding Y_i = (x_i, x_{i+lag}, ..., x_{i+(m-1) lag}). The lag
 //    is the first shift at which the autocorrelation drops below 1 - 1/e

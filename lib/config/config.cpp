@@ -1,4 +1,4 @@
-// The config schema (DESIGN.md "Config (YAML)") walked over a yaml-cpp tree.
+// The config schema (docs/configuration.md "Keys") walked over a yaml-cpp tree.
 // Reading and range checks of single values live in yaml_reader.h; this file
 // knows the keys, their ranges and the checks that span several keys.
 #include "config/config.h"

@@ -1,7 +1,7 @@
 // lyapcast configuration: the YAML file parsed into validated structs.
 //
-// Every key has a documented default (the member initializers below and the
-// README's config reference say the same). LoadConfig() rejects unknown keys,
+// Every key has a documented default (the member initializers below and
+// docs/configuration.md "Keys" say the same). LoadConfig() rejects unknown keys,
 // duplicate keys, wrong types, ids outside the grammar, duplicate feed or
 // channel ids, non-positive steps, unparsable durations and sizes, and
 // listening beyond loopback without tokens (unless explicitly allowed). Each
@@ -169,7 +169,7 @@ struct Config {
 // True for 127.0.0.0/8, ::1 and "localhost".
 bool IsLoopbackHost(std::string_view host);
 
-// Identifier grammars (DESIGN.md "Identifiers and paths").
+// Identifier grammars (docs/design.md "Identifiers and paths").
 bool IsValidFeedId(std::string_view id);
 bool IsValidChannelName(std::string_view name);
 

@@ -1,5 +1,5 @@
 // Data time: timestamps carried by samples, as int64 microseconds since the
-// Unix epoch (UTC). Never mixed with wall time (see DESIGN.md, "Time").
+// Unix epoch (UTC). Never mixed with wall time (see docs/design.md, "Time").
 //
 // Also: parsing of RFC 3339 timestamps and of the config's durations and sizes.
 // All functions are pure and thread-safe.

@@ -1,6 +1,6 @@
 // Why an ingest line was not accepted. Each reason has a stable kebab-case
 // code used on the wire (`error <line> <code> <text>`), in logs and in
-// metrics; never rename one (DESIGN.md "Sample line format").
+// metrics; never rename one (docs/protocol.md "Replies").
 #pragma once
 
 #include <string_view>

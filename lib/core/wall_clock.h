@@ -1,5 +1,5 @@
 // Wall time: the machine's real-time clock, used only for data age, process
-// health and the future-skew check, never for cadence (DESIGN.md "Time").
+// health and the future-skew check, never for cadence (docs/design.md "Time").
 #pragma once
 
 #include <chrono>

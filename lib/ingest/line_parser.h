@@ -1,5 +1,5 @@
 // LineParser: one ingest line -> a validated sample, an auth line, or a
-// precise rejection (DESIGN.md "Sample line format").
+// precise rejection (docs/protocol.md "Sample line format").
 //
 // Formats, chosen by the first non-blank byte:
 //   '{'      NDJSON: {"feed":"loop-a","t":1733097600.25,"values":{"flow":0.31}}

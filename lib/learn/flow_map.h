@@ -1,4 +1,4 @@
-// FlowMap<T>: the learned one-step map of a feed (DESIGN.md "Learning"),
+// FlowMap<T>: the learned one-step map of a feed (docs/design.md "Learning"),
 // in residual form
 //
 //     G(x) = x + dt * S ⊙ N((x - m) ⊘ s)

@@ -1,4 +1,4 @@
-// Mlp<T>: the multilayer perceptron inside the flow map (DESIGN.md
+// Mlp<T>: the multilayer perceptron inside the flow map (docs/design.md
 // "Learning"), with analytic backpropagation over whole batches.
 //
 // Layers: in -> hidden[0] -> ... -> hidden[H-1] -> out. Hidden layers apply

@@ -9,7 +9,7 @@
 //   L_data = mean over present (step, sample, channel) of ((G^k(x) - y) / s_c)^2
 //
 // with s_c the model's per-channel standard deviation, so channels in
-// different units weigh alike. Constraint terms (DESIGN.md "Learning"), once
+// different units weigh alike. Constraint terms (docs/design.md "Learning"), once
 // per trajectory, each multiplied by
 //   w(i) = weight / (1 + exp(-(i / iterations - mid) / width)):
 //   velocity:  mean ((f(G^k(z)) - f(y_k)) / fs_c)^2

@@ -1,5 +1,5 @@
 // ChangeTest: a one-sided sequential test for an INCREASE in the mean of a
-// series (DESIGN.md "Monitoring": the change test behind the drift flag).
+// series (docs/design.md "Monitoring": the change test behind the drift flag).
 //
 // Page-Hinkley / CUSUM form (E.S. Page, Biometrika 41 (1954) 100), made
 // scale-free: the first `warmup` finite observations after Reset() only

@@ -1,5 +1,5 @@
 // DriftMonitor: one feed's out-of-sample scoring of the active model, the
-// drift flag and the staleness figures (DESIGN.md "Monitoring").
+// drift flag and the staleness figures (docs/design.md "Monitoring").
 //
 // Every arriving sample is recorded (newest data time, wall time of the last
 // arrival). A sample is SCORED when all of these hold:

@@ -1,5 +1,5 @@
 // Dynamics: a feed's known right-hand side dx/dt = f(x), compiled from the
-// expressions in its config (DESIGN.md "Learning", config key `dynamics`).
+// expressions in its config (docs/design.md "Learning", config key `dynamics`).
 //
 // One muparser expression per channel, in the feed's channel order. The
 // variables an expression may use are the feed's channels and the constants
@@ -72,7 +72,7 @@ class Dynamics {
 
   // Column i of *F is f(column i of X). Requires X.rows() == dim(); resizes *F
   // to dim() x X.cols(). Evaluates one sample at a time (muparser's bulk mode
-  // may start OpenMP threads; see PITFALLS.md).
+  // may start OpenMP threads; see DEVELOPERS.md "Pitfalls").
   void EvalBatch(const Eigen::MatrixXd& X, Eigen::MatrixXd* F) const;
 
   // Changes a constant for later evaluations (to simulate a parameter change).

@@ -1,6 +1,6 @@
 // Tangent (variational) dynamics of a known right-hand side, for Lyapunov
 // exponents from the equations (lib/chaos; Benettin et al.,
-// Meccanica 15 (1980) 9; see REFERENCES.md).
+// Meccanica 15 (1980) 9; see docs/references.md "Lyapunov exponents").
 //
 // The augmented state z = [x; vec(Y)] has dim + dim*k entries: the state x
 // followed by the dim x k tangent matrix Y stored column by column (Eigen's

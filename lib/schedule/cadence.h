@@ -1,4 +1,4 @@
-// Cadence: when a feed's next retrain is due, in data time (DESIGN.md
+// Cadence: when a feed's next retrain is due, in data time (docs/design.md
 // "Lyapunov time and cadence").
 //
 // The Lyapunov time T = 1 / lambda_max comes from the best source at hand:

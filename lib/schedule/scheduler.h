@@ -1,5 +1,5 @@
 // Scheduler: each feed's retraining cadence and the trainer pool that runs
-// the jobs (DESIGN.md "Threads" and "Time").
+// the jobs (docs/design.md "Threads" and "Time").
 //
 // Cadence, in data time only: every newly committed sample reaches
 // OnSample() (or a whole batch OnCommitted()); once a feed's newest sample

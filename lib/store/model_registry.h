@@ -1,5 +1,5 @@
 // ModelRegistry: every model version of every feed, durable in SQLite before
-// it is served (DESIGN.md "Data flow"; schema version 2, table `models`).
+// it is served (docs/design.md "Data flow"; schema version 2, table `models`).
 //
 // Versions count from 1 per feed. At most one version of a feed is 'active'
 // (the one served); promoting a new version retires the previous active one

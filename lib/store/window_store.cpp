@@ -27,7 +27,7 @@ using sqlite::Stmt;
 
 Status CreateWindowTables(sqlite3* db) {
   // channels: the feed's channel names joined with ','; channel names cannot
-  // contain ',' (DESIGN.md "Identifiers"). created_at: wall time, for people.
+  // contain ',' (docs/design.md "Identifiers and paths"). created_at: wall time, for people.
   // samples is WITHOUT ROWID so rows are clustered by (feed_id, t_us): range
   // reads, extents and pruning walk the primary key directly.
   return sqlite::Exec(db,
@@ -297,7 +297,7 @@ Result<std::unique_ptr<WindowStore>> WindowStore::Open(const StoreOptions& optio
                                     "a local file system",
                                     path.string(), got));
     }
-    // FULL: a commit is on disk before ingest acknowledges it (DESIGN.md).
+    // FULL: a commit is on disk before ingest acknowledges it (docs/design.md "Storage").
     if (Status s = sqlite::Exec(db, "PRAGMA synchronous=FULL", "setting synchronous=FULL"); !s.ok()) {
       return opening(s);
     }

@@ -1,6 +1,6 @@
 // Tests for PredictabilityHorizon: (1/lambda) ln(tol/e0), the linear-growth
-// estimate of REFERENCES.md ("Predictability horizon"), and its edge cases
-// from DESIGN.md ("Lyapunov time and cadence").
+// estimate of docs/references.md ("Predictability horizon"), and its edge cases
+// from docs/design.md ("Lyapunov time and cadence").
 #include "chaos/horizon.h"
 
 #include <gtest/gtest.h>

@@ -1,6 +1,6 @@
 // The Lyapunov spectrum of a flow map learned from Lorenz-63 samples: the
 // largest exponent within 10 % of the true 0.9056 and the second, the flow's
-// zero exponent, near zero (REFERENCES.md: for a learned map check these two,
+// zero exponent, near zero (docs/references.md "Lyapunov exponents": for a learned map check these two,
 // not the strongly negative ones; the 10 % tolerance is common practice when
 // the one-step error is small, no published source).
 #include "core/eigen.h"  // first, instead of <Eigen/Core>: see there

@@ -1,6 +1,6 @@
 // Slow (label `slow`) Lorenz spectra: 10x the unit tests' run length and two
-// RK4 substeps per map step, so the estimates sit well inside REFERENCES.md's
-// +-2 % and the integrator is not what limits them.
+// RK4 substeps per map step, so the estimates sit well inside the +-2 % of
+// docs/references.md "Lyapunov exponents" and the integrator is not what limits them.
 // References: Sprott, "Common chaotic systems" table (2004) for s = 10,
 // r = 28, b = 8/3 (0.9056, 0, -14.5723); Wolf, Swift, Swinney & Vastano,
 // Physica D 16 (1985) 285 for s = 16, r = 45.92, b = 4 (1.50, 0, -22.46).

@@ -1,5 +1,5 @@
 // Tests for lib/chaos LyapunovSpectrum (QR / Benettin method) on maps with
-// published exponents (REFERENCES.md), the flow adapter on Lorenz-63, the
+// published exponents (docs/references.md "Lyapunov exponents"), the flow adapter on Lorenz-63, the
 // learned-map adapter, and the error paths.
 #include "chaos/lyapunov.h"
 
@@ -124,7 +124,7 @@ TEST(LyapunovTest, TimePerStepScalesRates) {
 }
 
 // Lorenz-63 s = 10, r = 28, b = 8/3 (Sprott 2004 table: 0.9056, 0, -14.5723)
-// with REFERENCES.md's protocol: RK4 step 0.01, a discarded transient, 1000
+// with the protocol of docs/references.md "Lyapunov exponents": RK4 step 0.01, a discarded transient, 1000
 // time units, +-2 % (the zero exponent within 0.02 absolute). The sum is the
 // time average of trace J = -(s + 1 + b) exactly, which the RK4 map
 // reproduces to O(dt^4): 0.5 %. (The run takes well under a second, so it

@@ -1,8 +1,8 @@
 // Slow (label `slow`) Rosenstein checks: the automatic lag, Theiler window
 // and fit region should not hinge on one lucky series. Lorenz-63 x
 // (reference 0.9056, Sprott 2004 table) over other lengths (100-200 time
-// units), start points and embedding dimensions stays within REFERENCES.md's
-// +-25 % (Rosenstein, Collins & De Luca, Physica D 65 (1993) 117).
+// units), start points and embedding dimensions stays within the +-25 % of
+// docs/references.md "Lyapunov exponents" (Rosenstein, Collins & De Luca, Physica D 65 (1993) 117).
 #include "chaos/rosenstein.h"
 
 #include <gtest/gtest.h>

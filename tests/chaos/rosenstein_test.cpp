@@ -1,7 +1,7 @@
 // Tests for RosensteinLargest (Rosenstein, Collins & De Luca, Physica D 65
 // (1993) 117) on series with known largest exponents: the logistic map
 // r = 4 (ln 2, analytic; Sprott 2003) and Lorenz-63 x (0.9056, Sprott 2004
-// table). REFERENCES.md tolerance for time-series estimates: +-25 %.
+// table). docs/references.md "Lyapunov exponents" tolerance for time-series estimates: +-25 %.
 #include "chaos/rosenstein.h"
 
 #include <gtest/gtest.h>

@@ -1,5 +1,5 @@
-"""The HTTP API contract (README "HTTP API") through real HTTP against the
-real lyapcastd: every endpoint of the README's table and every documented
+"""The HTTP API contract (docs/http-api.md) through real HTTP against the
+real lyapcastd: every endpoint of its table and every documented
 error status, the Prometheus exposition (checked with `promtool check
 metrics` and against /status), and bearer-token scopes.
 

@@ -228,7 +228,7 @@ class LyapunovCommandTest(unittest.TestCase):
         self.assertEqual(sorted(rows), ["data", "dynamics", "model"], out)
         largest = {k: float(v.split(")")[1].split()[0]) for k, v in rows.items()}
         # Lorenz-63 largest exponent 0.9056 (Sprott 2003): tangent dynamics within
-        # 5 % on this short run, Rosenstein within 25 % (REFERENCES.md).
+        # 5 % on this short run, Rosenstein within 25 % (docs/references.md "Lyapunov exponents").
         self.assertLess(abs(largest["dynamics"] / 0.9056 - 1), 0.05, out)
         self.assertLess(abs(largest["data"] / 0.9056 - 1), 0.25, out)
         self.assertIn("R^2", rows["data"])

@@ -4,7 +4,7 @@ data-time cadence, and after the change serves a newly promoted version that
 predicts the changed process better than the version it served before the
 change. A SIGKILL and restart keeps the active version and the cadence.
 
-Lorenz-63 constants sigma = 10, beta = 8/3 (Sprott 2003, as REFERENCES.md);
+Lorenz-63 constants sigma = 10, beta = 8/3 (Sprott 2003, docs/references.md "Systems");
 the change r = 28 -> 38 is our own test scenario. Errors are measured with
 `lyapcast score` (one-step error over each channel's standard deviation, the
 definition the trainer validates with)."""

@@ -1,4 +1,4 @@
-// FlowMap: the residual form G(x) = x + dt S ⊙ N((x - m) ⊘ s) (DESIGN.md
+// FlowMap: the residual form G(x) = x + dt S ⊙ N((x - m) ⊘ s) (docs/design.md
 // "Learning"), its gradients (central finite differences, as in
 // mlp_test.cpp), a 3-step composition backpropagated through dX (what the
 // trainer does for k-step pairs), the Jacobian, and Refit keeping G.

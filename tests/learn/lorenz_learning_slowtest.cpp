@@ -2,7 +2,7 @@
 // flow map a forecaster can iterate.
 //
 // System: x' = s(y - x), y' = x(r - z) - y, z' = xy - bz with s = 10, r = 28,
-// b = 8/3 (the published constants; REFERENCES.md, Sprott 2003), sampled at
+// b = 8/3 (the published constants; docs/references.md "Systems", Sprott 2003), sampled at
 // dt = 0.01 for 50 time units after a transient, from the project's RK4 at
 // h = 1e-3 (its order is checked against closed forms in physics_tests).
 // Thresholds are the issue's: one-step validation RMSE below 1e-3 of each

@@ -1,4 +1,4 @@
-// Reference test against PyTorch (REFERENCES.md "Learning": autograd and the
+// Reference test against PyTorch (docs/references.md "Learning": autograd and the
 // optimizer on the same weights and batch): a 3-16-16-3 flow map with
 // nonzero m, s, S and mu, batch 32, MSE loss, loss.backward(),
 // torch.nn.utils.clip_grad_norm_ with a limit that clips, and

@@ -3,7 +3,7 @@
 // and residual constraints, mu, the velocity term at a target 3 steps on),
 // the gap-aware normalization and validation error, determinism,
 // cancellation, divergence.
-// Data: Lorenz-63 (s = 10, r = 28, b = 8/3; REFERENCES.md) integrated with
+// Data: Lorenz-63 (s = 10, r = 28, b = 8/3; docs/references.md "Systems") integrated with
 // the project's RK4 at a fine step, sampled on the model grid.
 #include <gtest/gtest.h>
 

@@ -1,5 +1,5 @@
 // Tests for lib/physics integrators against closed-form solutions
-// (REFERENCES.md "Integrators"): the harmonic oscillator x'' = -w^2 x with
+// (docs/references.md "Integrators"): the harmonic oscillator x'' = -w^2 x with
 // x = cos(w t), and exponential decay x' = -k x with x = exp(-k t).
 #include "physics/integrators.h"
 
@@ -35,7 +35,7 @@ double Rk4OscillatorError(double h, double T) {
 }
 
 TEST(Rk4Test, OscillatorGlobalErrorIsFourthOrder) {
-  // REFERENCES.md: observed order log2(e(h) / e(h/2)) = 4 +- 0.2.
+  // docs/references.md "Integrators": observed order log2(e(h) / e(h/2)) = 4 +- 0.2.
   const double T = 10.0;
   const double e1 = Rk4OscillatorError(0.02, T);
   const double e2 = Rk4OscillatorError(0.01, T);

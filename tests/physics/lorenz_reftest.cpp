@@ -1,6 +1,6 @@
 // Reference test: our integrators on Lorenz-63 (s = 10, r = 28, b = 8/3;
-// Sprott 2003, REFERENCES.md) against SciPy's solve_ivp with method DOP853
-// at rtol = atol = 1e-12 (REFERENCES.md "Integrators"), computed by
+// Sprott 2003, docs/references.md "Systems") against SciPy's solve_ivp with method DOP853
+// at rtol = atol = 1e-12 (docs/references.md "Integrators"), computed by
 // tests/reference/lorenz_scipy.py under LYAPCAST_PYTHON (Debian's
 // python3-scipy). The right-hand side is compiled from expressions by
 // Dynamics, so the whole path from config text to trajectory is checked.

@@ -2,9 +2,9 @@
 """Reference trajectory of Lorenz-63 for tests/physics/lorenz_reftest.cpp.
 
 Integrates x' = s (y - x), y' = x (r - z) - y, z' = x y - b z with
-s = 10, r = 28, b = 8/3 (Sprott 2003; REFERENCES.md) from (1, 1, 1) using
+s = 10, r = 28, b = 8/3 (Sprott 2003; docs/references.md "Systems") from (1, 1, 1) using
 SciPy's solve_ivp with method DOP853 (Hairer's 8th-order Dormand-Prince),
-rtol = atol = 1e-12 (REFERENCES.md "Integrators"), and prints one line per
+rtol = atol = 1e-12 (docs/references.md "Integrators"), and prints one line per
 output time: "t x y z", each number as Python's repr (shortest round-trip
 decimal, so the C++ side reads back the exact binary64 values).
 

@@ -2,7 +2,7 @@
 // enough pairs, the first model is promoted, a warm start records its parent
 // and both validation errors, a worse candidate is rejected and the active
 // version stays, and lockstep jobs are deterministic to the byte.
-// Data: Lorenz-63 (REFERENCES.md constants) from the project's RK4.
+// Data: Lorenz-63 (constants of docs/references.md "Systems") from the project's RK4.
 #include "schedule/retrain_job.h"
 
 #include <gtest/gtest.h>

@@ -4,7 +4,7 @@
 // due job waits for the running one (logged); a rejected candidate is never
 // served; a restarted scheduler serves the stored active version and resumes
 // the cadence from the stored state; Stop() cancels a running job.
-// Data: Lorenz-63 (REFERENCES.md constants) from the project's RK4.
+// Data: Lorenz-63 (constants of docs/references.md "Systems") from the project's RK4.
 #include "schedule/scheduler.h"
 
 #include <gtest/gtest.h>

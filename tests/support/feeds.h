@@ -28,7 +28,7 @@ inline FeedConfig MakeFeed(std::string id, std::vector<std::string> channels,
   return f;
 }
 
-// Lorenz-63 with the parameters of REFERENCES.md (Sprott 2003: sigma = 10,
+// Lorenz-63 with the parameters of docs/references.md "Systems" (Sprott 2003: sigma = 10,
 // rho = 28, beta = 8/3), channels x, y, z; model time unit 1 s.
 inline constexpr double kLorenzSigma = 10.0, kLorenzRho = 28.0, kLorenzBeta = 8.0 / 3.0;
 

@@ -1,5 +1,5 @@
 // retrain_bench: what continual retraining costs and what it buys, on
-// Lorenz-63 (sigma 10, rho 28, beta 8/3; REFERENCES.md), time unit 1 s,
+// Lorenz-63 (sigma 10, rho 28, beta 8/3; docs/references.md "Systems"), time unit 1 s,
 // model step 10 ms, channels x, y, z, model 3-64-64-3 tanh (config default).
 //
 //   build/tools/bench/retrain_bench [--runs 3] [--seed 1] [--quick] [--verbose]
@@ -14,7 +14,7 @@
 //    cadence point (NextRetrain) warm-started from the active version.
 //    "One-time" is the first model, never retrained. Forecasts start every
 //    Lyapunov time; each is scored by its valid prediction time (VPT,
-//    REFERENCES.md "Forecast skill").
+//    docs/references.md "Forecast skill").
 // 3. The same continual procedure when only every 5th sample arrives (50 ms
 //    apart on the 10 ms model grid), with and without the velocity constraint:
 //    RunRetrain's gap-aware path throughout (the increment scale from 5-step
@@ -75,7 +75,7 @@ constexpr double kSigma = 10.0, kRho = 28.0, kBeta = 8.0 / 3.0;
 // the new regime can be learned from a few Lyapunov times of data. The step
 // is small enough that RunRetrain's normalization check does not refit.
 constexpr double kRhoAfter = 38.0;
-constexpr double kVptThreshold = 0.5;      // REFERENCES.md (Vlachas et al. 2020)
+constexpr double kVptThreshold = 0.5;      // docs/references.md "Forecast skill" (Vlachas et al. 2020)
 constexpr double kMaxForecastLyapunov = 10;  // forecasts are cut here (counted as "capped")
 constexpr int kSparseStride = 5;           // part 3: every 5th sample (50 ms apart)
 

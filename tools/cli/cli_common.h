@@ -27,7 +27,7 @@ struct LoadedFeed {
 // Loads `config_path` and finds `feed_id` (or the only feed when empty).
 [[nodiscard]] Result<LoadedFeed> LoadFeed(const std::filesystem::path& config_path, const std::string& feed_id);
 
-// Reads ingest-format lines (CSV or NDJSON, DESIGN.md "Sample line format")
+// Reads ingest-format lines (CSV or NDJSON, docs/protocol.md "Sample line format")
 // of one feed from a file ("-" = stdin), in time order. Blank lines and
 // lines starting with '#' are skipped; lines of other feeds are skipped and
 // counted; a bad line is an error naming the file and line.

@@ -17,7 +17,7 @@ void AddLyapunovCommand(CLI::App& app, int* exit_code);
 void AddScoreCommand(CLI::App& app, int* exit_code);
 // A consistent copy of the daemon's SQLite database, safe while it runs.
 void AddBackupCommand(CLI::App& app, int* exit_code);
-// Commands that talk to a running daemon (README "HTTP API", "Ingest protocol").
+// Commands that talk to a running daemon (docs/http-api.md, docs/protocol.md).
 void AddStatusCommand(CLI::App& app, int* exit_code);
 void AddModelsCommand(CLI::App& app, int* exit_code);
 void AddRetrainCommand(CLI::App& app, int* exit_code);

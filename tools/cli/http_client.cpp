@@ -1,4 +1,4 @@
-#include <utility>  // before Asio/Beast: Boost 1.74 needs std::exchange (PITFALLS.md)
+#include <utility>  // before Asio/Beast: Boost 1.74 needs std::exchange (DEVELOPERS.md "Pitfalls")
 
 #include "http_client.h"
 

@@ -1,7 +1,7 @@
 // HttpClient: a small synchronous HTTP/1.1 client for the daemon's API
-// (README "HTTP API"), with plain request/response values so the commands
+// (docs/http-api.md), with plain request/response values so the commands
 // compile without Boost.Beast (only http_client.cpp includes it; see
-// PITFALLS.md "Compile time").
+// DEVELOPERS.md "Pitfalls": compile time).
 //
 // Plain http:// only. One keep-alive connection per client, opened on first
 // use; a GET that fails on a reused connection (the daemon closed it while
