@@ -132,10 +132,10 @@ class Api {
   }
 
   HttpResponse Heartbeat() const {
-    const DataTime now = WallNowMicros();
+    const WallTime now = WallNow();
     return api::Json(200, json{{"alive", true},
                                {"version", c_.version},
-                               {"uptime_s", static_cast<double>(now - c_.started_wall) / 1e6},
+                               {"uptime_s", Seconds(now - c_.started_wall)},
                                {"storage_available", c_.writer->storage_available()}});
   }
 
@@ -153,9 +153,9 @@ class Api {
       window["newest"] = e.count ? TimeJson(e.newest) : json(nullptr);
       json entry = {{"id", f.id},
                     {"channels", std::move(channels)},
-                    {"step_s", static_cast<double>(f.step) / 1e6},
+                    {"step_s", Seconds(f.step)},
                     {"dynamics_known", f.dynamics.has_value()},
-                    {"retention_s", static_cast<double>(c_.config->storage.retention) / 1e6},
+                    {"retention_s", Seconds(c_.config->storage.retention)},
                     {"window", std::move(window)}};
       if (c_.scheduler != nullptr) AddRetraining(static_cast<std::uint32_t>(i), &entry);
       feeds.push_back(std::move(entry));
@@ -183,7 +183,7 @@ class Api {
     }
     (*entry)["model"] = std::move(m);
     const FeedSchedule s = c_.scheduler->schedule(feed);
-    json retraining = {{"next_due", s.next_due ? TimeJson(s.next_due) : json(nullptr)},
+    json retraining = {{"next_due", s.next_due != DataTime{} ? TimeJson(s.next_due) : json(nullptr)},
                        {"next_reason", s.next_reason},
                        {"last_retrain", s.last_retrain ? TimeJson(*s.last_retrain) : json(nullptr)},
                        {"running", s.running},

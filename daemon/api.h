@@ -34,7 +34,7 @@ struct ApiContext {
   ApiStore* store = nullptr;              // required for models and samples
   std::optional<std::string> read_token;
   std::optional<std::string> admin_token;
-  DataTime started_wall = 0;              // wall time at start, µs
+  WallTime started_wall{};              // when the daemon started
   std::string version;
 };
 

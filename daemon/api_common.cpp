@@ -37,8 +37,9 @@ HttpResponse FromStatus(const Status& status) {
 json TimeJson(DataTime t) { return json{{"epoch_s", ToEpochSeconds(t)}, {"rfc3339", FormatRfc3339(t)}}; }
 
 std::string EpochText(DataTime t) {
-  const bool negative = t < 0;
-  const std::uint64_t a = negative ? static_cast<std::uint64_t>(-(t + 1)) + 1 : static_cast<std::uint64_t>(t);
+  const std::int64_t us = EpochMicros(t);
+  const bool negative = us < 0;
+  const std::uint64_t a = negative ? static_cast<std::uint64_t>(-(us + 1)) + 1 : static_cast<std::uint64_t>(us);
   return fmt::format("{}{}.{:06}", negative ? "-" : "", a / 1'000'000, a % 1'000'000);
 }
 
@@ -88,7 +89,7 @@ Result<std::optional<Micros>> DurationParam(const HttpRequest& req, const std::s
   const std::string* text = Find(req, name);
   if (text == nullptr) return std::optional<Micros>{};
   auto d = ParseDuration(*text);
-  if (!d.ok() || *d <= 0) {
+  if (!d.ok() || *d <= Micros{}) {
     return Status::Invalid(fmt::format("{}: expected a positive duration such as 30s, 5m or 250ms, got '{}'", name,
                                        *text));
   }

@@ -8,7 +8,7 @@
 
 namespace lyapcast::api {
 
-FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now) {
+FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
   FeedView v;
   v.index = feed;
   v.config = &c.config->feeds[feed];
@@ -22,10 +22,10 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now) {
     const double lambda = v.exponent->lambda_max;
     if (v.drift.since_training_s) v.since_training_lyapunov_times = *v.drift.since_training_s * lambda;
     const RetrainConfig& rc = v.config->retrain;
-    const Micros interval = std::max(NextRetrain(rc, v.schedule.estimates, v.model != nullptr, 0).interval,
+    const Micros interval = std::max(NextRetrain(rc, v.schedule.estimates, v.model != nullptr, DataTime{}).interval,
                                      v.config->step);
-    cycle = RetrainCycle{static_cast<double>(interval) / 1e6 * lambda,
-                         static_cast<double>(rc.time_budget) / 1e6 * lambda};
+    cycle = RetrainCycle{Seconds(interval) * lambda,
+                         Seconds(rc.time_budget) * lambda};
   }
   v.model_age = ModelAgeInForce(v.config->health, cycle);
   HealthInputs in;
@@ -62,7 +62,7 @@ json JobJson(const Config& config, const JobInfo& j) {
           {"trigger", TriggerKindName(j.trigger)},
           {"trigger_reason", j.trigger_reason},
           {"state", JobStateName(j.state)},
-          {"until", j.until ? TimeJson(j.until) : json(nullptr)},
+          {"until", j.until != DataTime{} ? TimeJson(j.until) : json(nullptr)},
           {"parent", j.parent ? json(*j.parent) : json(nullptr)},
           {"verdict", j.verdict ? json(RetrainVerdictName(*j.verdict)) : json(nullptr)},
           {"version", j.version ? json(*j.version) : json(nullptr)},
@@ -81,8 +81,8 @@ json StalenessJson(const FeedView& v) {
 json ThresholdsJson(const HealthConfig& h, const ModelAgeThresholds& model_age) {
   return {{"drift_alert", h.drift_alert},
           {"drift_alarm", h.drift_alarm},
-          {"data_age_alert_s", static_cast<double>(h.data_age_alert) / 1e6},
-          {"data_age_alarm_s", static_cast<double>(h.data_age_alarm) / 1e6},
+          {"data_age_alert_s", Seconds(h.data_age_alert)},
+          {"data_age_alarm_s", Seconds(h.data_age_alarm)},
           {"model_age_alert_lyapunov", model_age.alert},
           {"model_age_alarm_lyapunov", model_age.alarm},
           {"model_age_alert_derived", model_age.alert_derived},
@@ -140,7 +140,7 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
                    {"data", ExponentJson(s.estimates.data, s.data_diagnostics)},
                    {"chosen", std::move(chosen)}};
   json cadence = {{"last_retrain", s.last_retrain ? TimeJson(*s.last_retrain) : json(nullptr)},
-                  {"next_due", s.next_due ? TimeJson(s.next_due) : json(nullptr)},
+                  {"next_due", s.next_due != DataTime{} ? TimeJson(s.next_due) : json(nullptr)},
                   {"reason", s.next_reason},
                   {"running", s.running},
                   {"pending", s.pending}};

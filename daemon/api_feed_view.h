@@ -28,7 +28,7 @@ struct FeedView {
   HealthResult health;
 };
 
-FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, DataTime wall_now);
+FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now);
 
 json ModelJson(const ModelRecord& r);    // without the file
 json JobJson(const Config& config, const JobInfo& j);

@@ -64,7 +64,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   if (!from.ok()) return FromStatus(from.status());
   std::int64_t steps = steps_param->value_or(kDefaultSteps);
   if (*horizon_param) {
-    steps = (**horizon_param + fc.step - 1) / fc.step;
+    steps = (**horizon_param + fc.step - Micros(1)) / fc.step;
     if (steps > kMaxSteps) {
       return BadParameter("horizon", fmt::format("{} is {} steps of {}; at most {} steps", FormatDuration(**horizon_param),
                                                  steps, FormatDuration(fc.step), kMaxSteps));
@@ -75,7 +75,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   if (!active) {
     const FeedSchedule s = c.scheduler->schedule(feed);
     return Error(409, "no-model", fmt::format("feed {} has no model yet{}", fc.id,
-                                              s.next_due ? "; the first retrain is due at " + FormatRfc3339(s.next_due)
+                                              s.next_due != DataTime{} ? "; the first retrain is due at " + FormatRfc3339(s.next_due)
                                                          : "; it needs data first"));
   }
 
@@ -102,7 +102,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     start = *found;
   }
 
-  const FeedView view = ViewFeed(c, feed, WallNowMicros());
+  const FeedView view = ViewFeed(c, feed, WallNow());
   const Trajectory run = FreeRun(active->model, *start, fc.step, steps);
 
   // Predictability horizon from the exponent the cadence paces by and the
@@ -117,7 +117,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     horizon_s = PredictabilityHorizon(view.exponent->lambda_max, e0, fc.monitor.horizon_tol, &why);
   }
   const auto beyond = [&](DataTime t) {
-    return horizon_s && static_cast<double>(t - start->t) / 1e6 > *horizon_s;
+    return horizon_s && Seconds(t - start->t) > *horizon_s;
   };
 
   if (*csv) {
@@ -153,7 +153,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   HttpResponse r = Json(200, json{{"feed", fc.id},
                                   {"model_version", active->record.version},
                                   {"channels", fc.channels},
-                                  {"step_s", static_cast<double>(fc.step) / 1e6},
+                                  {"step_s", Seconds(fc.step)},
                                   {"from", TimeJson(start->t)},
                                   {"start", std::move(start_values)},
                                   {"lyapunov", std::move(lyapunov)},

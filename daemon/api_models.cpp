@@ -24,7 +24,7 @@ std::optional<std::int64_t> ParsePositive(const std::string& text) {
 }  // namespace
 
 HttpResponse Status(const ApiContext& c, std::uint32_t feed) {
-  return Json(200, StatusJson(c, ViewFeed(c, feed, WallNowMicros())));
+  return Json(200, StatusJson(c, ViewFeed(c, feed, WallNow())));
 }
 
 HttpResponse Models(const ApiContext& c, std::uint32_t feed, const HttpRequest& req) {

@@ -37,8 +37,8 @@ HttpResponse Samples(const ApiContext& c, std::uint32_t feed, const HttpRequest&
   if (!limit.ok()) return FromStatus(limit.status());
   const auto csv = WantsCsv(req);
   if (!csv.ok()) return FromStatus(csv.status());
-  const DataTime lo = from->value_or(std::numeric_limits<DataTime>::min() / 2);
-  const DataTime hi = to->value_or(std::numeric_limits<DataTime>::max() / 2);
+  const DataTime lo = from->value_or(DataTime(Micros::min() / 2));
+  const DataTime hi = to->value_or(DataTime(Micros::max() / 2));
   if (hi <= lo) return BadParameter("to", "must be later than from");
   auto page = c.store->ReadSamples(feed, lo, hi, static_cast<int>(limit->value_or(1000)));
   if (!page.ok()) return FromStatus(page.status());

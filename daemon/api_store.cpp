@@ -49,7 +49,7 @@ Result<ApiStore::Page> ApiStore::ReadSamples(std::uint32_t feed, DataTime from, 
 Result<std::optional<Sample>> ApiStore::CompleteSampleAt(std::uint32_t feed, DataTime at, Micros lookback) {
   std::lock_guard lock(mu_);
   std::optional<Sample> found;
-  Status s = reader_->ReadRange(feed, at - lookback, at + 1, 1024, [&](std::span<const Sample> slice) {
+  Status s = reader_->ReadRange(feed, at - lookback, at + Micros(1), 1024, [&](std::span<const Sample> slice) {
     for (const Sample& sample : slice) {
       if (sample.complete()) found = sample;
     }

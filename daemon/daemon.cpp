@@ -203,7 +203,7 @@ int RunDaemon(const DaemonOptions& options) {
   HttpServerOptions hopts;
   hopts.endpoint = config.listen.http;
   ApiContext api{&config,    &writer,     &ingest,     &scheduler,      &monitors,
-                 api_store->get(), read_token, admin_token, WallNowMicros(), kVersion};
+                 api_store->get(), read_token, admin_token, WallNow(), kVersion};
   HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
 
   if (Status s = ingest.Listen(); !s.ok()) {

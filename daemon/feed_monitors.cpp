@@ -66,12 +66,12 @@ void FeedMonitors::SyncModel(Feed& f) {
   const bool successor = active && f.model && active->record.parent == f.model->record.version;
   f.model = active;
   if (!active) {
-    (void)f.monitor.SetModel(nullptr, 0, std::numeric_limits<double>::quiet_NaN(), 0, 0);
+    (void)f.monitor.SetModel(nullptr, 0, std::numeric_limits<double>::quiet_NaN(), DataTime{}, WallTime{});
     return;
   }
   const ModelRecord& r = active->record;
-  auto created = ParseRfc3339(r.created_at);
-  const DataTime promoted_wall = created.ok() ? *created : WallNowMicros();
+  auto created = ParseWallRfc3339(r.created_at);
+  const WallTime promoted_wall = created.ok() ? *created : WallNow();
   Status s = f.monitor.SetModel(std::shared_ptr<const FlowMap<float>>(active, &active->model), r.version,
                                 ValidationRms(r), r.trained_to, promoted_wall,
                                 successor ? DriftMonitor::Handover::kSuccessor : DriftMonitor::Handover::kFresh);
@@ -80,7 +80,7 @@ void FeedMonitors::SyncModel(Feed& f) {
 }
 
 void FeedMonitors::OnCommitted(const CommittedBatch& batch) {
-  const DataTime arrived = WallNowMicros();
+  const WallTime arrived = WallNow();
   for (const FeedSample& fs : batch.samples) {
     if (fs.feed >= feeds_.size()) continue;
     scheduler_.OnSample(fs.feed, fs.sample.t);  // in lockstep: a due retrain runs first
@@ -110,14 +110,14 @@ void FeedMonitors::OnCommitted(const CommittedBatch& batch) {
       const std::string reason = fmt::format("change test alarm at {} (one-step error {:.3g})",
                                              FormatRfc3339(fs.sample.t), seen.error);
       spdlog::warn("feed {}: drift: {}; retraining", f.config->id, reason);
-      auto job = scheduler_.Trigger(fs.feed, TriggerKind::kDrift, reason, fs.sample.t + 1);
+      auto job = scheduler_.Trigger(fs.feed, TriggerKind::kDrift, reason, fs.sample.t + Micros(1));
       if (!job.ok()) spdlog::warn("feed {}: drift retrain not queued: {}", f.config->id, job.status().message());
       scheduler_.WaitIfLockstep();
     }
   }
 }
 
-DriftSnapshot FeedMonitors::Snapshot(std::uint32_t feed, DataTime wall_now) const {
+DriftSnapshot FeedMonitors::Snapshot(std::uint32_t feed, WallTime wall_now) const {
   if (feed >= feeds_.size()) return {};
   std::lock_guard lock(feeds_[feed]->mu);
   return feeds_[feed]->monitor.Snapshot(wall_now);

@@ -30,7 +30,7 @@ class FeedMonitors {
   // The writer's subscriber: scheduler cadence, then scoring, per sample.
   void OnCommitted(const CommittedBatch& batch);
 
-  DriftSnapshot Snapshot(std::uint32_t feed, DataTime wall_now) const;
+  DriftSnapshot Snapshot(std::uint32_t feed, WallTime wall_now) const;
   double e0(std::uint32_t feed) const;  // NaN when unknown
   std::optional<Sample> NewestComplete(std::uint32_t feed) const;
   void SetPaused(std::uint32_t feed, bool paused);

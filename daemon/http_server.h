@@ -25,9 +25,9 @@ struct HttpServerOptions {
   std::uint32_t max_body = 64 * 1024;      // bytes
   std::uint32_t max_header = 16 * 1024;    // bytes of the request line + headers
   std::uint32_t max_header_fields = 100;   // header fields per request
-  Micros read_timeout = 30 * kMicrosPerSecond;   // per request, headers and body
-  Micros write_timeout = 30 * kMicrosPerSecond;
-  Micros keep_alive = 60 * kMicrosPerSecond;     // idle time between requests
+  Micros read_timeout = 30 * kSecond;   // per request, headers and body
+  Micros write_timeout = 30 * kSecond;
+  Micros keep_alive = 60 * kSecond;     // idle time between requests
   int max_connections = 512;
 };
 

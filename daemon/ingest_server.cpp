@@ -210,7 +210,7 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
     }
     const std::uint64_t line_no = ++line_no_;
     server_->counters.lines.fetch_add(1, std::memory_order_relaxed);
-    if (wall_now_ == 0) wall_now_ = WallNowMicros();
+    if (wall_now_ == WallTime{}) wall_now_ = WallNow();
     ParsedLine parsed = parser_.Parse(line, wall_now_);
     switch (parsed.kind) {
       case ParsedLine::Kind::kAuth:
@@ -257,7 +257,7 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
   }
 
   void SubmitBatch() {
-    wall_now_ = 0;
+    wall_now_ = WallTime{};
     if (batch_.empty()) {
       Flush();
       return;
@@ -383,7 +383,7 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
   bool skipping_ = false;
   std::uint64_t line_no_ = 0;
   std::uint64_t accepted_count_ = 0;
-  DataTime wall_now_ = 0;
+  WallTime wall_now_{};
   std::vector<FeedSample> batch_;
   std::deque<ReplySlot> slots_;
   std::size_t outstanding_ = 0;

@@ -36,12 +36,12 @@ struct IngestServerOptions {
   Endpoint endpoint;
   std::size_t max_line = 64 * 1024;
   int max_connections = 256;
-  Micros idle_timeout = 5 * 60 * kMicrosPerSecond;
-  Micros max_future_skew = 10 * kMicrosPerSecond;
+  Micros idle_timeout = 5 * 60 * kSecond;
+  Micros max_future_skew = 10 * kSecond;
   std::optional<std::string> token;        // required `auth <token>` first line when set
   std::size_t max_outstanding = 16384;     // samples per connection awaiting commit
   std::size_t max_pending_output = 1 << 20;  // reply bytes per connection not yet sent
-  Micros shutdown_grace = 10 * kMicrosPerSecond;  // then remaining sessions are closed
+  Micros shutdown_grace = 10 * kSecond;  // then remaining sessions are closed
 };
 
 // Totals since start, readable from any thread.

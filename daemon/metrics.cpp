@@ -48,7 +48,7 @@ std::string FeedLabel(const FeedConfig& f) { return fmt::format("feed=\"{}\"", L
 }  // namespace
 
 HttpResponse Health(const ApiContext& c) {
-  const DataTime now = WallNowMicros();
+  const WallTime now = WallNow();
   Verdict overall = Verdict::kNormal;
   json feeds = json::array();
   for (std::uint32_t i = 0; i < c.config->feeds.size(); ++i) {
@@ -63,12 +63,12 @@ HttpResponse Health(const ApiContext& c) {
 }
 
 HttpResponse Metrics(const ApiContext& c) {
-  const DataTime now = WallNowMicros();
+  const WallTime now = WallNow();
   Exposition m;
   m.Family("lyapcast_build_info", "gauge", "The running lyapcastd version.");
   m.Sample("lyapcast_build_info", fmt::format("version=\"{}\"", Label(c.version)), 1);
   m.Family("lyapcast_uptime_seconds", "gauge", "Wall time since the daemon started.");
-  m.Sample("lyapcast_uptime_seconds", "", static_cast<double>(now - c.started_wall) / 1e6);
+  m.Sample("lyapcast_uptime_seconds", "", Seconds(now - c.started_wall));
 
   if (c.ingest != nullptr) {
     const IngestCounters& k = c.ingest->counters();

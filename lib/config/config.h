@@ -42,15 +42,15 @@ struct ListenConfig {
 struct LimitsConfig {
   std::uint64_t max_line = 64 * 1024;           // bytes per ingest line, excluding the newline
   int max_connections = 256;                    // concurrent ingest connections
-  Micros idle_timeout = 5 * 60 * kMicrosPerSecond;  // close ingest connections silent this long
-  Micros commit_every = 5'000;                  // group commit after this long ...
+  Micros idle_timeout = 5 * 60 * kSecond;  // close ingest connections silent this long
+  Micros commit_every{5'000};                  // group commit after this long ...
   int commit_batch = 4096;                      // ... or this many samples, whichever first
-  Micros max_future_skew = 10 * kMicrosPerSecond;  // samples newer than wall time + this: future-time
+  Micros max_future_skew = 10 * kSecond;  // samples newer than wall time + this: future-time
 };
 
 struct StorageConfig {
   std::filesystem::path path = "var/lyapcast.db";  // resolved against the config folder
-  Micros retention = 6 * 3600 * kMicrosPerSecond;  // data time kept per feed
+  Micros retention = 6 * 3600 * kSecond;  // data time kept per feed
   int keep_models = 200;                           // retired/rejected versions kept per feed
 };
 
@@ -80,7 +80,7 @@ struct ConstraintConfig {
 };
 
 struct DynamicsConfig {
-  Micros time_unit = kMicrosPerSecond;  // one unit of model time in data time
+  Micros time_unit = kSecond;  // one unit of model time in data time
   // One expression per channel, in the feed's channel order: (channel, expr).
   std::vector<std::pair<std::string, std::string>> equations;
   std::vector<std::pair<std::string, double>> constants;  // in file order
@@ -99,8 +99,8 @@ struct ModelConfig {
 
 struct RetrainConfig {
   double lyapunov_fraction = 0.5;  // retrain after this many Lyapunov times of new data
-  Micros min_interval = 30 * kMicrosPerSecond;
-  Micros max_interval = 3600 * kMicrosPerSecond;
+  Micros min_interval = 30 * kSecond;
+  Micros max_interval = 3600 * kSecond;
   int min_pairs = 500;       // cold start once the window holds this many pairs
   double replay = 0.3;       // fraction of older window data mixed into a chunk
   double validation = 0.2;   // newest fraction held out for validation
@@ -109,7 +109,7 @@ struct RetrainConfig {
   double learning_rate = 1e-3;
   double weight_decay = 0.0;
   double clip = 1.0;         // global gradient-norm clip
-  Micros time_budget = 60 * kMicrosPerSecond;  // wall time per retrain (ignored in lockstep)
+  Micros time_budget = 60 * kSecond;  // wall time per retrain (ignored in lockstep)
   double promote_tolerance = 0.05;
 };
 
@@ -123,8 +123,8 @@ struct MonitorConfig {
 struct HealthConfig {
   double drift_alert = 2.0;
   double drift_alarm = 5.0;
-  Micros data_age_alert = 30 * kMicrosPerSecond;
-  Micros data_age_alarm = 5 * 60 * kMicrosPerSecond;
+  Micros data_age_alert = 30 * kSecond;
+  Micros data_age_alarm = 5 * 60 * kSecond;
   // Unset: derived from the retrain cadence (ModelAgeInForce in monitor/health.h).
   std::optional<double> model_age_alert_lyapunov;
   std::optional<double> model_age_alarm_lyapunov;
@@ -134,7 +134,7 @@ struct FeedConfig {
   std::string id;                     // [a-z0-9][a-z0-9_-]{0,63}; required
   std::vector<std::string> channels;  // [A-Za-z_][A-Za-z0-9_]{0,63}, not "t"; 1..64; required
   std::vector<std::string> units;     // empty, or one per channel
-  Micros step = kMicrosPerSecond;     // model step dt in data time; > 0
+  Micros step = kSecond;     // model step dt in data time; > 0
   std::optional<DynamicsConfig> dynamics;
   ModelConfig model;
   RetrainConfig retrain;

@@ -127,7 +127,7 @@ Scenario ParseOrThrow(std::string_view yaml, const Source& src) {
 
 double ParameterChange::ValueAt(Micros offset) const {
   if (offset >= t2) return to;
-  return from + (to - from) * static_cast<double>(offset - t1) / static_cast<double>(t2 - t1);
+  return from + (to - from) * Seconds(offset - t1) / Seconds(t2 - t1);
 }
 
 Result<ParameterChange> ParseParameterChange(std::string_view text_view) {

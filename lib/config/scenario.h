@@ -49,7 +49,7 @@ namespace lyapcast {
 struct ParameterChange {
   std::string name;
   double from = 0, to = 0;
-  Micros t1 = 0, t2 = 0;
+  Micros t1{}, t2{};
 
   // The constant's value at `offset` >= t1.
   double ValueAt(Micros offset) const;
@@ -68,7 +68,7 @@ struct ParameterChange {
 struct ScenarioFeed {
   std::string feed;                      // feed id (the config's grammar); required
   std::uint64_t seed = 1;                // noise, gaps and missing channels
-  Micros transient = 0;                  // >= 0: integrated before the first sample
+  Micros transient{};                  // >= 0: integrated before the first sample
   std::vector<double> from;              // initial state; empty = 1 for every channel
   std::optional<Micros> step;            // > 0; unset = the feed's step
   std::vector<double> noise;             // each >= 0; empty = none, one = every channel, else one per channel

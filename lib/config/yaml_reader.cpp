@@ -167,7 +167,7 @@ bool Value::Bool() const {
 Micros Value::Duration(DurationRule rule) const {
   const std::string allowed = rule.Describe();
   const Result<Micros> d = ParseDuration(Text(allowed));
-  if (!d.ok() || *d < 0 || (*d == 0 && !rule.allow_zero)) FailMustBe(allowed);
+  if (!d.ok() || *d < Micros{} || (*d == Micros{} && !rule.allow_zero)) FailMustBe(allowed);
   if (*d > kMaxConfigDuration) {
     Fail(fmt::format("must be at most {}; got {}", FormatDuration(kMaxConfigDuration), DescribeNode(node_)));
   }

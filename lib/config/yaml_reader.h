@@ -92,7 +92,7 @@ struct DurationRule {
   static DurationRule Positive() { return {false}; }
   static DurationRule NonNegative() { return {true}; }
 };
-inline constexpr Micros kMaxConfigDuration = 3650LL * 86400 * kMicrosPerSecond;
+inline constexpr Micros kMaxConfigDuration = 3650LL * 86400 * kSecond;
 
 class MapReader;
 

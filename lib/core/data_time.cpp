@@ -56,8 +56,9 @@ bool Digits(std::string_view text, size_t pos, size_t n, unsigned& out) {
   return true;
 }
 
-constexpr DataTime kMinTime = DaysFromCivil(1, 1, 1) * 86400LL * kMicrosPerSecond;
-constexpr DataTime kMaxTime = (DaysFromCivil(10000, 1, 1) * 86400LL) * kMicrosPerSecond - 1;
+constexpr std::int64_t kUsPerSecond = 1'000'000;
+constexpr std::int64_t kMinTime = DaysFromCivil(1, 1, 1) * 86400LL * kUsPerSecond;
+constexpr std::int64_t kMaxTime = (DaysFromCivil(10000, 1, 1) * 86400LL) * kUsPerSecond - 1;
 
 Status BadTime(std::string_view text, const char* why) {
   return Status::Invalid("'" + std::string(text.substr(0, 64)) + "' is not an RFC 3339 time (" + why +
@@ -72,8 +73,10 @@ Result<DataTime> DataTimeFromEpochSeconds(double seconds) {
   if (us < static_cast<double>(kMinTime) || us > static_cast<double>(kMaxTime)) {
     return Status::Invalid("time is outside years 0001..9999");
   }
-  return static_cast<DataTime>(us);
+  return DataTimeFromMicros(static_cast<std::int64_t>(us));
 }
+
+Micros MicrosFromSeconds(double seconds) { return Micros(static_cast<std::int64_t>(std::llround(seconds * 1e6))); }
 
 Result<DataTime> ParseRfc3339(std::string_view text) {
   unsigned year, month, day, hour, minute, second;
@@ -128,16 +131,25 @@ Result<DataTime> ParseRfc3339(std::string_view text) {
   }
   if (pos != text.size()) return BadTime(text, "unexpected characters after the offset");
   const std::int64_t secs = DaysFromCivil(year, month, day) * 86400 + hour * 3600 + minute * 60 + second - offset_s;
-  const DataTime t = secs * kMicrosPerSecond + frac_us;
+  const std::int64_t t = secs * kUsPerSecond + frac_us;
   if (t < kMinTime || t > kMaxTime) return BadTime(text, "outside years 0001..9999");
-  return t;
+  return DataTimeFromMicros(t);
 }
 
-std::string FormatRfc3339(DataTime t) {
-  std::int64_t secs = t / kMicrosPerSecond;
-  std::int64_t us = t % kMicrosPerSecond;
+Result<WallTime> ParseWallRfc3339(std::string_view text) {
+  auto t = ParseRfc3339(text);
+  if (!t.ok()) return t.status();
+  return WallTimeAtData(*t);
+}
+
+std::string FormatRfc3339(WallTime t) { return FormatRfc3339(DataTimeAtWall(t)); }
+
+std::string FormatRfc3339(DataTime time) {
+  const std::int64_t t = EpochMicros(time);
+  std::int64_t secs = t / kUsPerSecond;
+  std::int64_t us = t % kUsPerSecond;
   if (us < 0) {
-    us += kMicrosPerSecond;
+    us += kUsPerSecond;
     secs -= 1;
   }
   std::int64_t days = secs / 86400;
@@ -174,10 +186,11 @@ Result<Micros> ParseDuration(std::string_view text) {
   else return bad();
   const double us = std::nearbyint(value * scale);
   if (std::fabs(us) > 9.2e18) return bad();
-  return static_cast<Micros>(us);
+  return Micros(static_cast<std::int64_t>(us));
 }
 
-std::string FormatDuration(Micros d) {
+std::string FormatDuration(Micros span) {
+  const std::int64_t d = span.count();
   const auto fmt = [](double v, const char* unit) {
     char buf[48];
     std::snprintf(buf, sizeof buf, "%g%s", v, unit);
@@ -185,10 +198,10 @@ std::string FormatDuration(Micros d) {
   };
   const std::int64_t a = d < 0 ? -d : d;
   if (a == 0) return "0s";
-  if (a % (86400 * kMicrosPerSecond) == 0) return fmt(static_cast<double>(d) / 86400e6, "d");
-  if (a % (3600 * kMicrosPerSecond) == 0) return fmt(static_cast<double>(d) / 3600e6, "h");
-  if (a % (60 * kMicrosPerSecond) == 0) return fmt(static_cast<double>(d) / 60e6, "m");
-  if (a >= kMicrosPerSecond) return fmt(static_cast<double>(d) / 1e6, "s");
+  if (a % (86400 * kUsPerSecond) == 0) return fmt(static_cast<double>(d) / 86400e6, "d");
+  if (a % (3600 * kUsPerSecond) == 0) return fmt(static_cast<double>(d) / 3600e6, "h");
+  if (a % (60 * kUsPerSecond) == 0) return fmt(static_cast<double>(d) / 60e6, "m");
+  if (a >= kUsPerSecond) return fmt(static_cast<double>(d) / 1e6, "s");
   if (a % 1000 == 0) return fmt(static_cast<double>(d) / 1e3, "ms");
   return fmt(static_cast<double>(d), "us");
 }

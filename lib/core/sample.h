@@ -12,7 +12,7 @@ namespace lyapcast {
 inline constexpr int kMaxChannels = 64;
 
 struct Sample {
-  DataTime t = 0;
+  DataTime t{};
   // One value per channel of the feed, in the feed's channel order. A
   // missing channel's value is NaN and its bit in missing_mask is set.
   std::vector<double> values;

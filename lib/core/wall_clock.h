@@ -1,5 +1,6 @@
-// Wall time: the machine's real-time clock, used only for data age, process
-// health and the future-skew check, never for cadence (docs/design.md "Time").
+// Wall time: the machine's real-time clock, used only for data age, model
+// age, process uptime and the future-skew check, never for cadence
+// (docs/design.md "Time").
 #pragma once
 
 #include <chrono>
@@ -8,10 +9,10 @@
 
 namespace lyapcast {
 
-// Microseconds since the Unix epoch by the system clock.
-inline DataTime WallNowMicros() {
-  return std::chrono::duration_cast<std::chrono::microseconds>(std::chrono::system_clock::now().time_since_epoch())
-      .count();
+// Now by the system clock.
+inline WallTime WallNow() {
+  return WallTimeFromMicros(
+      std::chrono::duration_cast<Micros>(std::chrono::system_clock::now().time_since_epoch()).count());
 }
 
 }  // namespace lyapcast

@@ -339,23 +339,26 @@ namespace {
 // Everything after the feed and time are known, shared by CSV and JSON.
 struct Pending {
   std::uint32_t feed = 0;
-  DataTime t = 0;
+  DataTime t{};
   std::string_view t_text;
 };
 
-bool CheckFuture(const Pending& p, DataTime wall_now, Micros skew, std::string& message) {
+bool CheckFuture(const Pending& p, WallTime wall_now, Micros skew, std::string& message) {
+  // The one place a data timestamp meets the machine's clock: a sample may
+  // not claim to come from the future (beyond the allowed skew).
+  const DataTime now = DataTimeAtWall(wall_now);
   // Compare differences, not sums, so an extreme wall_now cannot overflow.
-  if (p.t <= wall_now || p.t - wall_now <= skew) return true;
-  const Micros ahead = p.t - wall_now;
-  const Micros ahead_ms = (ahead + 500) / 1000 * 1000;
+  if (p.t <= now || p.t - now <= skew) return true;
+  const Micros ahead = p.t - now;
+  const Micros ahead_ms = std::chrono::round<std::chrono::milliseconds>(ahead);
   message = fmt::format("t {} ({}) is {} ahead of this server's clock (allowed skew {})", Sanitize(p.t_text, 40),
-                        FormatRfc3339(p.t), FormatDuration(ahead_ms > 0 ? ahead_ms : ahead), FormatDuration(skew));
+                        FormatRfc3339(p.t), FormatDuration(ahead_ms > Micros{} ? ahead_ms : ahead), FormatDuration(skew));
   return false;
 }
 
 }  // namespace
 
-ParsedLine LineParser::Parse(std::string_view line, DataTime wall_now) {
+ParsedLine LineParser::Parse(std::string_view line, WallTime wall_now) {
   if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
   std::string message;
   if (!CheckEncoding(line, message)) return Reject(RejectReason::kBadEncoding, std::move(message));
@@ -398,7 +401,7 @@ std::string_view Unquote(std::string_view s) {
 
 }  // namespace
 
-ParsedLine LineParser::ParseCsv(std::string_view line, DataTime wall_now) {
+ParsedLine LineParser::ParseCsv(std::string_view line, WallTime wall_now) {
   JsonScratch& s = *json_;
   const size_t comma = line.find(',');
   const std::string_view feed_text = Unquote(Trim(line.substr(0, comma)));
@@ -545,7 +548,7 @@ simdjson::error_code ValidateValue(od::value v, int depth = 0) {
 
 }  // namespace
 
-ParsedLine LineParser::ParseJson(std::string_view line, DataTime wall_now) {
+ParsedLine LineParser::ParseJson(std::string_view line, WallTime wall_now) {
   JsonScratch& s = *json_;
   s.Load(line);
   const char* const base = s.buf.get();

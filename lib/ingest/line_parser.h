@@ -43,13 +43,13 @@ class LineParser {
   LineParser(const Config& config, Micros max_future_skew);
   ~LineParser();
 
-  // `line` excludes the newline. `wall_now` is wall time (µs since epoch).
-  ParsedLine Parse(std::string_view line, DataTime wall_now);
+  // `line` excludes the newline. `wall_now`: the machine clock, for the future-time check.
+  ParsedLine Parse(std::string_view line, WallTime wall_now);
 
  private:
   struct JsonScratch;
-  ParsedLine ParseCsv(std::string_view line, DataTime wall_now);
-  ParsedLine ParseJson(std::string_view line, DataTime wall_now);
+  ParsedLine ParseCsv(std::string_view line, WallTime wall_now);
+  ParsedLine ParseJson(std::string_view line, WallTime wall_now);
 
   const Config& config_;
   const Micros max_future_skew_;

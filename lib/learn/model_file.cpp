@@ -250,9 +250,9 @@ Status CheckContents(const ModelFileContents& contents) {
     if (!IsValidChannelName(name)) return Status::Invalid(fmt::format("invalid channel name '{}'", name));
     if (!names.insert(name).second) return Status::Invalid(fmt::format("channel name '{}' repeats", name));
   }
-  if (contents.step_micros <= 0 || contents.time_unit_micros <= 0) {
-    return Status::Invalid(fmt::format("step ({} us) and time unit ({} us) must be > 0", contents.step_micros,
-                                       contents.time_unit_micros));
+  if (contents.step_micros <= Micros{} || contents.time_unit_micros <= Micros{}) {
+    return Status::Invalid(fmt::format("step ({} us) and time unit ({} us) must be > 0", contents.step_micros.count(),
+                                       contents.time_unit_micros.count()));
   }
   std::set<std::string_view> keys;
   for (const auto& [key, value] : contents.metadata) {
@@ -285,8 +285,8 @@ Result<std::string> Serialize(const ModelFileContents& contents) {
   PutU32(&out, kModelFileHeaderLength);
   PutU64(&out, 0);  // body length, patched below
   std::visit([&](const auto& map) { PutModel(&out, map, contents.channels); }, contents.model);
-  PutU64(&out, static_cast<std::uint64_t>(contents.step_micros));
-  PutU64(&out, static_cast<std::uint64_t>(contents.time_unit_micros));
+  PutU64(&out, static_cast<std::uint64_t>(contents.step_micros.count()));
+  PutU64(&out, static_cast<std::uint64_t>(contents.time_unit_micros.count()));
   std::visit([&](const auto& map) { PutValuesOf(&out, map); }, contents.model);
   PutU32(&out, static_cast<std::uint32_t>(contents.metadata.size()));
   for (const auto& [key, value] : contents.metadata) {
@@ -348,12 +348,12 @@ Result<ModelFileContents> Deserialize(std::string_view bytes) {
   Architecture arch;
   if (Status st = ReadArchitecture(&r, &arch); !st.ok()) return st;
   ModelFileContents contents;
-  contents.step_micros = static_cast<Micros>(r.U64("data step"));
-  contents.time_unit_micros = static_cast<Micros>(r.U64("time unit"));
+  contents.step_micros = Micros(static_cast<std::int64_t>(r.U64("data step")));
+  contents.time_unit_micros = Micros(static_cast<std::int64_t>(r.U64("time unit")));
   if (!r.ok()) return r.error();
-  if (contents.step_micros <= 0 || contents.time_unit_micros <= 0) {
+  if (contents.step_micros <= Micros{} || contents.time_unit_micros <= Micros{}) {
     return Status::Corruption(fmt::format("data step ({} us) and time unit ({} us) must be > 0",
-                                          contents.step_micros, contents.time_unit_micros));
+                                          contents.step_micros.count(), contents.time_unit_micros.count()));
   }
   Status st;
   if (arch.scalar_bytes == 4) {

@@ -58,8 +58,8 @@ inline constexpr std::uint64_t kMaxModelFileBytes = std::uint64_t{1} << 30;  // 
 
 struct ModelFileContents {
   std::vector<std::string> channels;  // one valid, unique name per model channel, in model order
-  Micros step_micros = 0;             // the feed's data step (> 0)
-  Micros time_unit_micros = kMicrosPerSecond;  // one unit of model time in data time (> 0)
+  Micros step_micros{};             // the feed's data step (> 0)
+  Micros time_unit_micros = kSecond;  // one unit of model time in data time (> 0)
   // Architecture (channels, hidden widths, activation), dt, m, s, S, mu and
   // weights; the alternative held is the stored scalar type.
   std::variant<FlowMap<float>, FlowMap<double>> model;

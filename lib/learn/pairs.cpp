@@ -10,8 +10,8 @@ GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const G
   GridSeries g;
   g.channels = channels;
   g.step = options.step;
-  if (samples.empty() || options.step <= 0 || channels <= 0) return g;
-  const Micros tolerance = options.tolerance > 0 ? options.tolerance : options.step / 4;
+  if (samples.empty() || options.step <= Micros{} || channels <= 0) return g;
+  const Micros tolerance = options.tolerance > Micros{} ? options.tolerance : options.step / 4;
   g.t0 = samples.front().t;
   const std::size_t n = static_cast<std::size_t>((samples.back().t - g.t0 + options.step / 2) / options.step) + 1;
   const std::size_t c = static_cast<std::size_t>(channels);
@@ -19,12 +19,12 @@ GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const G
   g.mask.assign(n, ~std::uint64_t{0});
   g.present.assign(n, 0);
   // Distance of the sample currently holding each grid point, to keep the nearest.
-  std::vector<Micros> held(n, std::numeric_limits<Micros>::max());
+  std::vector<Micros> held(n, Micros::max());
   for (const Sample& s : samples) {
     const Micros offset = s.t - g.t0;
     const auto i = static_cast<std::size_t>((offset + options.step / 2) / options.step);
     if (i >= n) continue;
-    const Micros distance = std::abs(offset - static_cast<Micros>(i) * options.step);
+    const Micros distance = std::chrono::abs(offset - static_cast<std::int64_t>(i) * options.step);
     if (distance > tolerance) {
       ++g.off_grid;
       continue;

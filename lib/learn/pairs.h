@@ -34,14 +34,14 @@
 namespace lyapcast {
 
 struct GridOptions {
-  Micros step = kMicrosPerSecond;  // dt in data time; > 0
-  Micros tolerance = 0;            // 0 means step / 4
+  Micros step = kSecond;  // dt in data time; > 0
+  Micros tolerance{};            // 0 means step / 4
 };
 
 // Samples on the grid t0 + i * step. Absent grid points have present[i] == 0.
 struct GridSeries {
-  DataTime t0 = 0;
-  Micros step = 0;
+  DataTime t0{};
+  Micros step{};
   int channels = 0;
   std::vector<double> values;        // size() * channels, row i = grid point i; NaN where missing
   std::vector<std::uint64_t> mask;   // missing-channel mask per grid point (all bits set if absent)
@@ -50,7 +50,7 @@ struct GridSeries {
   std::int64_t collisions = 0;       // samples that lost their grid point to a nearer one
 
   std::size_t size() const { return present.size(); }
-  DataTime time(std::size_t i) const { return t0 + static_cast<DataTime>(i) * step; }
+  DataTime time(std::size_t i) const { return t0 + static_cast<std::int64_t>(i) * step; }
   const double* row(std::size_t i) const { return values.data() + i * static_cast<std::size_t>(channels); }
   bool complete(std::size_t i) const { return present[i] && mask[i] == 0; }
 };

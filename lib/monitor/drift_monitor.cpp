@@ -20,7 +20,7 @@ ChangeTestOptions ChangeOptions(const MonitorConfig& m) {
   return o;
 }
 
-double Seconds(Micros d) { return static_cast<double>(d) / 1e6; }
+
 
 }  // namespace
 
@@ -31,7 +31,7 @@ DriftMonitor::DriftMonitor(const FeedConfig& feed)
       change_(change_options_) {}
 
 Status DriftMonitor::SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
-                              double validation_error, DataTime trained_to, DataTime promoted_wall,
+                              double validation_error, DataTime trained_to, WallTime promoted_wall,
                               Handover handover) {
   if (model != nullptr && (model->empty() || model->channels() != channels_)) {
     return Status::Invalid(fmt::format("model version {} has {} channels, the feed {}", version,
@@ -70,7 +70,7 @@ void DriftMonitor::ResetScores() {
 
 bool DriftMonitor::Consecutive(DataTime from, DataTime to) const {
   const Micros gap = to - from;
-  return std::abs(gap - step_) * 100 <= step_;
+  return std::chrono::abs(gap - step_) * 100 <= step_;
 }
 
 double DriftMonitor::Score(const Sample& s) {
@@ -90,7 +90,7 @@ double DriftMonitor::Score(const Sample& s) {
   return std::sqrt(sum / present);
 }
 
-DriftMonitor::Observation DriftMonitor::Observe(const Sample& s, DataTime arrived_wall) {
+DriftMonitor::Observation DriftMonitor::Observe(const Sample& s, WallTime arrived_wall) {
   Observation out;
   last_arrival_ = arrived_wall;
   const bool in_order = !newest_ || s.t > *newest_;
@@ -147,7 +147,7 @@ double DriftMonitor::e0() const {
   return scored_ >= kMinScored ? RmseWindow() : validation_error_;
 }
 
-DriftSnapshot DriftMonitor::Snapshot(DataTime wall_now) const {
+DriftSnapshot DriftMonitor::Snapshot(WallTime wall_now) const {
   DriftSnapshot d;
   if (model_ != nullptr) {
     d.model_version = version_;

@@ -89,7 +89,7 @@ struct DriftSnapshot {
   std::int64_t alarms_total = 0;              // alarms over the monitor's life (a counter)
   bool paused = false;
   std::optional<DataTime> newest_data_time;   // largest sample time seen
-  std::optional<DataTime> last_arrival_wall;  // wall time of the last arrival
+  std::optional<WallTime> last_arrival_wall;  // wall time of the last arrival
   // Wall now - last arrival (negative if the wall clock stepped back).
   std::optional<double> data_age_s;
   // Wall now - the model's promotion wall time.
@@ -134,14 +134,14 @@ class DriftMonitor {
   // kInvalidArgument (nothing changed) when the model's channel count is not
   // the feed's.
   [[nodiscard]] Status SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
-                                double validation_error, DataTime trained_to, DataTime promoted_wall,
+                                double validation_error, DataTime trained_to, WallTime promoted_wall,
                                 Handover handover = Handover::kFresh);
 
   // Records one committed sample of this feed that arrived at wall time
   // `arrived_wall` and scores it when the rules above allow. Requires
   // s.values.size() == the feed's channel count (a sample of another size is
   // recorded for data age only).
-  Observation Observe(const Sample& s, DataTime arrived_wall);
+  Observation Observe(const Sample& s, WallTime arrived_wall);
 
   // While paused (plant shutdown) samples are recorded for data age but
   // neither scored nor fed to the change test, so no alarm is raised.
@@ -153,7 +153,7 @@ class DriftMonitor {
   // alarm count, as a new model would, keeping the model.
   void Reset();
 
-  DriftSnapshot Snapshot(DataTime wall_now) const;
+  DriftSnapshot Snapshot(WallTime wall_now) const;
 
   // The current normalized one-step error e0 for the predictability horizon
   // (chaos/horizon.h): rmse_window once kMinScored samples are scored, else
@@ -175,13 +175,13 @@ class DriftMonitor {
   std::shared_ptr<const FlowMap<float>> model_;
   std::int64_t version_ = 0;
   double validation_error_ = 0;
-  DataTime trained_to_ = 0;
-  DataTime promoted_wall_ = 0;
+  DataTime trained_to_{};
+  WallTime promoted_wall_{};
 
   // Arrivals.
   bool paused_ = false;
   std::optional<DataTime> newest_;
-  std::optional<DataTime> last_arrival_;
+  std::optional<WallTime> last_arrival_;
   std::optional<Sample> prev_;  // the newest in-order sample
 
   // Scores (since SetModel/Reset).

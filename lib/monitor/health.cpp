@@ -113,7 +113,7 @@ HealthResult EvaluateHealth(const HealthConfig& t, const ModelAgeThresholds& mod
   if (in.has_data && in.data_age_s) {
     const double age = *in.data_age_s;
     const Verdict v =
-        Level(age, static_cast<double>(t.data_age_alert) / 1e6, static_cast<double>(t.data_age_alarm) / 1e6);
+        Level(age, Seconds(t.data_age_alert), Seconds(t.data_age_alarm));
     if (v != Verdict::kNormal) {
       const bool alarm = v == Verdict::kAlarm;
       judge.Add(v, fmt::format("no sample for {} ({} {})", FormatAge(age), alarm ? "data_age_alarm" : "data_age_alert",

@@ -91,7 +91,7 @@ struct Dynamics::State {
   std::vector<std::string> channels;
   std::vector<std::string> expressions;     // one per channel
   std::vector<std::string> constant_names;  // in file order
-  Micros time_unit = kMicrosPerSecond;
+  Micros time_unit = kSecond;
   // vars[0, dim) are the channels, vars[dim, ...) the constants. Sized before
   // the parsers are bound and never resized (that would move the storage).
   std::vector<double> vars;
@@ -183,10 +183,10 @@ Result<Dynamics> Dynamics::Compile(const FeedConfig& feed) {
   s->channels = feed.channels;
   s->time_unit = d.time_unit;
   if (feed.channels.empty()) return Status::Invalid(fmt::format("feeds '{}': the feed has no channels", feed.id));
-  if (d.time_unit <= 0) {
+  if (d.time_unit <= Micros{}) {
     return Status::Invalid(fmt::format("feeds '{}': dynamics.time_unit: must be a positive duration such as 1s; "
                                        "got {} us",
-                                       feed.id, d.time_unit));
+                                       feed.id, d.time_unit.count()));
   }
   // LoadConfig already guarantees the next checks; a FeedConfig built in code
   // (tests, tools) gets the same clear errors instead of a wrong binding.

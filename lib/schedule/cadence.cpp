@@ -62,14 +62,14 @@ CadenceDecision NextRetrain(const RetrainConfig& config, const LyapunovEstimates
     const double lyapunov_time_s = 1.0 / d.exponent->lambda_max;
     const double wanted_s = config.lyapunov_fraction * lyapunov_time_s;
     // Clamp in double first: a tiny exponent gives a huge interval.
-    const double clamped_us = std::clamp(wanted_s * 1e6, static_cast<double>(lo), static_cast<double>(hi));
-    d.interval = static_cast<Micros>(std::llround(clamped_us));
+    const double clamped_s = std::clamp(wanted_s, Seconds(lo), Seconds(hi));
+    d.interval = MicrosFromSeconds(clamped_s);
     const std::string base = fmt::format("{:g} Lyapunov times (T = {:.3g}s from the {}) = {:.3g}s",
                                          config.lyapunov_fraction, lyapunov_time_s,
                                          LyapunovSourceName(d.exponent->source), wanted_s);
-    if (wanted_s * 1e6 < static_cast<double>(lo)) {
+    if (wanted_s < Seconds(lo)) {
       d.reason = base + ", raised to min_interval " + FormatDuration(lo);
-    } else if (wanted_s * 1e6 > static_cast<double>(hi)) {
+    } else if (wanted_s > Seconds(hi)) {
       d.reason = base + ", lowered to max_interval " + FormatDuration(hi);
     } else {
       d.reason = base;

@@ -40,8 +40,8 @@ struct ChosenExponent {
 std::optional<ChosenExponent> ChooseExponent(const LyapunovEstimates& estimates, bool has_model);
 
 struct CadenceDecision {
-  DataTime due = 0;      // data time at which the next retrain is due
-  Micros interval = 0;   // due - since
+  DataTime due{};      // data time at which the next retrain is due
+  Micros interval{};   // due - since
   std::optional<ChosenExponent> exponent;
   std::string reason;    // e.g. "0.5 Lyapunov times (T = 11.0s from the model) = 5.5s, raised to min_interval 30s"
 };

@@ -19,8 +19,8 @@ Result<ExponentEstimate> DynamicsExponent(const FeedConfig& feed, const Eigen::V
   }
   auto dynamics = Dynamics::Compile(feed);
   if (!dynamics.ok()) return dynamics.status();
-  const double unit = static_cast<double>(feed.dynamics->time_unit);
-  const double dt = static_cast<double>(feed.step) / unit;
+  const double unit_s = Seconds(feed.dynamics->time_unit);
+  const double dt = Seconds(feed.step) / unit_s;
   const MapStep step = FlowMapStep(*dynamics, dt, std::max(1, static_cast<int>(std::ceil(dt / 5e-3))));
   SpectrumOptions o;
   o.exponents = 1;
@@ -28,7 +28,7 @@ Result<ExponentEstimate> DynamicsExponent(const FeedConfig& feed, const Eigen::V
   o.transient_steps = o.steps / 10;
   auto estimate = LyapunovSpectrum(step, x0, o);
   if (!estimate.ok()) return estimate.status();
-  const double per_second = 1e6 / unit;
+  const double per_second = 1.0 / unit_s;
   return ExponentEstimate{estimate->exponents[0] * per_second,
                           fmt::format("qr on the tangent dynamics, {} steps, converged to {:.2g}/s", estimate->steps,
                                       estimate->convergence * per_second)};
@@ -47,7 +47,7 @@ Result<ExponentEstimate> DataExponent(const FeedConfig& feed, const std::vector<
   RosensteinOptions o;
   o.max_samples = max_samples;
   o.max_references = 1000;
-  auto r = RosensteinLargest(series, static_cast<double>(feed.step) / 1e6, o);
+  auto r = RosensteinLargest(series, Seconds(feed.step), o);
   if (!r.ok()) return r.status();
   return ExponentEstimate{r->lambda, fmt::format("rosenstein on {}, lag {}, Theiler {}, fit [{}, {}), R^2 {:.3f}",
                                                  feed.channels[static_cast<std::size_t>(channel)], r->lag, r->theiler,

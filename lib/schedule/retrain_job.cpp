@@ -78,7 +78,7 @@ std::optional<double> LargestExponentPerSecond(const FlowMap<float>& model, cons
   o.transient_steps = o.steps / 10;
   auto e = LyapunovSpectrum(LearnedMapStep(model), x0, o);
   if (!e.ok()) return std::nullopt;
-  return e->exponents[0] * 1e6 / static_cast<double>(time_unit);
+  return e->exponents[0] / Seconds(time_unit);
 }
 
 }  // namespace
@@ -98,8 +98,8 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
   const FeedConfig& feed = *in.feed;
   const RetrainConfig& rc = feed.retrain;
   const int channels = static_cast<int>(feed.channels.size());
-  const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kMicrosPerSecond;
-  const double dt = static_cast<double>(feed.step) / static_cast<double>(time_unit);
+  const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kSecond;
+  const double dt = Seconds(feed.step) / Seconds(time_unit);
   RetrainOutcome out;
 
   std::vector<Sample> samples;
@@ -111,14 +111,14 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
       !s.ok()) {
     return s;
   }
-  const GridSeries grid = ResampleToGrid(samples, channels, {feed.step, 0});
+  const GridSeries grid = ResampleToGrid(samples, channels, {feed.step, Micros{}});
   // The held-out slice is the newest `validation` fraction of the new data
   // (the whole window on a cold start), so a warm start always has fresh
   // data on both sides of the split.
   double validation = rc.validation;
   if (in.active && grid.size() > 1) {
-    const double span = static_cast<double>(in.until - grid.t0);
-    const double chunk = static_cast<double>(in.until - std::max(in.active->trained_to, grid.t0));
+    const double span = Seconds(in.until - grid.t0);
+    const double chunk = Seconds(in.until - std::max(in.active->trained_to, grid.t0));
     validation = std::clamp(rc.validation * chunk / span, 0.0, rc.validation);
   }
   TrajectorySet set = BuildTrajectories(grid, {feed.model.rollout, feed.model.max_gap, validation});
@@ -173,7 +173,7 @@ Result<RetrainOutcome> RunRetrain(WindowStore& reader, ModelRegistry& registry, 
   o.learning_rate = rc.learning_rate;
   o.weight_decay = rc.weight_decay;
   o.clip = rc.clip;
-  o.time_budget_s = in.lockstep ? 0 : static_cast<double>(rc.time_budget) / 1e6;
+  o.time_budget_s = in.lockstep ? 0 : Seconds(rc.time_budget);
   o.validate_every = std::max(rc.iterations / 10, 1);
   o.seed = in.seed;
   o.cancel = in.cancel;

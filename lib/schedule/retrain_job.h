@@ -40,8 +40,8 @@ namespace lyapcast {
 struct RetrainInput {
   const FeedConfig* feed = nullptr;  // required
   std::uint32_t feed_index = 0;
-  Micros retention = 6 * 3600 * kMicrosPerSecond;
-  DataTime until = 0;                   // use samples with t < until
+  Micros retention = 6 * 3600 * kSecond;
+  DataTime until{};                   // use samples with t < until
   std::optional<ModelRecord> active;    // with its file; none = cold start
   std::uint64_t seed = 1;
   bool lockstep = false;                // ignore retrain.time_budget

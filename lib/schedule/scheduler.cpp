@@ -35,7 +35,7 @@ Result<std::shared_ptr<const ActiveModel>> MakeActive(ModelRecord record) {
 std::uint64_t JobSeed(std::uint64_t base, const std::string& feed, DataTime until) {
   std::uint64_t h = 1469598103934665603ULL ^ base;
   for (unsigned char c : feed) h = (h ^ c) * 1099511628211ULL;
-  return h ^ (static_cast<std::uint64_t>(until) * 0x9e3779b97f4a7c15ULL);
+  return h ^ (static_cast<std::uint64_t>(EpochMicros(until)) * 0x9e3779b97f4a7c15ULL);
 }
 
 std::string Ver(const std::optional<std::int64_t>& v) { return v ? fmt::format("version {}", *v) : "no version"; }
@@ -66,7 +66,7 @@ struct Scheduler::Feed {
   // The rest is guarded by mu_.
   FeedSchedule s;
   std::optional<std::uint64_t> pending_job, running_job;
-  DataTime running_until = 0;  // data end of the running job
+  DataTime running_until{};  // data end of the running job
   bool activating = false;     // an operator's Activate holds jobs off
   bool dynamics_tried = false;
   bool warned_model_age = false;  // the health/cadence mismatch below is logged once
@@ -143,7 +143,7 @@ Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
                       model ? fmt::format("version {}", model->record.version) : "none",
                       FormatRfc3339(*f.s.last_retrain), FormatRfc3339(f.s.next_due), f.s.next_reason));
     } else {
-      ScheduleNextLocked(f, i, 0, false);
+      ScheduleNextLocked(f, i, DataTime{}, false);
       Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: no model yet; {}", f.config->id, f.s.next_reason));
     }
   }
@@ -191,7 +191,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   Feed& f = *feeds_[feed];
   const FeedConfig& fc = *f.config;
   const std::shared_ptr<const ActiveModel> active = f.active.load();
-  DataTime until = 0;
+  DataTime until{};
   bool estimate_dynamics = false;
   LyapunovEstimates known;  // before this job
   std::string trigger;
@@ -200,14 +200,14 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     std::lock_guard lock(mu_);
     JobInfo* j = FindJobLocked(job_id);
     if (j != nullptr) {
-      if (j->until == 0) j->until = f.s.newest + 1;  // everything committed so far
+      if (j->until == DataTime{}) j->until = f.s.newest + Micros(1);  // everything committed so far
       j->state = JobState::kRunning;
       if (active) j->parent = active->record.version;
       until = j->until;
       trigger = fmt::format("{}: {}", TriggerKindName(j->trigger), j->trigger_reason);
       trigger_kind = TriggerKindName(j->trigger);
     } else {
-      until = f.s.newest + 1;
+      until = f.s.newest + Micros(1);
       trigger = "unknown";
     }
     f.running_until = until;
@@ -390,8 +390,8 @@ void Scheduler::ScheduleNextLocked(Feed& f, std::uint32_t, DataTime since, bool 
   if (!has_model && !f.s.last_retrain) {
     // Training pairs need `rollout` further steps each; validation takes its share.
     const double span_steps = rc.min_pairs / std::max(1e-9, 1.0 - rc.validation) + fc.model.rollout + 1;
-    const auto span = static_cast<Micros>(std::ceil(span_steps)) * fc.step;
-    f.s.next_due = f.s.oldest ? f.s.oldest + span : 0;
+    const auto span = static_cast<std::int64_t>(std::ceil(span_steps)) * fc.step;
+    f.s.next_due = f.s.oldest != DataTime{} ? f.s.oldest + span : DataTime{};
     f.s.next_reason = fmt::format("first retrain once the window spans {} ({} pairs of {} plus the validation share)",
                                   FormatDuration(span), rc.min_pairs, FormatDuration(fc.step));
     return;
@@ -411,7 +411,7 @@ void Scheduler::ScheduleNextLocked(Feed& f, std::uint32_t, DataTime since, bool 
   // the cadence and cannot fall below it.)
   const std::optional<double> alert_level = fc.health.model_age_alert_lyapunov;
   if (alert_level && d.exponent && d.exponent->lambda_max > 0 && !f.warned_model_age) {
-    const double interval_lt = static_cast<double>(d.interval) / 1e6 * d.exponent->lambda_max;
+    const double interval_lt = Seconds(d.interval) * d.exponent->lambda_max;
     if (interval_lt >= *alert_level) {
       f.warned_model_age = true;
       Log(SchedulerLogLevel::kWarning,
@@ -428,7 +428,7 @@ void Scheduler::QueueDueLocked() {
   if (stopping_ || !started_) return;
   for (std::uint32_t i = 0; i < feeds_.size(); ++i) {
     Feed& f = *feeds_[i];
-    if (f.s.paused || f.s.next_due == 0 || f.s.newest < f.s.next_due) continue;
+    if (f.s.paused || f.s.next_due == DataTime{} || f.s.newest < f.s.next_due) continue;
     if (f.pending_job || f.activating) continue;  // already queued, or held by Activate
     if (f.running_job && f.running_until >= f.s.next_due) continue;  // the running job covers it
     if (f.running_job) {
@@ -488,11 +488,11 @@ void Scheduler::OnSample(std::uint32_t feed, DataTime t) {
   if (stopping_) return;
   Feed& f = *feeds_[feed];
   f.s.newest = std::max(f.s.newest, t);
-  if (f.s.oldest == 0 || t < f.s.oldest) {
+  if (f.s.oldest == DataTime{} || t < f.s.oldest) {
     f.s.oldest = t;
-    if (!f.s.last_retrain && !f.active.load()) ScheduleNextLocked(f, feed, 0, false);
+    if (!f.s.last_retrain && !f.active.load()) ScheduleNextLocked(f, feed, DataTime{}, false);
   }
-  if (f.s.next_due == 0 || t < f.s.next_due) return;  // the common case: nothing due
+  if (f.s.next_due == DataTime{} || t < f.s.next_due) return;  // the common case: nothing due
   QueueDueLocked();
   work_cv_.notify_all();
   if (options_.lockstep) {

@@ -67,7 +67,7 @@ struct SchedulerOptions {
   std::vector<FeedLayout> layouts;         // as registered by the writer's store
   int threads = 1;                         // training.threads
   bool lockstep = false;                   // training.lockstep
-  Micros retention = 6 * 3600 * kMicrosPerSecond;  // storage.retention
+  Micros retention = 6 * 3600 * kSecond;  // storage.retention
   int keep_models = 200;                   // storage.keep_models
   int busy_timeout_ms = 5000;
   std::uint64_t seed = 1;                  // mixed with the feed and the job's data time
@@ -78,7 +78,7 @@ struct SchedulerOptions {
 struct ActiveModel {
   ModelRecord record;  // with the model file bytes
   FlowMap<float> model;
-  Micros time_unit = kMicrosPerSecond;  // data time per model time unit
+  Micros time_unit = kSecond;  // data time per model time unit
 };
 
 enum class TriggerKind { kCadence, kDrift, kOperator };
@@ -93,7 +93,7 @@ struct JobInfo {
   TriggerKind trigger = TriggerKind::kCadence;
   std::string trigger_reason;
   JobState state = JobState::kQueued;
-  DataTime until = 0;  // data used: samples before this time (set when it starts)
+  DataTime until{};  // data used: samples before this time (set when it starts)
   std::optional<std::int64_t> parent;  // version it warm-started from
   std::optional<RetrainVerdict> verdict;  // when done without an error
   std::optional<std::int64_t> version;    // recorded version (promoted or rejected)
@@ -104,10 +104,10 @@ struct JobInfo {
 
 // What the scheduler knows of one feed (a snapshot).
 struct FeedSchedule {
-  DataTime newest = 0;           // newest committed sample (0: none)
-  DataTime oldest = 0;           // oldest committed sample seen (0: none)
+  DataTime newest{};           // newest committed sample (0: none)
+  DataTime oldest{};           // oldest committed sample seen (0: none)
   std::optional<DataTime> last_retrain;  // data end of the last finished job
-  DataTime next_due = 0;         // the next cadence job is due at this data time
+  DataTime next_due{};         // the next cadence job is due at this data time
   std::string next_reason;       // why then
   LyapunovEstimates estimates;   // per second of data time
   std::string dynamics_diagnostics, data_diagnostics;

@@ -46,8 +46,8 @@ Result<ModelRecord> ReadRow(const Stmt& st, std::uint32_t feed, bool with_file) 
   r.reason = st.ColumnText(2);
   if (!st.ColumnIsNull(3)) r.parent = st.ColumnInt(3);
   r.created_at = st.ColumnText(4);
-  r.trained_from = st.ColumnInt(5);
-  r.trained_to = st.ColumnInt(6);
+  r.trained_from = st.ColumnTime(5);
+  r.trained_to = st.ColumnTime(6);
   r.validation_error = ColumnOptionalDouble(st, 7);
   r.lyapunov_max = ColumnOptionalDouble(st, 8);
   r.details = st.ColumnText(9);
@@ -155,9 +155,9 @@ Result<std::int64_t> ModelRegistry::Insert(const ModelRecord& r) {
     } else {
       sqlite3_bind_null(st.get(), 5);
     }
-    st.BindText(6, r.created_at.empty() ? FormatRfc3339(WallNowMicros()) : r.created_at);
-    st.BindInt(7, r.trained_from);
-    st.BindInt(8, r.trained_to);
+    st.BindText(6, r.created_at.empty() ? FormatRfc3339(WallNow()) : r.created_at);
+    st.BindTime(7, r.trained_from);
+    st.BindTime(8, r.trained_to);
     BindOptionalDouble(st, 9, r.validation_error);
     BindOptionalDouble(st, 10, r.lyapunov_max);
     st.BindText(11, r.details.empty() ? "{}" : r.details);

@@ -35,8 +35,8 @@ struct ModelRecord {
   std::string reason;              // why promoted, rejected, retired or activated
   std::optional<std::int64_t> parent;  // version it was warm-started from
   std::string created_at;          // wall time, RFC 3339 (set by Insert)
-  DataTime trained_from = 0;       // data-time range of the training chunk
-  DataTime trained_to = 0;
+  DataTime trained_from{};       // data-time range of the training chunk
+  DataTime trained_to{};
   std::optional<double> validation_error;
   std::optional<double> lyapunov_max;  // per second of data time
   std::string details = "{}";      // JSON object: losses, per-channel errors, estimates, timings

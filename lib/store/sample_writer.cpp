@@ -114,10 +114,10 @@ bool SampleWriter::PruneNeededLocked() const {
 // already hold) rather than the stop token, so one predicate covers both
 // "new work" and "drain and exit".
 void SampleWriter::Run(std::stop_token) {
-  const auto commit_every = std::chrono::microseconds(std::max<Micros>(options_.commit_every, 0));
-  const auto commit_quiet = std::chrono::microseconds(std::max<Micros>(options_.commit_quiet, 0));
-  const auto prune_every = std::chrono::microseconds(std::max<Micros>(options_.prune_every, 0));
-  const auto retry_after = std::chrono::microseconds(std::max<Micros>(options_.retry_after_failure, 0));
+  const Micros commit_every = std::max(options_.commit_every, Micros{});
+  const Micros commit_quiet = std::max(options_.commit_quiet, Micros{});
+  const Micros prune_every = std::max(options_.prune_every, Micros{});
+  const Micros retry_after = std::max(options_.retry_after_failure, Micros{});
   const size_t batch = static_cast<size_t>(std::max(options_.commit_batch, 1));
   Clock::time_point prune_at = Clock::now();  // a first pass right away prunes what piled up while stopped
 
@@ -321,8 +321,8 @@ bool SampleWriter::PruneSome() {
     FeedExtent updated = e;
     updated.count -= *deleted;
     bool found = false;
-    const Status read = store_->ReadRange(feed, std::numeric_limits<DataTime>::min(),
-                                          std::numeric_limits<DataTime>::max(), 1,
+    const Status read = store_->ReadRange(feed, DataTime::min(),
+                                          DataTime::max(), 1,
                                           [&](std::span<const Sample> rows) {
                                             updated.oldest = rows.front().t;
                                             found = true;

@@ -10,6 +10,7 @@
 #include <string>
 #include <string_view>
 
+#include "core/data_time.h"
 #include "core/status.h"
 
 struct sqlite3;
@@ -46,6 +47,9 @@ class Stmt {
   void BindInt(int index, std::int64_t value);
   void BindText(int index, std::string_view value);
   void BindBlob(int index, std::span<const unsigned char> bytes);
+  // Times and spans are stored as integer microseconds.
+  void BindTime(int index, DataTime t) { BindInt(index, EpochMicros(t)); }
+  void BindSpan(int index, Micros d) { BindInt(index, d.count()); }
 
   // sqlite3_step: SQLITE_ROW, SQLITE_DONE or an error code.
   int Step();
@@ -55,6 +59,8 @@ class Stmt {
 
   std::int64_t ColumnInt(int column) const;
   bool ColumnIsNull(int column) const;
+  DataTime ColumnTime(int column) const { return DataTimeFromMicros(ColumnInt(column)); }
+  Micros ColumnSpan(int column) const { return Micros(ColumnInt(column)); }
   std::string ColumnText(int column) const;
   std::span<const unsigned char> ColumnBlob(int column) const;  // valid until the next Step/Reset
 

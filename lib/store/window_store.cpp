@@ -1,5 +1,7 @@
 #include "store/window_store.h"
 
+#include "core/wall_clock.h"
+
 #include <sqlite3.h>
 
 #include <bit>
@@ -217,10 +219,7 @@ bool DecodeValues(std::span<const unsigned char> bytes, std::uint64_t mask, int 
   return true;
 }
 
-std::string WallNowRfc3339() {
-  const auto now = std::chrono::time_point_cast<std::chrono::microseconds>(std::chrono::system_clock::now());
-  return FormatRfc3339(now.time_since_epoch().count());
-}
+std::string WallNowRfc3339() { return FormatRfc3339(WallNow()); }
 
 }  // namespace
 
@@ -392,7 +391,7 @@ Status WindowStore::RegisterFeeds(const std::vector<FeedLayout>& feeds) {
       if (rc == SQLITE_ROW) {
         id = st.feed_by_name.ColumnInt(0);
         const std::vector<std::string> stored = SplitChannels(st.feed_by_name.ColumnText(1));
-        const Micros stored_step = st.feed_by_name.ColumnInt(2);
+        const Micros stored_step = st.feed_by_name.ColumnSpan(2);
         if (stored != f.channels || stored_step != f.step) {
           mismatches.push_back(fmt::format(
               "feed '{}': the store at {} recorded channels [{}] and step {}, the config now says channels [{}] and "
@@ -414,7 +413,7 @@ Status WindowStore::RegisterFeeds(const std::vector<FeedLayout>& feeds) {
       sqlite::ResetOnExit reset(st.insert_feed);
       st.insert_feed.BindText(1, f.id);
       st.insert_feed.BindText(2, JoinChannels(f.channels, ","));
-      st.insert_feed.BindInt(3, f.step);
+      st.insert_feed.BindSpan(3, f.step);
       st.insert_feed.BindText(4, created_at);
       const int rc = st.insert_feed.Step();
       if (rc != SQLITE_DONE) {
@@ -469,7 +468,7 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
     {
       sqlite::ResetOnExit reset(st.insert_sample);
       st.insert_sample.BindInt(1, feed_id);
-      st.insert_sample.BindInt(2, fs.sample.t);
+      st.insert_sample.BindTime(2, fs.sample.t);
       st.insert_sample.BindInt(3, mask);
       st.insert_sample.BindBlob(4, vals);
       const int rc = st.insert_sample.Step();
@@ -482,7 +481,7 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
     // DO NOTHING fired: compare with the row already stored at that time.
     sqlite::ResetOnExit reset(st.select_sample);
     st.select_sample.BindInt(1, feed_id);
-    st.select_sample.BindInt(2, fs.sample.t);
+    st.select_sample.BindTime(2, fs.sample.t);
     const int rc = st.select_sample.Step();
     if (rc != SQLITE_ROW) {
       if (rc == SQLITE_DONE) return Status::Internal(fmt::format("{}: insert ignored but no row stored", what));
@@ -514,11 +513,11 @@ Result<int> WindowStore::PruneBatch(std::uint32_t feed, DataTime cutoff, int max
   {
     sqlite::ResetOnExit reset(st.prune_find);
     st.prune_find.BindInt(1, feed_id);
-    st.prune_find.BindInt(2, cutoff);
+    st.prune_find.BindTime(2, cutoff);
     st.prune_find.BindInt(3, max_rows - 1);
     const int rc = st.prune_find.Step();
     if (rc == SQLITE_ROW) {
-      boundary = st.prune_find.ColumnInt(0);
+      boundary = st.prune_find.ColumnTime(0);
     } else if (rc != SQLITE_DONE) {
       return sqlite::Error(db_, rc, what);
     }
@@ -527,7 +526,7 @@ Result<int> WindowStore::PruneBatch(std::uint32_t feed, DataTime cutoff, int max
   {
     sqlite::ResetOnExit reset(del);
     del.BindInt(1, feed_id);
-    del.BindInt(2, boundary ? *boundary : cutoff);
+    del.BindTime(2, boundary ? *boundary : cutoff);
     const int rc = del.Step();
     if (rc != SQLITE_DONE) return sqlite::Error(db_, rc, what);
   }
@@ -548,8 +547,8 @@ Result<FeedExtent> WindowStore::Extent(std::uint32_t feed) {
   FeedExtent e;
   e.count = st.extent.ColumnInt(0);
   if (e.count > 0) {
-    e.oldest = st.extent.ColumnInt(1);
-    e.newest = st.extent.ColumnInt(2);
+    e.oldest = st.extent.ColumnTime(1);
+    e.newest = st.extent.ColumnTime(2);
   }
   return e;
 }
@@ -573,14 +572,14 @@ Status WindowStore::ReadRange(std::uint32_t feed, DataTime from, DataTime to, in
       if (Status s = txn.Begin(st.begin_read, what); !s.ok()) return s;
       sqlite::ResetOnExit reset(st.read_range);
       st.read_range.BindInt(1, feed_id);
-      st.read_range.BindInt(2, next);
-      st.read_range.BindInt(3, to);
+      st.read_range.BindTime(2, next);
+      st.read_range.BindTime(3, to);
       st.read_range.BindInt(4, slice_rows);
       int rc;
       while ((rc = st.read_range.Step()) == SQLITE_ROW) {
         if (rows == slice.size()) slice.emplace_back();
         Sample& s = slice[rows];
-        s.t = st.read_range.ColumnInt(0);
+        s.t = st.read_range.ColumnTime(0);
         const auto mask = static_cast<std::uint64_t>(st.read_range.ColumnInt(1));
         if (!DecodeValues(st.read_range.ColumnBlob(2), mask, channels, &s)) {
           return Status::Corruption(fmt::format("{}: the row at t={} does not match the feed's {} channels", what,
@@ -595,7 +594,7 @@ Status WindowStore::ReadRange(std::uint32_t feed, DataTime from, DataTime to, in
     // The visitor runs outside the read transaction: slow consumers never
     // pin a WAL snapshot.
     if (rows == 0) break;
-    next = slice[rows - 1].t + 1;  // cannot overflow: t < to
+    next = slice[rows - 1].t + Micros(1);  // cannot overflow: t < to
     if (!visit(std::span<const Sample>(slice.data(), rows))) break;
     if (rows < static_cast<size_t>(slice_rows)) break;
   }

@@ -38,14 +38,14 @@ namespace lyapcast {
 struct FeedLayout {
   std::string id;
   std::vector<std::string> channels;
-  Micros step = 0;
+  Micros step{};
 };
 
 // Stored samples of a feed. When count == 0, oldest/newest are 0.
 struct FeedExtent {
   std::int64_t count = 0;
-  DataTime oldest = 0;
-  DataTime newest = 0;
+  DataTime oldest{};
+  DataTime newest{};
 };
 
 enum class InsertOutcome {

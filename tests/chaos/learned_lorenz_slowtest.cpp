@@ -18,8 +18,8 @@ namespace {
 TEST(LearnedLorenz, LargestExponentAndTheZeroExponent) {
   const Eigen::MatrixXd x = testing::LorenzSamples(60.0, 0.01);  // 6000 samples, dt = 0.01
   std::vector<Sample> samples;
-  for (Eigen::Index i = 0; i < x.cols(); ++i) samples.push_back(Sample{i * 10'000LL, {x(0, i), x(1, i), x(2, i)}, 0});
-  const GridSeries grid = ResampleToGrid(samples, 3, {10'000, 0});
+  for (Eigen::Index i = 0; i < x.cols(); ++i) samples.push_back(Sample{DataTimeFromMicros(i * 10'000LL), {x(0, i), x(1, i), x(2, i)}, 0});
+  const GridSeries grid = ResampleToGrid(samples, 3, {Micros(10'000), Micros{}});
   const TrajectorySet set = BuildTrajectories(grid, {4, 8, 0.2});
   auto norm = ComputeNormalization(grid, set.validation_begin, 0.01);
   ASSERT_TRUE(norm.ok());

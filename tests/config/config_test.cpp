@@ -72,7 +72,7 @@ TEST(ConfigFiles, DemoLoadsAndValidates) {
   EXPECT_EQ(a.id, "loop-a");
   EXPECT_EQ(a.channels, (std::vector<std::string>{"flow", "dtemp_h", "dtemp_v"}));
   EXPECT_EQ(a.units, (std::vector<std::string>{"m/s", "K", "K"}));
-  EXPECT_EQ(a.step, 200'000);
+  EXPECT_EQ(a.step, Micros(200'000));
   ASSERT_TRUE(a.dynamics.has_value());
   ASSERT_EQ(a.dynamics->equations.size(), 3u);
   EXPECT_EQ(a.dynamics->equations[0].first, "flow");
@@ -115,12 +115,12 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_FALSE(c.listen.allow_remote_without_tokens);
   EXPECT_EQ(c.limits.max_line, 65536u);
   EXPECT_EQ(c.limits.max_connections, 256);
-  EXPECT_EQ(c.limits.idle_timeout, 300 * kMicrosPerSecond);
-  EXPECT_EQ(c.limits.commit_every, 5'000);
+  EXPECT_EQ(c.limits.idle_timeout, 300 * kSecond);
+  EXPECT_EQ(c.limits.commit_every, Micros(5'000));
   EXPECT_EQ(c.limits.commit_batch, 4096);
-  EXPECT_EQ(c.limits.max_future_skew, 10 * kMicrosPerSecond);
+  EXPECT_EQ(c.limits.max_future_skew, 10 * kSecond);
   EXPECT_EQ(c.storage.path, fs::path("var/lyapcast.db"));  // source "" keeps it relative
-  EXPECT_EQ(c.storage.retention, 6 * 3600 * kMicrosPerSecond);
+  EXPECT_EQ(c.storage.retention, 6 * 3600 * kSecond);
   EXPECT_EQ(c.storage.keep_models, 200);
   EXPECT_FALSE(c.auth.ingest_token_file || c.auth.read_token_file || c.auth.admin_token_file);
   EXPECT_EQ(c.training.threads, 1);
@@ -129,15 +129,15 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   const FeedConfig& f = c.feeds[0];
   EXPECT_EQ(f.id, "a");
   EXPECT_TRUE(f.units.empty());
-  EXPECT_EQ(f.step, kMicrosPerSecond);
+  EXPECT_EQ(f.step, kSecond);
   EXPECT_FALSE(f.dynamics.has_value());
   EXPECT_EQ(f.model.hidden, (std::vector<int>{64, 64}));
   EXPECT_EQ(f.model.activation, Activation::kTanh);
   EXPECT_EQ(f.model.rollout, 4);
   EXPECT_EQ(f.model.max_gap, 8);
   EXPECT_DOUBLE_EQ(f.retrain.lyapunov_fraction, 0.5);
-  EXPECT_EQ(f.retrain.min_interval, 30 * kMicrosPerSecond);
-  EXPECT_EQ(f.retrain.max_interval, 3600 * kMicrosPerSecond);
+  EXPECT_EQ(f.retrain.min_interval, 30 * kSecond);
+  EXPECT_EQ(f.retrain.max_interval, 3600 * kSecond);
   EXPECT_EQ(f.retrain.min_pairs, 500);
   EXPECT_DOUBLE_EQ(f.retrain.replay, 0.3);
   EXPECT_DOUBLE_EQ(f.retrain.validation, 0.2);
@@ -146,15 +146,15 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_DOUBLE_EQ(f.retrain.learning_rate, 1e-3);
   EXPECT_DOUBLE_EQ(f.retrain.weight_decay, 0.0);
   EXPECT_DOUBLE_EQ(f.retrain.clip, 1.0);
-  EXPECT_EQ(f.retrain.time_budget, 60 * kMicrosPerSecond);
+  EXPECT_EQ(f.retrain.time_budget, 60 * kSecond);
   EXPECT_DOUBLE_EQ(f.retrain.promote_tolerance, 0.05);
   EXPECT_DOUBLE_EQ(f.monitor.horizon_tol, 0.5);
   EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 15.0);
   EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.5);
   EXPECT_DOUBLE_EQ(f.health.drift_alert, 2.0);
   EXPECT_DOUBLE_EQ(f.health.drift_alarm, 5.0);
-  EXPECT_EQ(f.health.data_age_alert, 30 * kMicrosPerSecond);
-  EXPECT_EQ(f.health.data_age_alarm, 300 * kMicrosPerSecond);
+  EXPECT_EQ(f.health.data_age_alert, 30 * kSecond);
+  EXPECT_EQ(f.health.data_age_alarm, 300 * kSecond);
   EXPECT_FALSE(f.health.model_age_alert_lyapunov) << "unset: derived from the cadence";
   EXPECT_FALSE(f.health.model_age_alarm_lyapunov);
 }
@@ -193,12 +193,12 @@ feeds:
   EXPECT_TRUE(c.listen.allow_remote_without_tokens);
   EXPECT_EQ(c.limits.max_line, 1u << 20);
   EXPECT_EQ(c.limits.max_connections, 3);
-  EXPECT_EQ(c.limits.idle_timeout, 90 * kMicrosPerSecond);
-  EXPECT_EQ(c.limits.commit_every, 250);
+  EXPECT_EQ(c.limits.idle_timeout, 90 * kSecond);
+  EXPECT_EQ(c.limits.commit_every, Micros(250));
   EXPECT_EQ(c.limits.commit_batch, 7);
-  EXPECT_EQ(c.limits.max_future_skew, 0);
+  EXPECT_EQ(c.limits.max_future_skew, Micros{});
   EXPECT_EQ(c.storage.path, fs::path("/data/x.db"));
-  EXPECT_EQ(c.storage.retention, 2 * 86400 * kMicrosPerSecond);
+  EXPECT_EQ(c.storage.retention, 2 * 86400 * kSecond);
   EXPECT_EQ(c.storage.keep_models, 0);
   EXPECT_EQ(*c.auth.ingest_token_file, fs::path("/k/i"));
   EXPECT_EQ(*c.auth.read_token_file, fs::path("/k/r"));
@@ -208,9 +208,9 @@ feeds:
   const FeedConfig& f = c.feeds.at(0);
   EXPECT_EQ(f.id, "feed_9");
   EXPECT_EQ(f.units, (std::vector<std::string>{"m", ""}));
-  EXPECT_EQ(f.step, 250'000);
+  EXPECT_EQ(f.step, Micros(250'000));
   ASSERT_TRUE(f.dynamics.has_value());
-  EXPECT_EQ(f.dynamics->time_unit, 2 * kMicrosPerSecond);
+  EXPECT_EQ(f.dynamics->time_unit, 2 * kSecond);
   // Equations come back in channel order, whatever order the file used.
   ASSERT_EQ(f.dynamics->equations.size(), 2u);
   EXPECT_EQ(f.dynamics->equations[0], (std::pair<std::string, std::string>{"_a", "k*B2"}));
@@ -227,8 +227,8 @@ feeds:
   EXPECT_EQ(f.model.rollout, 1);
   EXPECT_EQ(f.model.max_gap, 2);
   EXPECT_DOUBLE_EQ(f.retrain.lyapunov_fraction, 2.0);
-  EXPECT_EQ(f.retrain.min_interval, 0);
-  EXPECT_EQ(f.retrain.max_interval, 60 * kMicrosPerSecond);
+  EXPECT_EQ(f.retrain.min_interval, Micros{});
+  EXPECT_EQ(f.retrain.max_interval, 60 * kSecond);
   EXPECT_EQ(f.retrain.min_pairs, 1);
   EXPECT_DOUBLE_EQ(f.retrain.replay, 0.0);
   EXPECT_DOUBLE_EQ(f.retrain.validation, 0.5);
@@ -237,15 +237,15 @@ feeds:
   EXPECT_DOUBLE_EQ(f.retrain.learning_rate, 0.1);
   EXPECT_DOUBLE_EQ(f.retrain.weight_decay, 1e-4);
   EXPECT_DOUBLE_EQ(f.retrain.clip, 3.0);
-  EXPECT_EQ(f.retrain.time_budget, 120 * kMicrosPerSecond);
+  EXPECT_EQ(f.retrain.time_budget, 120 * kSecond);
   EXPECT_DOUBLE_EQ(f.retrain.promote_tolerance, 0.0);
   EXPECT_DOUBLE_EQ(f.monitor.horizon_tol, 0.1);
   EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 1.0);
   EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.0);
   EXPECT_DOUBLE_EQ(f.health.drift_alert, 1.0);
   EXPECT_DOUBLE_EQ(f.health.drift_alarm, 1.0);
-  EXPECT_EQ(f.health.data_age_alert, kMicrosPerSecond);
-  EXPECT_EQ(f.health.data_age_alarm, kMicrosPerSecond);
+  EXPECT_EQ(f.health.data_age_alert, kSecond);
+  EXPECT_EQ(f.health.data_age_alarm, kSecond);
   EXPECT_EQ(f.health.model_age_alert_lyapunov, 0.5);
   EXPECT_EQ(f.health.model_age_alarm_lyapunov, 0.75);
 }
@@ -259,10 +259,10 @@ TEST(ConfigDefaults, EmptySectionsReadAsDefaults) {
 }
 
 TEST(ConfigDefaults, DurationsAcceptNumbersAsSeconds) {
-  EXPECT_EQ(MustParse(FeedWith("    step: 0.25\n")).feeds[0].step, 250'000);
-  EXPECT_EQ(MustParse(FeedWith("    step: 2\n")).feeds[0].step, 2 * kMicrosPerSecond);
-  EXPECT_EQ(MustParse(FeedWith("    step: 250ms\n")).feeds[0].step, 250'000);
-  EXPECT_EQ(MustParse(FeedWith("    step: 1m\n")).feeds[0].step, 60 * kMicrosPerSecond);
+  EXPECT_EQ(MustParse(FeedWith("    step: 0.25\n")).feeds[0].step, Micros(250'000));
+  EXPECT_EQ(MustParse(FeedWith("    step: 2\n")).feeds[0].step, 2 * kSecond);
+  EXPECT_EQ(MustParse(FeedWith("    step: 250ms\n")).feeds[0].step, Micros(250'000));
+  EXPECT_EQ(MustParse(FeedWith("    step: 1m\n")).feeds[0].step, 60 * kSecond);
 }
 
 // --- error classes -------------------------------------------------------------

@@ -48,7 +48,6 @@ std::string FeedWith(const std::string& body) {
          body;
 }
 
-constexpr Micros kSecond = kMicrosPerSecond;
 
 // --- the shipped scenario -------------------------------------------------------
 
@@ -75,7 +74,7 @@ TEST(ScenarioFiles, DemoScenarioLoads) {
   EXPECT_EQ(a.changes[0].name, "ra");
   EXPECT_EQ(a.changes[0].from, 28);
   EXPECT_EQ(a.changes[0].to, 30);
-  EXPECT_EQ(a.changes[0].t1, 0);
+  EXPECT_EQ(a.changes[0].t1, Micros(0));
   EXPECT_EQ(a.changes[0].t2, 15 * 60 * kSecond);
   EXPECT_EQ(a.changes[1].from, 38);
   EXPECT_EQ(a.changes[1].t1, 15 * 60 * kSecond);
@@ -116,7 +115,7 @@ TEST(ScenarioDefaults, OnlyFeedGetsEveryDefault) {
   const ScenarioFeed& f = s.feeds[0];
   EXPECT_EQ(f.feed, "a");
   EXPECT_EQ(f.seed, 1u);
-  EXPECT_EQ(f.transient, 0);
+  EXPECT_EQ(f.transient, Micros(0));
   EXPECT_TRUE(f.from.empty());
   EXPECT_FALSE(f.step.has_value());
   EXPECT_TRUE(f.noise.empty());
@@ -151,7 +150,7 @@ TEST(ScenarioDefaults, EveryKeyIsRead) {
   EXPECT_EQ(a.from, (std::vector<double>{1, -2.5}));
   EXPECT_EQ(a.lines.from, 6);
   ASSERT_TRUE(a.step.has_value());
-  EXPECT_EQ(*a.step, 250'000);
+  EXPECT_EQ(*a.step, Micros(250'000));
   EXPECT_EQ(a.noise, (std::vector<double>{0.1}));  // one number: every channel
   EXPECT_EQ(a.lines.noise, 8);
   EXPECT_EQ(a.missing_rate, 1);

@@ -19,7 +19,7 @@ TEST(Rfc3339, ParsesUtcWithFraction) {
   // `date -u -d 1985-04-12T23:20:50Z +%s` = 482196050.
   auto t = ParseRfc3339("1985-04-12T23:20:50.52Z");
   ASSERT_TRUE(t.ok()) << t.status().ToString();
-  EXPECT_EQ(*t, 482196050LL * 1'000'000 + 520'000);
+  EXPECT_EQ(*t, DataTimeFromMicros(482196050LL * 1'000'000 + 520'000));
 }
 
 TEST(Rfc3339, ParsesOffsets) {
@@ -27,7 +27,7 @@ TEST(Rfc3339, ParsesOffsets) {
   // `date -u -d 1996-12-20T00:39:57Z +%s` = 851042397.
   auto t = ParseRfc3339("1996-12-19T16:39:57-08:00");
   ASSERT_TRUE(t.ok());
-  EXPECT_EQ(*t, 851042397LL * 1'000'000);
+  EXPECT_EQ(*t, DataTimeFromMicros(851042397LL * 1'000'000));
   auto u = ParseRfc3339("1996-12-20 00:39:57z");
   ASSERT_TRUE(u.ok());
   EXPECT_EQ(*u, *t);
@@ -36,7 +36,7 @@ TEST(Rfc3339, ParsesOffsets) {
 TEST(Rfc3339, RoundsSubMicrosecondFractions) {
   auto t = ParseRfc3339("1970-01-01T00:00:00.0000016Z");
   ASSERT_TRUE(t.ok());
-  EXPECT_EQ(*t, 2);
+  EXPECT_EQ(*t, DataTimeFromMicros(2));
 }
 
 TEST(Rfc3339, RejectsMalformed) {
@@ -52,33 +52,34 @@ TEST(Rfc3339, RejectsMalformed) {
 }
 
 TEST(Rfc3339, FormatRoundTrips) {
-  for (DataTime t : {0LL, 1LL, 482196050520000LL, -1LL, 1733097600250000LL}) {
+  for (std::int64_t us : {0LL, 1LL, 482196050520000LL, -1LL, 1733097600250000LL}) {
+    const DataTime t = DataTimeFromMicros(us);
     auto back = ParseRfc3339(FormatRfc3339(t));
     ASSERT_TRUE(back.ok()) << FormatRfc3339(t);
     EXPECT_EQ(*back, t);
   }
-  EXPECT_EQ(FormatRfc3339(0), "1970-01-01T00:00:00.000000Z");
-  EXPECT_EQ(FormatRfc3339(-1), "1969-12-31T23:59:59.999999Z");
+  EXPECT_EQ(FormatRfc3339(DataTime{}), "1970-01-01T00:00:00.000000Z");
+  EXPECT_EQ(FormatRfc3339(DataTimeFromMicros(-1)), "1969-12-31T23:59:59.999999Z");
 }
 
 TEST(EpochSeconds, ConvertsAndRejectsNonFinite) {
   auto t = DataTimeFromEpochSeconds(1733097600.25);
   ASSERT_TRUE(t.ok());
-  EXPECT_EQ(*t, 1733097600250000LL);
+  EXPECT_EQ(*t, DataTimeFromMicros(1733097600250000LL));
   EXPECT_FALSE(DataTimeFromEpochSeconds(std::nan("")).ok());
   EXPECT_FALSE(DataTimeFromEpochSeconds(std::numeric_limits<double>::infinity()).ok());
   EXPECT_FALSE(DataTimeFromEpochSeconds(1e300).ok());
 }
 
 TEST(Duration, ParsesUnitsAndPlainSeconds) {
-  EXPECT_EQ(*ParseDuration("250ms"), 250'000);
-  EXPECT_EQ(*ParseDuration("30s"), 30'000'000);
-  EXPECT_EQ(*ParseDuration("5m"), 300'000'000);
-  EXPECT_EQ(*ParseDuration("6h"), 21'600'000'000LL);
-  EXPECT_EQ(*ParseDuration("2d"), 172'800'000'000LL);
-  EXPECT_EQ(*ParseDuration("0.5"), 500'000);
-  EXPECT_EQ(*ParseDuration("1500us"), 1500);
-  EXPECT_EQ(*ParseDuration("-1s"), -1'000'000);
+  EXPECT_EQ(*ParseDuration("250ms"), Micros(250'000));
+  EXPECT_EQ(*ParseDuration("30s"), Micros(30'000'000));
+  EXPECT_EQ(*ParseDuration("5m"), Micros(300'000'000));
+  EXPECT_EQ(*ParseDuration("6h"), Micros(21'600'000'000LL));
+  EXPECT_EQ(*ParseDuration("2d"), Micros(172'800'000'000LL));
+  EXPECT_EQ(*ParseDuration("0.5"), Micros(500'000));
+  EXPECT_EQ(*ParseDuration("1500us"), Micros(1500));
+  EXPECT_EQ(*ParseDuration("-1s"), Micros(-1'000'000));
   for (const char* bad : {"", "s", "5 m", "5x", "1e400s", "nan"}) {
     auto d = ParseDuration(bad);
     EXPECT_FALSE(d.ok()) << bad;
@@ -89,10 +90,10 @@ TEST(Duration, ParsesUnitsAndPlainSeconds) {
 }
 
 TEST(Duration, FormatsCompactly) {
-  EXPECT_EQ(FormatDuration(500'000), "500ms");
-  EXPECT_EQ(FormatDuration(6 * 3600 * kMicrosPerSecond), "6h");
-  EXPECT_EQ(FormatDuration(1'500'000), "1.5s");
-  EXPECT_EQ(FormatDuration(0), "0s");
+  EXPECT_EQ(FormatDuration(Micros(500'000)), "500ms");
+  EXPECT_EQ(FormatDuration(6 * 3600 * kSecond), "6h");
+  EXPECT_EQ(FormatDuration(Micros(1'500'000)), "1.5s");
+  EXPECT_EQ(FormatDuration(Micros{}), "0s");
 }
 
 TEST(ByteSize, ParsesBinaryUnits) {
@@ -105,8 +106,8 @@ TEST(ByteSize, ParsesBinaryUnits) {
 }
 
 TEST(Sample, EqualityIgnoresMissingPlaceholders) {
-  Sample a{10, {1.0, std::nan(""), 3.0}, 0b010};
-  Sample b{10, {1.0, 42.0, 3.0}, 0b010};
+  Sample a{DataTimeFromMicros(10), {1.0, std::nan(""), 3.0}, 0b010};
+  Sample b{DataTimeFromMicros(10), {1.0, 42.0, 3.0}, 0b010};
   EXPECT_EQ(a, b);
   b.values[2] = 3.5;
   EXPECT_FALSE(a == b);

@@ -14,9 +14,9 @@ namespace {
 using Kind = ParsedLine::Kind;
 using R = RejectReason;
 
-constexpr DataTime kT0 = 1733097600LL * kMicrosPerSecond;  // 2024-12-02T00:00:00Z
-constexpr DataTime kNow = kT0 + 5 * kMicrosPerSecond;       // the server's wall clock in these tests
-constexpr Micros kSkew = 10 * kMicrosPerSecond;
+constexpr DataTime kT0 = DataTimeFromMicros(1733097600LL * 1'000'000);  // 2024-12-02T00:00:00Z
+constexpr WallTime kNow = WallTimeAtData(kT0 + 5 * kSecond);  // the server's wall clock in these tests
+constexpr Micros kSkew = 10 * kSecond;
 
 Config MakeConfig() {
   Config config;
@@ -263,14 +263,14 @@ std::uint64_t MaskOf(const std::vector<double>& values) {
 }
 
 std::vector<GoodCase> GoodCases() {
-  const DataTime t025 = kT0 + 250'000;
+  const DataTime t025 = kT0 + Micros(250'000);
   return {
       // CSV, epoch seconds
       {"loop-a,1733097600.25,0.31,1.2,-0.4", 0, t025, {0.31, 1.2, -0.4}},
       {"loop-a,1733097600,1,2,3", 0, kT0, {1, 2, 3}},
       {"loop-a,1.7330976e9,1,2,3", 0, kT0, {1, 2, 3}},
-      {"loop-a,0,1,2,3", 0, 0, {1, 2, 3}},
-      {"loop-a,-86400.5,1,2,3", 0, -86'400'500'000, {1, 2, 3}},
+      {"loop-a,0,1,2,3", 0, DataTime{}, {1, 2, 3}},
+      {"loop-a,-86400.5,1,2,3", 0, DataTimeFromMicros(-86'400'500'000), {1, 2, 3}},
       // CSV, RFC 3339 (with offsets and fractions)
       {"loop-a,2024-12-02T00:00:00.25Z,0.31,1.2,-0.4", 0, t025, {0.31, 1.2, -0.4}},
       {"loop-a,2024-12-02T01:00:00.25+01:00,1,2,3", 0, t025, {1, 2, 3}},
@@ -288,7 +288,7 @@ std::vector<GoodCase> GoodCases() {
       {"loop-a,1733097600,1e-400,1.7976931348623157e308,4.9e-324", 0, kT0, {0, 1.7976931348623157e308, 4.9e-324}},
       {R"("loop-a",1733097600,1,2,3)", 0, kT0, {1, 2, 3}},
       {"pump-2,1733097600,7", 1, kT0, {7}},
-      {"loop-a,1733097615,1,2,3", 0, kNow + kSkew, {1, 2, 3}},  // exactly at the allowed skew
+      {"loop-a,1733097615,1,2,3", 0, DataTimeAtWall(kNow) + kSkew, {1, 2, 3}},  // exactly at the allowed skew
       // NDJSON, epoch seconds and RFC 3339
       {R"({"feed":"loop-a","t":1733097600.25,"values":{"flow":0.31,"dtemp_h":1.2,"dtemp_v":-0.4}})", 0, t025,
        {0.31, 1.2, -0.4}},
@@ -467,7 +467,7 @@ void CheckInvariants(const ParsedLine& p, const std::string& line) {
           ASSERT_TRUE(std::isfinite(s.values[c])) << line;
         }
       }
-      ASSERT_LE(s.t, kNow + kSkew) << line;
+      ASSERT_LE(s.t, DataTimeAtWall(kNow) + kSkew) << line;
       break;
     }
     case Kind::kAuth: break;

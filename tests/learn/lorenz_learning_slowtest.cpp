@@ -29,7 +29,7 @@ namespace lyapcast {
 namespace {
 
 constexpr double kDt = 0.01;
-constexpr Micros kStep = 10'000;
+constexpr Micros kStep{10'000};
 
 using testing::LorenzFeed;
 
@@ -43,7 +43,7 @@ SimRun Simulate(const Dynamics& d, int n, Eigen::VectorXd x) {
   const Rhs f = [&d](const double* s, double* dx) { d.Eval(s, dx); };
   SimRun r;
   for (int i = 0; i < n; ++i) {
-    r.samples.push_back(Sample{static_cast<DataTime>(i) * kStep, {x[0], x[1], x[2]}, 0});
+    r.samples.push_back(Sample{DataTime{} + static_cast<std::int64_t>(i) * kStep, {x[0], x[1], x[2]}, 0});
     x = IntegrateRk4(f, x, kDt, 1e-3);
   }
   r.last = x;
@@ -77,7 +77,7 @@ struct Trained {
 };
 
 Trained Train(const std::vector<Sample>& samples, const Dynamics& d, int iterations) {
-  const GridSeries grid = ResampleToGrid(samples, 3, {kStep, 0});
+  const GridSeries grid = ResampleToGrid(samples, 3, {kStep, Micros{}});
   const TrajectorySet set = BuildTrajectories(grid, {4, 8, 0.2});
   auto norm = ComputeNormalization(grid, set.validation_begin, kDt);
   EXPECT_TRUE(norm.ok()) << norm.status().ToString();

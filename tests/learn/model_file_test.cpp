@@ -36,8 +36,8 @@ template <typename T>
 ModelFileContents SampleContents() {
   ModelFileContents c;
   c.channels = {"flow", "dtemp_h", "dtemp_v"};
-  c.step_micros = 500'000;
-  c.time_unit_micros = 1'000'000;
+  c.step_micros = Micros(500'000);
+  c.time_unit_micros = Micros(1'000'000);
   c.model = SampleMap<T>();
   c.metadata = {{"feed", "loop-a"}, {"train_loss", "0.00123"}, {"range", "2024-12-02T00:00:00Z/PT1H"}};
   return c;
@@ -172,7 +172,7 @@ TEST(ModelFile, SerializeRejectsInconsistentContents) {
   c.metadata.emplace_back("feed", "again");
   EXPECT_EQ(Serialize(c).status().code(), StatusCode::kInvalidArgument);
   c = SampleContents<double>();
-  c.step_micros = 0;
+  c.step_micros = Micros{};
   EXPECT_EQ(Serialize(c).status().code(), StatusCode::kInvalidArgument);
   c = SampleContents<double>();
   std::get<FlowMap<double>>(c.model).network().W(0)(0, 0) = NAN;

@@ -37,7 +37,7 @@ std::vector<Sample> LorenzSamples(const Dynamics& d, int n, double dt, int drop 
   std::vector<Sample> out;
   for (int i = 0; i < n; ++i) {
     if ((drop == 0 || i % drop != drop - 1) && i % stride == 0) {
-      Sample s{static_cast<DataTime>(i) * 10'000, {x[0], x[1], x[2]}, 0};
+      Sample s{DataTimeFromMicros(static_cast<std::int64_t>(i) * 10'000), {x[0], x[1], x[2]}, 0};
       if (mask_every > 0 && i % mask_every == mask_every - 1) {
         s.missing_mask = 0b010;
         s.values[1] = std::nan("");
@@ -63,7 +63,7 @@ struct Fixture {
   explicit Fixture(Activation activation = Activation::kTanh, int stride = 1) {
     grid = ResampleToGrid(stride > 1 ? LorenzSamples(dynamics, 3 * 200, 0.01, 0, 10, stride)
                                      : LorenzSamples(dynamics, 200, 0.01, 7, 5),
-                          3, {10'000, 0});
+                          3, {Micros(10'000), Micros{}});
     set = BuildTrajectories(grid, {3, 8, 0.2});
     model = FlowMap<double>::Create(3, {8, 8}, activation, 0.01).value();
     auto norm = ComputeNormalization(grid, set.validation_begin, 0.01, 8);
@@ -331,8 +331,8 @@ struct NormalizationData {
   Dynamics dynamics = Dynamics::Compile(LorenzFeed()).value();
   GridSeries full, sparse;  // every sample; every 5th
   NormalizationData() {
-    full = ResampleToGrid(LorenzSamples(dynamics, 3000, 0.01), 3, {10'000, 0});
-    sparse = ResampleToGrid(LorenzSamples(dynamics, 3000, 0.01, 0, 0, 5), 3, {10'000, 0});
+    full = ResampleToGrid(LorenzSamples(dynamics, 3000, 0.01), 3, {Micros(10'000), Micros{}});
+    sparse = ResampleToGrid(LorenzSamples(dynamics, 3000, 0.01, 0, 0, 5), 3, {Micros(10'000), Micros{}});
   }
 };
 
@@ -377,7 +377,7 @@ TEST(ComputeNormalization, IncrementPerStepIsTheChordOverK) {
   // every increment per step is the slope, whatever k.
   GridSeries g;
   g.channels = 1;
-  g.step = 10'000;
+  g.step = Micros(10'000);
   const std::vector<int> at = {0, 2, 3, 6, 7};
   g.values.assign(8, std::nan(""));
   g.mask.assign(8, ~std::uint64_t{0});

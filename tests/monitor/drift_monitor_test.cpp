@@ -19,9 +19,9 @@ namespace lyapcast {
 namespace {
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
-constexpr Micros kStep = 500'000;                   // 0.5 s
-constexpr DataTime kT0 = 1'733'097'600'000'000;     // 2024-12-02T00:00:00Z
-constexpr DataTime kWall0 = 1'733'100'000'000'000;  // wall clock, µs
+constexpr Micros kStep{500'000};                   // 0.5 s
+constexpr DataTime kT0 = DataTimeFromMicros(1'733'097'600'000'000);     // 2024-12-02T00:00:00Z
+constexpr WallTime kWall0 = WallTimeFromMicros(1'733'100'000'000'000);  // wall clock
 const Eigen::Vector2f kStd{2.0f, 0.5f};             // the model's s_c
 
 FeedConfig Feed() {
@@ -45,7 +45,7 @@ std::shared_ptr<const FlowMap<float>> ShiftModel(Eigen::Vector2f v) {
 // A sample at kT0 + k steps; NaN values are missing.
 Sample At(double k, std::vector<double> values) {
   Sample s;
-  s.t = kT0 + static_cast<DataTime>(std::llround(k * static_cast<double>(kStep)));
+  s.t = kT0 + Micros(std::llround(k * static_cast<double>(kStep.count())));
   for (std::size_t c = 0; c < values.size(); ++c) {
     if (std::isnan(values[c])) s.missing_mask |= std::uint64_t{1} << c;
   }
@@ -130,13 +130,13 @@ TEST(DriftMonitor, LateSamplesCountForDataAgeOnly) {
   ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 1, 0.1, kT0 - kStep, kWall0).ok());
   Observe(m, At(0, {1.0, 1.0}));
   Observe(m, At(1, {1.0, 1.0}));
-  const auto late = m.Observe(At(0.5, {1.0, 1.0}), kWall0 + 60 * kMicrosPerSecond);
+  const auto late = m.Observe(At(0.5, {1.0, 1.0}), kWall0 + 60 * kSecond);
   EXPECT_FALSE(late.scored);
   EXPECT_TRUE(std::isnan(late.error));
-  EXPECT_FALSE(m.Observe(At(1, {5.0, 5.0}), kWall0 + 61 * kMicrosPerSecond).scored) << "same time: not newer";
-  const DriftSnapshot d = m.Snapshot(kWall0 + 62 * kMicrosPerSecond);
+  EXPECT_FALSE(m.Observe(At(1, {5.0, 5.0}), kWall0 + 61 * kSecond).scored) << "same time: not newer";
+  const DriftSnapshot d = m.Snapshot(kWall0 + 62 * kSecond);
   EXPECT_EQ(d.newest_data_time, kT0 + kStep);
-  EXPECT_EQ(d.last_arrival_wall, kWall0 + 61 * kMicrosPerSecond);
+  EXPECT_EQ(d.last_arrival_wall, kWall0 + 61 * kSecond);
   EXPECT_DOUBLE_EQ(*d.data_age_s, 1.0);
   // The late samples did not replace the newest one as the next input.
   EXPECT_TRUE(Observe(m, At(2, {1.0, 1.0})).scored);
@@ -148,13 +148,13 @@ TEST(DriftMonitor, StalenessArithmetic) {
   DriftSnapshot d = m.Snapshot(kWall0);
   EXPECT_FALSE(d.data_age_s || d.model_age_s || d.since_training_s || d.newest_data_time || d.model_version);
   m.Observe(At(0, {1.0, 1.0}), kWall0);
-  m.Observe(At(10, {1.0, 1.0}), kWall0 + 2 * kMicrosPerSecond);
-  d = m.Snapshot(kWall0 + 8'500'000);
+  m.Observe(At(10, {1.0, 1.0}), kWall0 + 2 * kSecond);
+  d = m.Snapshot(kWall0 + Micros(8'500'000));
   EXPECT_DOUBLE_EQ(*d.data_age_s, 6.5);
   EXPECT_FALSE(d.model_age_s.has_value());
   EXPECT_FALSE(d.since_training_s.has_value());
-  ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 3, 0.1, kT0 + 4 * kStep, kWall0 - 90 * kMicrosPerSecond).ok());
-  d = m.Snapshot(kWall0 + 8'500'000);
+  ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 3, 0.1, kT0 + 4 * kStep, kWall0 - 90 * kSecond).ok());
+  d = m.Snapshot(kWall0 + Micros(8'500'000));
   EXPECT_DOUBLE_EQ(*d.model_age_s, 98.5);        // wall: now - promoted
   EXPECT_DOUBLE_EQ(*d.since_training_s, 3.0);    // data: newest (10 steps) - trained_to (4 steps)
   EXPECT_EQ(d.newest_data_time, kT0 + 10 * kStep);
@@ -176,7 +176,7 @@ TEST(DriftMonitor, ModelChecksAndNoModel) {
   ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 2, kNaN, kT0 - kStep, kWall0).ok());
   EXPECT_TRUE(Observe(m, At(2, {1.0, 1.0})).scored) << "the kept previous sample is used";
   EXPECT_FALSE(m.Snapshot(kWall0).validation_error.has_value());
-  ASSERT_TRUE(m.SetModel(nullptr, 0, 0.0, 0, 0).ok());
+  ASSERT_TRUE(m.SetModel(nullptr, 0, 0.0, DataTime{}, WallTime{}).ok());
   EXPECT_FALSE(m.has_model());
   EXPECT_FALSE(m.Snapshot(kWall0).model_version.has_value());
   EXPECT_EQ(m.Snapshot(kWall0).scored, 0);
@@ -248,7 +248,7 @@ TEST(DriftMonitor, DriftFlagRisesWhenTheProcessChangesAndANewModelClearsIt) {
   EXPECT_NEAR(*d.drift_ratio, 1.0, 0.3);
 
   int first = -1;
-  DataTime first_t = 0;
+  DataTime first_t{};
   for (int i = 0; i < 100 && first < 0; ++i) {
     const Sample s = p.Next(changed);
     if (Observe(m, s).alarm_raised) {

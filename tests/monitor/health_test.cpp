@@ -222,8 +222,8 @@ TEST(EvaluateHealth, ThresholdsComeFromTheCaller) {
   HealthConfig strict;
   strict.drift_alert = 1.2;
   strict.drift_alarm = 1.5;
-  strict.data_age_alert = 500'000;
-  strict.data_age_alarm = 2 * kMicrosPerSecond;
+  strict.data_age_alert = Micros(500'000);
+  strict.data_age_alarm = 2 * kSecond;
   HealthInputs in = Healthy();
   in.data_age_s = 0.2;
   in.drift_ratio = 1.3;

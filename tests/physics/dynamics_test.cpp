@@ -109,12 +109,12 @@ TEST(DynamicsTest, BatchesMatchSingleEvaluations) {
 
 TEST(DynamicsTest, CarriesTimeUnitChannelsAndFeed) {
   FeedConfig feed = LorenzFeed();
-  feed.dynamics->time_unit = 250'000;  // 250 ms of data time per model time unit
+  feed.dynamics->time_unit = Micros(250'000);  // 250 ms of data time per model time unit
   const Dynamics d = MustCompile(feed);
-  EXPECT_EQ(d.time_unit(), 250'000);
+  EXPECT_EQ(d.time_unit(), Micros(250'000));
   EXPECT_EQ(d.channels(), (std::vector<std::string>{"x", "y", "z"}));
   EXPECT_EQ(d.feed_id(), "lorenz");
-  EXPECT_EQ(MustCompile(LorenzFeed()).time_unit(), kMicrosPerSecond);  // the config default
+  EXPECT_EQ(MustCompile(LorenzFeed()).time_unit(), kSecond);  // the config default
 }
 
 // --- compile errors: each names the feed, the channel and the position -----
@@ -208,7 +208,7 @@ TEST(DynamicsTest, StructuralMistakesAreRejected) {
             std::string::npos);
 
   FeedConfig unit = LorenzFeed();
-  unit.dynamics->time_unit = 0;
+  unit.dynamics->time_unit = Micros{};
   EXPECT_NE(CompileError(unit).message().find("dynamics.time_unit"), std::string::npos);
 }
 

@@ -12,8 +12,8 @@ namespace {
 RetrainConfig Config() {
   RetrainConfig c;
   c.lyapunov_fraction = 0.5;
-  c.min_interval = 30 * kMicrosPerSecond;
-  c.max_interval = 3600 * kMicrosPerSecond;
+  c.min_interval = 30 * kSecond;
+  c.max_interval = 3600 * kSecond;
   return c;
 }
 
@@ -51,27 +51,27 @@ TEST(ChooseExponent, ANearZeroModelEstimateDoesNotStretchTheCadence) {
 
 TEST(NextRetrain, FractionOfTheLyapunovTime) {
   // lambda = 0.01/s -> T = 100 s; half of it is 50 s, inside [30 s, 1 h].
-  const CadenceDecision d = NextRetrain(Config(), {0.01, {}, {}}, true, 1'000'000);
-  EXPECT_EQ(d.interval, 50 * kMicrosPerSecond);
-  EXPECT_EQ(d.due, 1'000'000 + 50 * kMicrosPerSecond);
+  const CadenceDecision d = NextRetrain(Config(), {0.01, {}, {}}, true, DataTimeFromMicros(1'000'000));
+  EXPECT_EQ(d.interval, 50 * kSecond);
+  EXPECT_EQ(d.due, DataTimeFromMicros(1'000'000) + 50 * kSecond);
   EXPECT_NE(d.reason.find("T = 100s from the model"), std::string::npos) << d.reason;
 }
 
 TEST(NextRetrain, ClampsToTheConfiguredBounds) {
-  const CadenceDecision fast = NextRetrain(Config(), {{}, 1.0, {}}, false, 0);  // 0.5 s wanted
-  EXPECT_EQ(fast.interval, 30 * kMicrosPerSecond);
+  const CadenceDecision fast = NextRetrain(Config(), {{}, 1.0, {}}, false, DataTime{});  // 0.5 s wanted
+  EXPECT_EQ(fast.interval, 30 * kSecond);
   EXPECT_NE(fast.reason.find("raised to min_interval 30s"), std::string::npos) << fast.reason;
-  const CadenceDecision slow = NextRetrain(Config(), {{}, {}, 1e-9}, false, 0);  // years wanted
-  EXPECT_EQ(slow.interval, 3600 * kMicrosPerSecond);
+  const CadenceDecision slow = NextRetrain(Config(), {{}, {}, 1e-9}, false, DataTime{});  // years wanted
+  EXPECT_EQ(slow.interval, 3600 * kSecond);
   EXPECT_NE(slow.reason.find("lowered to max_interval 1h"), std::string::npos) << slow.reason;
 }
 
 TEST(NextRetrain, NonPositiveOrMissingExponentUsesMaxInterval) {
-  const CadenceDecision zero = NextRetrain(Config(), {0.0, {}, {}}, true, 0);
-  EXPECT_EQ(zero.interval, 3600 * kMicrosPerSecond);
+  const CadenceDecision zero = NextRetrain(Config(), {0.0, {}, {}}, true, DataTime{});
+  EXPECT_EQ(zero.interval, 3600 * kSecond);
   EXPECT_NE(zero.reason.find("not positive"), std::string::npos);
-  const CadenceDecision none = NextRetrain(Config(), {}, false, 0);
-  EXPECT_EQ(none.interval, 3600 * kMicrosPerSecond);
+  const CadenceDecision none = NextRetrain(Config(), {}, false, DataTime{});
+  EXPECT_EQ(none.interval, 3600 * kSecond);
   EXPECT_NE(none.reason.find("no Lyapunov estimate"), std::string::npos);
 }
 

@@ -35,7 +35,7 @@ struct Db {
   std::unique_ptr<WindowStore> Open() {
     auto s = WindowStore::Open(StoreOptions{path, false, 5000});
     EXPECT_TRUE(s.ok()) << s.status().ToString();
-    EXPECT_TRUE((*s)->RegisterFeeds({{"lorenz", {"x", "y", "z"}, 10'000}}).ok());
+    EXPECT_TRUE((*s)->RegisterFeeds({{"lorenz", {"x", "y", "z"}, Micros(10'000)}}).ok());
     return std::move(s).value();
   }
   void Add(const std::vector<FeedSample>& samples) {
@@ -47,23 +47,23 @@ struct Db {
 TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
   Db db;
   const FeedConfig feed = Feed();
-  db.Add(testing::LorenzSamples(300, 0));
-  RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 3'000'000, std::nullopt, 1, true, nullptr};
+  db.Add(testing::LorenzSamples(300, DataTime{}));
+  RetrainInput in{&feed, 0, 3600 * kSecond, DataTimeFromMicros(3'000'000), std::nullopt, 1, true, nullptr};
   auto early = RunRetrain(*db.reader, db.registry, in);
   ASSERT_TRUE(early.ok());
   EXPECT_EQ(early->verdict, RetrainVerdict::kNotEnoughData);
   EXPECT_NE(early->reason.find("500 training pairs"), std::string::npos) << early->reason;
   EXPECT_FALSE(db.registry.Active(0)->has_value());
 
-  db.Add(testing::LorenzSamples(1000, 3'000'000));
-  in.until = 13'000'000;
+  db.Add(testing::LorenzSamples(1000, DataTimeFromMicros(3'000'000)));
+  in.until = DataTimeFromMicros(13'000'000);
   auto first = RunRetrain(*db.reader, db.registry, in);
   ASSERT_TRUE(first.ok()) << first.status().ToString();
   EXPECT_EQ(first->verdict, RetrainVerdict::kPromoted) << first->reason;
   EXPECT_EQ(first->version, 1);
   auto active = db.registry.Active(0);
   ASSERT_TRUE(active->has_value());
-  EXPECT_EQ((*active)->trained_to, 13'000'000);
+  EXPECT_EQ((*active)->trained_to, DataTimeFromMicros(13'000'000));
   EXPECT_TRUE((*active)->validation_error.has_value());
   EXPECT_NE((*active)->details.find("\"validation_per_channel\""), std::string::npos);
 }
@@ -71,12 +71,12 @@ TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
 TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
   Db db;
   FeedConfig feed = Feed();
-  db.Add(testing::LorenzSamples(1500, 0));
-  RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 15'000'000, std::nullopt, 1, true, nullptr};
+  db.Add(testing::LorenzSamples(1500, DataTime{}));
+  RetrainInput in{&feed, 0, 3600 * kSecond, DataTimeFromMicros(15'000'000), std::nullopt, 1, true, nullptr};
   ASSERT_EQ(RunRetrain(*db.reader, db.registry, in)->verdict, RetrainVerdict::kPromoted);
 
-  db.Add(testing::LorenzSamples(500, 15'000'000));
-  in.until = 20'000'000;
+  db.Add(testing::LorenzSamples(500, DataTimeFromMicros(15'000'000)));
+  in.until = DataTimeFromMicros(20'000'000);
   in.active = *db.registry.Active(0).value();
   auto warm = RunRetrain(*db.reader, db.registry, in);
   ASSERT_TRUE(warm.ok());
@@ -89,10 +89,10 @@ TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
 
   // A candidate trained with a learning rate that wrecks it must not be served.
   const std::int64_t active_before = (*db.registry.Active(0).value()).version;
-  db.Add(testing::LorenzSamples(500, 20'000'000));
+  db.Add(testing::LorenzSamples(500, DataTimeFromMicros(20'000'000)));
   feed.retrain.learning_rate = 5.0;
   feed.retrain.clip = 1e6;
-  in.until = 25'000'000;
+  in.until = DataTimeFromMicros(25'000'000);
   in.active = *db.registry.Active(0).value();
   auto bad = RunRetrain(*db.reader, db.registry, in);
   ASSERT_TRUE(bad.ok());
@@ -104,8 +104,8 @@ TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
 TEST(RunRetrain, RecordsTheCadenceEstimatesExactlyForARestart) {
   Db db;
   const FeedConfig feed = Feed();
-  db.Add(testing::LorenzSamples(1500, 0));
-  RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 15'000'000, std::nullopt, 1, true, nullptr};
+  db.Add(testing::LorenzSamples(1500, DataTime{}));
+  RetrainInput in{&feed, 0, 3600 * kSecond, DataTimeFromMicros(15'000'000), std::nullopt, 1, true, nullptr};
   in.data_exponent = 0.1 / 3.0;  // not exact in decimal: the round trip must be
   in.dynamics_exponent = 0.9056;
   auto job = RunRetrain(*db.reader, db.registry, in);
@@ -122,8 +122,8 @@ TEST(RunRetrain, LockstepJobsAreDeterministicToTheByte) {
   for (std::string& file : files) {
     Db db;
     const FeedConfig feed = Feed();
-    db.Add(testing::LorenzSamples(1200, 0));
-    RetrainInput in{&feed, 0, 3600 * kMicrosPerSecond, 12'000'000, std::nullopt, 7, true, nullptr};
+    db.Add(testing::LorenzSamples(1200, DataTime{}));
+    RetrainInput in{&feed, 0, 3600 * kSecond, DataTimeFromMicros(12'000'000), std::nullopt, 7, true, nullptr};
     ASSERT_EQ(RunRetrain(*db.reader, db.registry, in)->verdict, RetrainVerdict::kPromoted);
     file = (*db.registry.Active(0).value()).file;
   }

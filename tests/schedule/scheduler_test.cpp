@@ -30,8 +30,8 @@ Config LorenzConfig() {
   f.retrain.batch = 64;
   f.retrain.min_pairs = 400;
   f.retrain.learning_rate = 3e-3;
-  f.retrain.min_interval = 2 * kMicrosPerSecond;
-  f.retrain.max_interval = 4 * kMicrosPerSecond;
+  f.retrain.min_interval = 2 * kSecond;
+  f.retrain.max_interval = 4 * kSecond;
   c.feeds.push_back(f);
   return c;
 }
@@ -135,7 +135,7 @@ std::vector<Version> Versions(const fs::path& db, const Config& config) {
 
 TEST(Scheduler, LockstepReplayGivesTheSameRetrainPointsAndModelBytesAtAnyGrouping) {
   const Config config = LorenzConfig();
-  const std::vector<FeedSample> data = testing::LorenzSamples(2000, 1'000'000'000'000'000);
+  const std::vector<FeedSample> data = testing::LorenzSamples(2000, DataTimeFromMicros(1'000'000'000'000'000));
   std::vector<Version> runs[2];
   const std::pair<std::size_t, int> groupings[2] = {{7, 16}, {997, 4096}};  // (chunk, commit_batch)
   for (int r = 0; r < 2; ++r) {
@@ -160,8 +160,8 @@ TEST(Scheduler, LockstepReplayGivesTheSameRetrainPointsAndModelBytesAtAnyGroupin
   // (enough for the first model at once); then every 2..4 s of data: at
   // least 4 versions from 20 s of data.
   ASSERT_GE(runs[0].size(), 4u);
-  const Micros first_span = (500 + config.feeds[0].model.rollout + 1) * 10'000LL;
-  EXPECT_EQ(runs[0].front().trained_to, 1'000'000'000'000'000 + first_span);
+  const Micros first_span = (500 + config.feeds[0].model.rollout + 1) * Micros(10'000);
+  EXPECT_EQ(runs[0].front().trained_to, DataTimeFromMicros(1'000'000'000'000'000) + first_span);
   ASSERT_EQ(runs[0].size(), runs[1].size());
   for (std::size_t i = 0; i < runs[0].size(); ++i) {
     EXPECT_EQ(runs[0][i].trained_to, runs[1][i].trained_to) << "version " << runs[0][i].version;
@@ -170,8 +170,8 @@ TEST(Scheduler, LockstepReplayGivesTheSameRetrainPointsAndModelBytesAtAnyGroupin
   }
   for (std::size_t i = 1; i < runs[0].size(); ++i) {
     const Micros gap = runs[0][i].trained_to - runs[0][i - 1].trained_to;
-    EXPECT_GE(gap, 2 * kMicrosPerSecond) << "clamped to min_interval";
-    EXPECT_LE(gap, 4 * kMicrosPerSecond) << "clamped to max_interval";
+    EXPECT_GE(gap, 2 * kSecond) << "clamped to min_interval";
+    EXPECT_LE(gap, 4 * kSecond) << "clamped to max_interval";
   }
 }
 
@@ -181,7 +181,7 @@ TEST(Scheduler, TriggersDuringAJobAreCoalescedAndADueJobWaits) {
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
   Rig rig(config, db, /*lockstep=*/false, 4096);
-  rig.Send(testing::LorenzSamples(600, 0), 600);  // past the first due time (5 s): the cold start runs
+  rig.Send(testing::LorenzSamples(600, DataTime{}), 600);  // past the first due time (5 s): the cold start runs
   rig.Drain();
   for (int i = 0; i < 2000 && !rig.scheduler().schedule(0).running; ++i) {
     std::this_thread::sleep_for(std::chrono::milliseconds(5));
@@ -208,7 +208,7 @@ TEST(Scheduler, ACadenceJobDueWhileAnotherRunsWaitsAndSaysSo) {
   Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   Rig rig(config, dir.path() / "w.db", /*lockstep=*/false, 4096);
-  rig.Send(testing::LorenzSamples(600, 0), 600);
+  rig.Send(testing::LorenzSamples(600, DataTime{}), 600);
   rig.Drain();
   const auto settled = [&rig] {
     const FeedSchedule s = rig.scheduler().schedule(0);
@@ -218,20 +218,20 @@ TEST(Scheduler, ACadenceJobDueWhileAnotherRunsWaitsAndSaysSo) {
   ASSERT_TRUE(settled());
   ASSERT_NE(rig.scheduler().active(0), nullptr);
   const DataTime due = rig.scheduler().schedule(0).next_due;
-  ASSERT_LE(due, 10'000'000);  // 6 s + at most max_interval
+  ASSERT_LE(due, DataTimeFromMicros(10'000'000));  // 6 s + at most max_interval
 
   // No job runs now, so the config may change: the next job runs until Stop().
   config.feeds[0].retrain.iterations = 2'000'000;
-  rig.Send(testing::LorenzSamples(100, 6'000'000), 100);  // new data, short of the due time
+  rig.Send(testing::LorenzSamples(100, DataTimeFromMicros(6'000'000)), 100);  // new data, short of the due time
   rig.Drain();
-  ASSERT_LT(7'000'000, due);
+  ASSERT_LT(DataTimeFromMicros(7'000'000), due);
   ASSERT_TRUE(rig.scheduler().Trigger(0, TriggerKind::kOperator, "test").ok());
   for (int i = 0; i < 2000 && !rig.scheduler().schedule(0).running; ++i) {
     std::this_thread::sleep_for(std::chrono::milliseconds(5));
   }
   ASSERT_TRUE(rig.scheduler().schedule(0).running);
   EXPECT_FALSE(rig.Logged("waits for the running job"));
-  rig.Send(testing::LorenzSamples(400, 7'000'000), 400);  // data to 11 s: past the cadence due time
+  rig.Send(testing::LorenzSamples(400, DataTimeFromMicros(7'000'000)), 400);  // data to 11 s: past the cadence due time
   rig.Drain();
   EXPECT_TRUE(rig.Logged("waits for the running job"));
   EXPECT_TRUE(rig.scheduler().schedule(0).pending);
@@ -248,7 +248,7 @@ TEST(Scheduler, ARejectedCandidateIsNeverServed) {
   const fs::path db = dir.path() / "w.db";
   {
     Rig rig(config, db, /*lockstep=*/true, 4096);
-    rig.Send(testing::LorenzSamples(1500, 0), 100);
+    rig.Send(testing::LorenzSamples(1500, DataTime{}), 100);
     rig.Drain();
     const FeedSchedule s = rig.scheduler().schedule(0);
     EXPECT_EQ(s.promoted, 1u);
@@ -270,7 +270,7 @@ TEST(Scheduler, PrunesVersionsBeyondKeepModelsButNeverTheActiveOne) {
   const fs::path db = dir.path() / "w.db";
   {
     Rig rig(config, db, /*lockstep=*/true, 4096, /*keep_models=*/2);
-    rig.Send(testing::LorenzSamples(2000, 0), 100);
+    rig.Send(testing::LorenzSamples(2000, DataTime{}), 100);
     rig.Drain();
     EXPECT_GE(rig.scheduler().schedule(0).rejected, 3u);
     EXPECT_TRUE(rig.Logged("beyond keep_models 2"));
@@ -292,7 +292,7 @@ TEST(Scheduler, WarnsOnceWhenHealthWouldCallEveryRetrainIntervalStale) {
     if (alert) config.feeds[0].health.model_age_alarm_lyapunov = 2 * *alert;
     testing::TempDir dir("lyapcast-scheduler-test");
     Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
-    rig.Send(testing::LorenzSamples(900, 0), 100);
+    rig.Send(testing::LorenzSamples(900, DataTime{}), 100);
     rig.Drain();
     ASSERT_NE(rig.scheduler().active(0), nullptr);
     EXPECT_EQ(rig.Logged("the verdict will read alert before each retrain"), alert && *alert < 1)
@@ -306,7 +306,7 @@ TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
   Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
   ASSERT_TRUE(rig.scheduler().SetPaused(0, true).ok());
   EXPECT_TRUE(rig.scheduler().paused(0));
-  rig.Send(testing::LorenzSamples(1200, 0), 100);  // well past the first due time
+  rig.Send(testing::LorenzSamples(1200, DataTime{}), 100);  // well past the first due time
   rig.Drain();
   EXPECT_EQ(rig.scheduler().schedule(0).last_job, std::nullopt);
   EXPECT_EQ(rig.scheduler().Trigger(0, TriggerKind::kOperator, "x").status().code(),
@@ -322,7 +322,7 @@ TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
   Rig rig(config, db, /*lockstep=*/true, 4096);
-  rig.Send(testing::LorenzSamples(1200, 0), 100);
+  rig.Send(testing::LorenzSamples(1200, DataTime{}), 100);
   rig.Drain();
   ASSERT_GE(rig.scheduler().active(0)->record.version, 2);
   ASSERT_TRUE(rig.scheduler().Activate(0, 1, "roll back for a test").ok());
@@ -331,7 +331,7 @@ TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
   EXPECT_EQ(rig.scheduler().Activate(0, 99, "x").code(), StatusCode::kNotFound);
   EXPECT_EQ(rig.scheduler().active(0)->record.version, 1) << "a failed activation changes nothing";
 
-  rig.Send(testing::LorenzSamples(800, 12'000'000), 100);
+  rig.Send(testing::LorenzSamples(800, DataTimeFromMicros(12'000'000)), 100);
   rig.Drain();
   const FeedSchedule s = rig.scheduler().schedule(0);
   ASSERT_TRUE(s.last_job.has_value());
@@ -341,7 +341,7 @@ TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
   // The first job after the rollback warm-started from version 1.
   bool found = false;
   for (auto it = list->rbegin(); it != list->rend(); ++it) {
-    if (it->trained_to > 12'000'000) {
+    if (it->trained_to > DataTimeFromMicros(12'000'000)) {
       EXPECT_EQ(it->parent, 1);
       found = true;
       break;
@@ -354,9 +354,9 @@ TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
   const Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
-  const std::vector<FeedSample> data = testing::LorenzSamples(2000, 0);
+  const std::vector<FeedSample> data = testing::LorenzSamples(2000, DataTime{});
   std::int64_t active_before = 0;
-  DataTime last_before = 0, due_before = 0;
+  DataTime last_before{}, due_before{};
   {
     Rig rig(config, db, /*lockstep=*/true, 4096);
     rig.Send({data.begin(), data.begin() + 1200}, 100);

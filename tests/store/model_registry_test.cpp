@@ -33,7 +33,7 @@ std::string Shell(const fs::path& db, const std::string& sql) {
 std::unique_ptr<WindowStore> Open(const fs::path& db) {
   auto store = WindowStore::Open(StoreOptions{db, false, 5000});
   EXPECT_TRUE(store.ok()) << store.status().ToString();
-  EXPECT_TRUE((*store)->RegisterFeeds({{"loop-a", {"flow", "dtemp_h"}, 500'000}, {"rig-b", {"x"}, 100'000}}).ok());
+  EXPECT_TRUE((*store)->RegisterFeeds({{"loop-a", {"flow", "dtemp_h"}, Micros(500'000)}, {"rig-b", {"x"}, Micros(100'000)}}).ok());
   return std::move(store).value();
 }
 
@@ -44,8 +44,8 @@ ModelRecord Candidate(ModelStatus status, const std::string& reason, std::option
   r.status = status;
   r.reason = reason;
   r.parent = parent;
-  r.trained_from = 1'000'000;
-  r.trained_to = 2'000'000;
+  r.trained_from = DataTimeFromMicros(1'000'000);
+  r.trained_to = DataTimeFromMicros(2'000'000);
   r.validation_error = 0.01;
   r.details = R"({"iterations":10})";
   r.file = std::string("LYAPMODL") + std::string(40, '\x01') + reason;

@@ -32,7 +32,7 @@ class TempDir : public lyapcast::testing::TempDir {
   TempDir() : lyapcast::testing::TempDir("lyapcast-writer-test") {}
 };
 
-DataTime Sec(double s) { return static_cast<DataTime>(std::llround(s * 1e6)); }
+DataTime Sec(double s) { return DataTimeFromMicros(std::llround(s * 1e6)); }
 
 FeedSample Make(DataTime t, double v, std::uint32_t feed = 0) {
   FeedSample fs;
@@ -48,7 +48,7 @@ std::unique_ptr<WindowStore> OpenStore(const fs::path& path) {
   auto store = WindowStore::Open(options);
   EXPECT_TRUE(store.ok()) << store.status().ToString();
   if (!store.ok()) return nullptr;
-  Status s = (*store)->RegisterFeeds({{"rig", {"x", "y"}, kMicrosPerSecond}, {"rig-b", {"x", "y"}, kMicrosPerSecond}});
+  Status s = (*store)->RegisterFeeds({{"rig", {"x", "y"}, kSecond}, {"rig-b", {"x", "y"}, kSecond}});
   EXPECT_TRUE(s.ok()) << s.ToString();
   return std::move(store).value();
 }
@@ -109,9 +109,9 @@ bool Eventually(Pred pred) {
 
 WriterOptions FastOptions() {
   WriterOptions o;
-  o.commit_every = 2'000;
-  o.retry_after_failure = 10'000;
-  o.retention = 3600 * kMicrosPerSecond;
+  o.commit_every = Micros(2'000);
+  o.retry_after_failure = Micros(10'000);
+  o.retention = 3600 * kSecond;
   return o;
 }
 
@@ -125,8 +125,8 @@ TEST(SampleWriter, GroupsManySubmissionsIntoFewTransactions) {
   // The group closes when all of them are queued (commit_batch) long before
   // the generous commit_every runs out.
   options.commit_batch = kSubmissions;
-  options.commit_every = 20 * kMicrosPerSecond;
-  options.commit_quiet = 20 * kMicrosPerSecond;
+  options.commit_every = 20 * kSecond;
+  options.commit_quiet = 20 * kSecond;
   SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
   ASSERT_TRUE(writer.Start().ok());
   Completions done;
@@ -149,8 +149,8 @@ TEST(SampleWriter, GroupsManySubmissionsIntoFewTransactions) {
 TEST(SampleWriter, CommitsEarlyWhenNoMoreSubmissionsArrive) {
   TempDir dir;
   WriterOptions options = FastOptions();
-  options.commit_every = 60 * kMicrosPerSecond;
-  options.commit_quiet = 1'000;
+  options.commit_every = 60 * kSecond;
+  options.commit_quiet = Micros(1'000);
   SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
   ASSERT_TRUE(writer.Start().ok());
   Completions done;
@@ -186,7 +186,7 @@ TEST(SampleWriter, CompletesInSubmissionOrderWithOneOutcomePerSample) {
 TEST(SampleWriter, RejectsSamplesOlderThanRetentionBeforeTheNewest) {
   TempDir dir;
   WriterOptions options = FastOptions();
-  options.retention = 10 * kMicrosPerSecond;
+  options.retention = 10 * kSecond;
   SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
   ASSERT_TRUE(writer.Start().ok());
   ASSERT_TRUE(Accepted(SubmitAndWait(writer, {Make(Sec(100), 1)}).at(0)));
@@ -243,7 +243,7 @@ TEST(SampleWriter, AMalformedSampleIsRejectedAloneNotWithItsGroup) {
 TEST(SampleWriter, SubscribersSeeOnlyNewlyStoredSamples) {
   TempDir dir;
   WriterOptions options = FastOptions();
-  options.retention = 10 * kMicrosPerSecond;
+  options.retention = 10 * kSecond;
   SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
   std::mutex mu;
   std::vector<std::vector<DataTime>> batches;
@@ -274,7 +274,7 @@ TEST(SampleWriter, StopCommitsAndCompletesEverythingSubmitted) {
   TempDir dir;
   const fs::path db = dir.path() / "w.db";
   WriterOptions options = FastOptions();
-  options.commit_every = 60 * kMicrosPerSecond;  // only Stop() ends the group window
+  options.commit_every = 60 * kSecond;  // only Stop() ends the group window
   options.commit_batch = 1'000'000;
   Completions done;
   constexpr int kSubmissions = 40;
@@ -312,8 +312,8 @@ TEST(SampleWriter, StopBeforeStartStillCompletesSubmissions) {
 TEST(SampleWriter, PrunesPastRetentionInBatches) {
   TempDir dir;
   WriterOptions options = FastOptions();
-  options.retention = 10 * kMicrosPerSecond;
-  options.prune_every = 1'000;
+  options.retention = 10 * kSecond;
+  options.prune_every = Micros(1'000);
   options.prune_batch = 7;
   SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, options);
   ASSERT_TRUE(writer.Start().ok());
@@ -345,8 +345,8 @@ TEST(SampleWriter, PrunesABacklogAtStartUp) {
     ASSERT_TRUE(store->InsertBatch(samples, &outcomes).ok());
   }
   WriterOptions options = FastOptions();
-  options.retention = 50 * kMicrosPerSecond;
-  options.prune_every = 60 * kMicrosPerSecond;  // the start-up pass continues without waiting for this
+  options.retention = 50 * kSecond;
+  options.prune_every = 60 * kSecond;  // the start-up pass continues without waiting for this
   options.prune_batch = 20;
   SampleWriter writer(OpenStore(db), 2, options);
   ASSERT_TRUE(writer.Start().ok());

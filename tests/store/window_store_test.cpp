@@ -45,10 +45,10 @@ std::string Shell(const fs::path& db, const std::string& sql) {
   return out;
 }
 
-FeedLayout LoopA() { return {"loop-a", {"flow", "dtemp_h", "dtemp_v"}, 500'000}; }
-FeedLayout Rig() { return {"rig-2", {"x", "y"}, 1'000'000}; }
+FeedLayout LoopA() { return {"loop-a", {"flow", "dtemp_h", "dtemp_v"}, Micros(500'000)}; }
+FeedLayout Rig() { return {"rig-2", {"x", "y"}, Micros(1'000'000)}; }
 
-DataTime Sec(double s) { return static_cast<DataTime>(std::llround(s * 1e6)); }
+DataTime Sec(double s) { return DataTimeFromMicros(std::llround(s * 1e6)); }
 
 FeedSample Make(std::uint32_t feed, DataTime t, std::vector<double> values, std::uint64_t mask = 0) {
   FeedSample fs;
@@ -73,8 +73,8 @@ std::unique_ptr<WindowStore> OpenOrDie(const fs::path& path, bool read_only = fa
 }
 
 std::vector<Sample> ReadAll(WindowStore& store, std::uint32_t feed, int slice_rows = 1000,
-                            DataTime from = std::numeric_limits<DataTime>::min(),
-                            DataTime to = std::numeric_limits<DataTime>::max()) {
+                            DataTime from = DataTime::min(),
+                            DataTime to = DataTime::max()) {
   std::vector<Sample> out;
   const Status s = store.ReadRange(feed, from, to, slice_rows, [&](std::span<const Sample> slice) {
     out.insert(out.end(), slice.begin(), slice.end());
@@ -240,7 +240,7 @@ TEST(WindowStoreFeeds, RefusesAChangedStep) {
   auto store = OpenOrDie(db);  // also across a restart
   ASSERT_NE(store, nullptr);
   FeedLayout changed = LoopA();
-  changed.step = kMicrosPerSecond;
+  changed.step = kSecond;
   const Status s = store->RegisterFeeds({changed});
   ASSERT_EQ(s.code(), StatusCode::kFailedPrecondition);
   EXPECT_NE(s.message().find("recorded channels [flow, dtemp_h, dtemp_v] and step 500ms"), std::string::npos)
@@ -271,7 +271,7 @@ TEST(WindowStoreFeeds, ReadOnlyBindsExistingFeedsOnly) {
   EXPECT_EQ(absent.code(), StatusCode::kNotFound) << absent.ToString();
   EXPECT_NE(absent.message().find("rig-2"), std::string::npos);
   FeedLayout changed = LoopA();
-  changed.step = 250'000;
+  changed.step = Micros(250'000);
   EXPECT_EQ(reader->RegisterFeeds({changed}).code(), StatusCode::kFailedPrecondition);
   ASSERT_TRUE(reader->RegisterFeeds({LoopA()}).ok());
   EXPECT_EQ(ReadAll(*reader, 0).size(), 2U);
@@ -383,7 +383,7 @@ TEST(WindowStoreData, ReadsInSlicesAndStopsEarly) {
   EXPECT_EQ(part.front().t, Sec(2));
   EXPECT_EQ(part.back().t, Sec(4));
   EXPECT_TRUE(ReadAll(*store, 0, 3, Sec(50), Sec(60)).empty());
-  EXPECT_EQ(store->ReadRange(0, 0, 1, 0, [](std::span<const Sample>) { return true; }).code(),
+  EXPECT_EQ(store->ReadRange(0, DataTime{}, DataTimeFromMicros(1), 0, [](std::span<const Sample>) { return true; }).code(),
             StatusCode::kInvalidArgument);
 }
 
@@ -438,8 +438,8 @@ TEST(WindowStoreData, ExtentOfAnEmptyFeedIsZero) {
   auto extent = store->Extent(0);
   ASSERT_TRUE(extent.ok());
   EXPECT_EQ(extent->count, 0);
-  EXPECT_EQ(extent->oldest, 0);
-  EXPECT_EQ(extent->newest, 0);
+  EXPECT_EQ(extent->oldest, DataTime{});
+  EXPECT_EQ(extent->newest, DataTimeFromMicros(0));
   EXPECT_FALSE(store->Extent(2).ok());
 }
 

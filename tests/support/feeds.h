@@ -32,7 +32,7 @@ inline FeedConfig MakeFeed(std::string id, std::vector<std::string> channels,
 // rho = 28, beta = 8/3), channels x, y, z; model time unit 1 s.
 inline constexpr double kLorenzSigma = 10.0, kLorenzRho = 28.0, kLorenzBeta = 8.0 / 3.0;
 
-inline FeedConfig LorenzFeed(double rho = kLorenzRho, Micros step = 10'000) {
+inline FeedConfig LorenzFeed(double rho = kLorenzRho, Micros step = Micros(10'000)) {
   FeedConfig f = MakeFeed("lorenz", {"x", "y", "z"},
                           {{"x", "sigma*(y - x)"}, {"y", "x*(rho - z) - y"}, {"z", "x*y - beta*z"}},
                           {{"sigma", kLorenzSigma}, {"rho", rho}, {"beta", kLorenzBeta}});
@@ -61,7 +61,7 @@ inline std::vector<FeedSample> LorenzSamples(int n, DataTime t0) {
   x = IntegrateRk4(f, x, 20.0, 2e-3);
   std::vector<FeedSample> out;
   for (int i = 0; i < n; ++i) {
-    out.push_back({0, Sample{t0 + i * 10'000LL, {x[0], x[1], x[2]}, 0}});
+    out.push_back({0, Sample{t0 + i * Micros(10'000), {x[0], x[1], x[2]}, 0}});
     x = IntegrateRk4(f, x, 0.01, 2e-3);
   }
   return out;

@@ -63,7 +63,7 @@ using namespace lyapcast;
 namespace fs = std::filesystem;
 using Clock = std::chrono::steady_clock;
 
-constexpr Micros kStep = 10'000;  // model step: 10 ms of data time
+constexpr Micros kStep{10'000};  // model step: 10 ms of data time
 constexpr double kDt = 0.01;      // the same in model time units (1 s)
 constexpr double kSigma = 10.0, kRho = 28.0, kBeta = 8.0 / 3.0;
 // The drift: rho (the reduced Rayleigh number, i.e. how hard the convection
@@ -96,7 +96,7 @@ void Must(const Status& s, const char* what) {
   if (!s.ok()) Fail(fmt::format("{}: {}", what, s.ToString()));
 }
 
-double Seconds(Clock::time_point since) { return std::chrono::duration<double>(Clock::now() - since).count(); }
+double ElapsedSeconds(Clock::time_point since) { return std::chrono::duration<double>(Clock::now() - since).count(); }
 
 double Median(std::vector<double> v) {
   if (v.empty()) return std::nan("");
@@ -114,10 +114,12 @@ double Mean(const std::vector<double>& v) {
 // JSON has no NaN: unknown figures are null.
 std::string Json(double v, int decimals = 4) { return std::isfinite(v) ? fmt::format("{:.{}f}", v, decimals) : "null"; }
 
-DataTime TimeOf(std::size_t index) { return static_cast<DataTime>(index) * kStep; }
+DataTime TimeOf(std::size_t index) { return DataTime{} + static_cast<std::int64_t>(index) * kStep; }
 std::size_t IndexAt(double seconds) { return static_cast<std::size_t>(std::llround(seconds / kDt)); }
 // First sample index whose time is at or after t (t >= 0).
-std::size_t FirstIndexFrom(DataTime t) { return static_cast<std::size_t>((t + kStep - 1) / kStep); }
+std::size_t FirstIndexFrom(DataTime t) {
+  return static_cast<std::size_t>((t.time_since_epoch() + kStep - Micros(1)) / kStep);
+}
 
 // A fresh folder for the SQLite files, removed with its contents at exit.
 class TempDir {
@@ -158,8 +160,8 @@ struct Settings {
 RetrainConfig PlantRetrain() {
   RetrainConfig r;
   r.lyapunov_fraction = 4.0;
-  r.min_interval = 2 * kMicrosPerSecond;
-  r.max_interval = 30 * kMicrosPerSecond;
+  r.min_interval = 2 * kSecond;
+  r.max_interval = 30 * kSecond;
   r.iterations = 2000;
   return r;
 }
@@ -172,7 +174,7 @@ FeedConfig LorenzFeed(std::vector<ConstraintConfig> constraints = {}) {
   f.channels = {"x", "y", "z"};
   f.step = kStep;
   DynamicsConfig d;
-  d.time_unit = kMicrosPerSecond;
+  d.time_unit = kSecond;
   d.equations = {{"x", "sigma*(y - x)"}, {"y", "x*(rho - z) - y"}, {"z", "x*y - beta*z"}};
   d.constants = {{"sigma", kSigma}, {"rho", kRho}, {"beta", kBeta}};
   d.constraints = std::move(constraints);
@@ -306,7 +308,7 @@ WarmTiming TimeWarmRetrain(const fs::path& file, const Truth& truth, std::uint64
   const auto started = Clock::now();
   auto out = Must(RunRetrain(*db.reader, *db.registry, Input(warm, TimeOf(fresh), active, seed + 1)), "warm start");
   WarmTiming t;
-  t.wall_s = Seconds(started);
+  t.wall_s = ElapsedSeconds(started);
   t.fit_s = out.fit.seconds;
   t.iterations = out.fit.iterations;
   t.verdict = RetrainVerdictName(out.verdict);
@@ -325,7 +327,7 @@ struct StreamPlan {
 
 // A model version and the data time from which it was served.
 struct Served {
-  DataTime from = 0;
+  DataTime from{};
   std::int64_t version = 0;
   FlowMap<float> model;
 };
@@ -383,17 +385,17 @@ ContinualRun RunContinual(const fs::path& file, const FeedConfig& feed, const Tr
     Insert(*db.writer, truth, FirstIndexFrom(since), FirstIndexFrom(next.due), stride);
     const auto started = Clock::now();
     auto out = Must(RunRetrain(*db.reader, *db.registry, Input(feed, next.due, *active, settings.seed + k)), "retrain");
-    run.retrain_wall_s += Seconds(started);
+    run.retrain_wall_s += ElapsedSeconds(started);
     ++run.retrains;
-    (since < change ? run.intervals_before_s : run.intervals_after_s).push_back(static_cast<double>(next.interval) / 1e6);
+    (since < change ? run.intervals_before_s : run.intervals_after_s).push_back(Seconds(next.interval));
     if (next.interval == feed.retrain.max_interval) ++run.max_interval_fallbacks;
     const std::string verdict = RetrainVerdictName(out.verdict);
     ++run.verdicts[verdict];
     run.first_reason.emplace(verdict, out.reason);
     if (settings.verbose) {
       const std::string lambda = out.lyapunov_per_s ? fmt::format("{:.3f}/s", *out.lyapunov_per_s) : "?";
-      std::printf("    t=%7.2fs  interval %5.2fs  %-9s candidate lambda %-8s %s\n", static_cast<double>(next.due) / 1e6,
-                  static_cast<double>(next.interval) / 1e6, verdict.c_str(), lambda.c_str(), out.reason.c_str());
+      std::printf("    t=%7.2fs  interval %5.2fs  %-9s candidate lambda %-8s %s\n", ToEpochSeconds(next.due),
+                  Seconds(next.interval), verdict.c_str(), lambda.c_str(), out.reason.c_str());
     }
     if (out.verdict == RetrainVerdict::kPromoted) {
       active = Must(db.registry->Active(0), "reading the active model");
@@ -524,7 +526,7 @@ DriftResult RunDrift(const fs::path& file, const FeedConfig& feed, const Truth& 
   r.run = RunContinual(file, feed, truth, plan, stride, nominal_lambda, settings);
   r.before = ScoreSegment(r.run, truth, before, stride);
   r.after = ScoreSegment(r.run, truth, after, stride);
-  r.wall_s = Seconds(started);
+  r.wall_s = ElapsedSeconds(started);
   return r;
 }
 
@@ -706,7 +708,7 @@ int main(int argc, char** argv) {
   std::printf("   the two arms' served models are %s\n",
               identical ? "BIT-IDENTICAL: the velocity term never acted" : "different");
 
-  const double total = Seconds(started);
+  const double total = ElapsedSeconds(started);
   std::printf("\ntotal wall time %.1fs\n", total);
   std::printf(
       R"({"bench":"retrain","quick":%s,"runs":%d,"seed":%llu,"warm_retrain":{"iterations":2000,"wall_s":%s,)"

@@ -145,10 +145,10 @@ double TrainerIterations(const std::vector<ConstraintConfig>& constraints, int i
   x = IntegrateRk4(f, x, 20.0, 1e-3);
   std::vector<Sample> samples;
   for (int i = 0; i < 5000; ++i) {
-    samples.push_back(Sample{i * 10'000LL, {x[0], x[1], x[2]}, 0});
+    samples.push_back(Sample{DataTimeFromMicros(i * 10'000LL), {x[0], x[1], x[2]}, 0});
     x = IntegrateRk4(f, x, 0.01, 2e-3);
   }
-  const GridSeries grid = ResampleToGrid(samples, 3, {10'000, 0});
+  const GridSeries grid = ResampleToGrid(samples, 3, {Micros(10'000), Micros{}});
   const TrajectorySet set = BuildTrajectories(grid, {1, 8, 0.2});
   auto norm = ComputeNormalization(grid, set.validation_begin, 0.01).value();
   FlowMap<float> model = FlowMap<float>::Create(3, {64, 64}, Activation::kTanh, 0.01).value();

@@ -73,7 +73,7 @@ Result<double> NumberArg(const std::string& text, const char* name) {
 
 Result<Micros> DurationArg(const std::string& text, const char* name) {
   auto d = ParseDuration(text);
-  if (!d.ok() || *d < 0)
+  if (!d.ok() || *d < Micros{})
     return Status::Invalid(fmt::format("{} '{}': expected a duration such as 30s or 5m", name, text));
   return *d;
 }
@@ -84,8 +84,8 @@ Status ApplyThresholds(const json& status, const CheckArgs& a, HealthConfig* h, 
   if (const json* t = Path(status, {"health", "thresholds"})) {
     if (auto v = Number(Field(*t, "drift_alert"))) h->drift_alert = *v;
     if (auto v = Number(Field(*t, "drift_alarm"))) h->drift_alarm = *v;
-    if (auto v = Number(Field(*t, "data_age_alert_s"))) h->data_age_alert = std::llround(*v * 1e6);
-    if (auto v = Number(Field(*t, "data_age_alarm_s"))) h->data_age_alarm = std::llround(*v * 1e6);
+    if (auto v = Number(Field(*t, "data_age_alert_s"))) h->data_age_alert = MicrosFromSeconds(*v);
+    if (auto v = Number(Field(*t, "data_age_alarm_s"))) h->data_age_alarm = MicrosFromSeconds(*v);
     if (auto v = Number(Field(*t, "model_age_alert_lyapunov"))) model_age->alert = *v;
     if (auto v = Number(Field(*t, "model_age_alarm_lyapunov"))) model_age->alarm = *v;
     model_age->alert_derived = Bool(Field(*t, "model_age_alert_derived")).value_or(false);
@@ -246,8 +246,8 @@ int RunCheck(const CheckArgs& a) {
     const HealthConfig& t = c.thresholds;
     perf += fmt::format("{}{}drift_ratio={} {}data_age={} {}model_age_lyapunov={}", perf.empty() ? "" : " ", prefix,
                         Perf(c.inputs.drift_ratio, "", t.drift_alert, t.drift_alarm), prefix,
-                        Perf(c.inputs.data_age_s, "s", static_cast<double>(t.data_age_alert) / 1e6,
-                             static_cast<double>(t.data_age_alarm) / 1e6),
+                        Perf(c.inputs.data_age_s, "s", Seconds(t.data_age_alert),
+                             Seconds(t.data_age_alarm)),
                         prefix, Perf(c.inputs.since_training_lyapunov_times, "", c.model_age.alert, c.model_age.alarm));
   }
   std::printf("%s%s%s\n", Clean(text).c_str(), perf.empty() ? "" : " | ", perf.c_str());

@@ -46,7 +46,7 @@ Result<SampleFile> ReadSamples(const std::filesystem::path& path, const LoadedFe
     in = &file;
   }
   // Offline files may hold any data time: no future-skew check.
-  LineParser parser(feed.config, std::numeric_limits<Micros>::max() / 4);
+  LineParser parser(feed.config, Micros::max() / 4);
   SampleFile out;
   std::string line;
   std::int64_t line_no = 0;
@@ -55,7 +55,7 @@ Result<SampleFile> ReadSamples(const std::filesystem::path& path, const LoadedFe
     ++line_no;
     const auto first = line.find_first_not_of(" \t\r");
     if (first == std::string::npos || line[first] == '#') continue;
-    ParsedLine p = parser.Parse(line, 0);
+    ParsedLine p = parser.Parse(line, WallTime{});
     if (p.kind != ParsedLine::Kind::kSample) {
       if (p.kind == ParsedLine::Kind::kReject && p.reason == RejectReason::kUnknownFeed) {
         return Status::Invalid(fmt::format("{}:{}: {}", path.string(), line_no, p.message));

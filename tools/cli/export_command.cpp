@@ -64,7 +64,7 @@ int RunExport(const ExportArgs& a) {
     out = std::fopen(tmp.c_str(), "w");
     if (out == nullptr) return PrintError(kCmd, "cannot write " + tmp), kExitFailure;
   }
-  ProgressLine progress(std::max<std::int64_t>((*to - *from) / 10, 1));
+  ProgressLine progress(std::max<std::int64_t>((*to - *from).count() / 10, 1));
   const auto fail = [&](const std::string& message, int code) {
     progress.Finish();
     if (!tmp.empty()) {
@@ -117,13 +117,13 @@ int RunExport(const ExportArgs& a) {
         have_last = true;
       }
     }
-    progress.Update(reached - *from, *to - *from,
+    progress.Update((reached - *from).count(), (*to - *from).count(),
                     fmt::format("{} samples exported, up to {}", rows, page_rows > 0 ? TimeText(reached) : page_from));
     std::string next = NextFrom(res->Header(kLinkHeader));
     // Without the header, a full page may not be the last: go on after its
     // last row (times are whole microseconds; the range is [from, to)).
     if (next.empty() && have_last && page_rows == static_cast<std::size_t>(a.page_size)) {
-      next = FormatRfc3339(reached + 1);
+      next = FormatRfc3339(reached + Micros(1));
     }
     if (next.empty()) break;
     auto next_t = ParseTimeOption(next, "from");

@@ -31,7 +31,8 @@ class Noise {
 std::string FormatLine(SampleFormat format, const std::string& feed_id, const std::vector<std::string>& channels,
                        DataTime t, const std::vector<double>& x, std::uint64_t missing) {
   std::string line;
-  const auto t_text = fmt::format("{}.{:06d}", t / kMicrosPerSecond, t % kMicrosPerSecond);
+  const std::int64_t us = EpochMicros(t);
+  const auto t_text = fmt::format("{}.{:06d}", us / 1'000'000, us % 1'000'000);
   if (format == SampleFormat::kNdjson) {
     line = fmt::format(R"({{"feed":"{}","t":{},"values":{{)", feed_id, t_text);
     bool first = true;
@@ -74,10 +75,10 @@ Result<FeedSimulator> FeedSimulator::Create(const FeedConfig& feed, Dynamics dyn
   if (static_cast<std::size_t>(dynamics.dim()) != dim || dynamics.feed_id() != feed.id) {
     return Status::Invalid(fmt::format("feed '{}': the dynamics were not compiled from this feed", feed.id));
   }
-  if (o.step == 0) o.step = feed.step;
-  if (o.step <= 0) return Status::Invalid(fmt::format("feed '{}': the step must be positive", feed.id));
-  if (o.duration <= 0) return Status::Invalid(fmt::format("feed '{}': the duration must be positive", feed.id));
-  if (o.transient < 0) return Status::Invalid(fmt::format("feed '{}': the transient must be >= 0", feed.id));
+  if (o.step == Micros{}) o.step = feed.step;
+  if (o.step <= Micros{}) return Status::Invalid(fmt::format("feed '{}': the step must be positive", feed.id));
+  if (o.duration <= Micros{}) return Status::Invalid(fmt::format("feed '{}': the duration must be positive", feed.id));
+  if (o.transient < Micros{}) return Status::Invalid(fmt::format("feed '{}': the transient must be >= 0", feed.id));
   if (o.from.empty()) o.from.assign(dim, 1.0);
   if (o.from.size() != dim) {
     return Status::Invalid(fmt::format("feed '{}': the initial state needs {} numbers, one per channel; got {}",
@@ -102,13 +103,13 @@ Result<FeedSimulator> FeedSimulator::Create(const FeedConfig& feed, Dynamics dyn
   const Dynamics* dyn = &s->dyn;
   s->f = [dyn](const double* state, double* dx) { dyn->Eval(state, dx); };
   s->channels = feed.channels;
-  const double unit = static_cast<double>(s->dyn.time_unit());
-  s->model_step = static_cast<double>(o.step) / unit;
+  const double unit_s = Seconds(s->dyn.time_unit());
+  s->model_step = Seconds(o.step) / unit_s;
   // RK4 substeps of at most 2e-3 model units (and at least 4 per sample):
   // far below the sensor noise for the dynamics this tool is meant for.
   s->h = s->model_step / std::max(4.0, std::ceil(s->model_step / 2e-3));
   s->x = Eigen::Map<const Eigen::VectorXd>(o.from.data(), static_cast<Eigen::Index>(dim));
-  if (o.transient > 0) s->x = IntegrateRk4(s->f, s->x, static_cast<double>(o.transient) / unit, s->h);
+  if (o.transient > Micros{}) s->x = IntegrateRk4(s->f, s->x, Seconds(o.transient) / unit_s, s->h);
   s->reading.resize(dim);
   const Micros step = o.step;
   const std::int64_t total = o.duration / step;

@@ -35,10 +35,10 @@ enum class SampleFormat {
 };
 
 struct FeedSimulatorOptions {
-  DataTime start = 0;       // data time of the first sample (offset 0)
-  Micros duration = 0;      // > 0; the simulator takes duration / step steps (rounded down)
-  Micros step = 0;          // time between samples; 0 = the feed's step
-  Micros transient = 0;     // >= 0: integrated before the first sample
+  DataTime start{};       // data time of the first sample (offset 0)
+  Micros duration{};      // > 0; the simulator takes duration / step steps (rounded down)
+  Micros step{};          // time between samples; 0 = the feed's step
+  Micros transient{};     // >= 0: integrated before the first sample
   std::vector<double> from;   // initial state, one per channel; empty = 1 for every channel
   std::vector<double> noise;  // noise std per channel, in channel units; empty = none
   double gap_rate = 0;        // [0, 1): probability that a step's sample is dropped
@@ -52,7 +52,7 @@ class FeedSimulator {
  public:
   // What one step produced.
   struct Step {
-    Micros offset = 0;  // data time of the step minus options.start
+    Micros offset{};  // data time of the step minus options.start
     bool kept = false;  // false: the sample was dropped (a gap)
     std::string line;   // the ingest line without a newline, when kept
   };
@@ -94,7 +94,7 @@ class FeedSimulator {
 
   std::unique_ptr<State> s_;
   std::string feed_id_;
-  Micros step_ = 0;
+  Micros step_{};
   std::int64_t total_ = 0;
   std::int64_t next_ = 0;
   std::int64_t kept_ = 0;

@@ -42,9 +42,10 @@ void Iterate(const FlowMap<T>& model, const std::vector<double>& from, int steps
   for (int k = 1; k <= steps; ++k) {
     model.Forward(x, &y, &cache);
     x.swap(y);
-    const DataTime t = start + static_cast<DataTime>(k) * step;
-    std::string line = absolute ? fmt::format("{},{}.{:06d}", k, t / kMicrosPerSecond, t % kMicrosPerSecond)
-                                : fmt::format("{},{:.6f}", k, static_cast<double>(t) / 1e6);
+    const DataTime t = start + static_cast<std::int64_t>(k) * step;
+    const std::int64_t us = EpochMicros(t);
+    std::string line = absolute ? fmt::format("{},{}.{:06d}", k, us / 1'000'000, us % 1'000'000)
+                                : fmt::format("{},{:.6f}", k, ToEpochSeconds(t));
     for (int c = 0; c < model.channels(); ++c) line += fmt::format(",{:.9g}", static_cast<double>(x(c, 0)));
     std::puts(line.c_str());
   }
@@ -68,7 +69,7 @@ int RunForecast(const ForecastArgs& a) {
   auto from = ParseNumberList(a.from, file->channels.size(), "--from");
   if (!from.ok()) return PrintError(kCmd, from.status().message()), kExitUsage;
   if (a.steps < 1) return PrintError(kCmd, "--steps must be at least 1"), kExitUsage;
-  DataTime start = 0;
+  DataTime start{};
   const bool absolute = !a.start.empty();
   if (absolute) {
     auto t = ParseRfc3339(a.start);
@@ -159,7 +160,7 @@ void PrintForecastTable(const json& f) {
       const auto t = TimeOf(Field(p, "t"));
       std::vector<std::string> row{
           t ? time_text(*t) : "?",
-          t && from ? fmt::format("{:.{}f}", static_cast<double>(*t - *from) / 1e6, decimals) : "?"};
+          t && from ? fmt::format("{:.{}f}", Seconds(*t - *from), decimals) : "?"};
       const json* values = Field(p, "values");
       for (std::size_t c = 0; c < channels.size(); ++c) {
         row.push_back(values != nullptr && values->is_array() && c < values->size() ? Num(Number(&(*values)[c]), 6)
@@ -210,7 +211,7 @@ int RunRemoteForecast(const ForecastArgs& a) {
     query = fmt::format("steps={}", a.steps);
   } else if (a.horizon_given) {
     auto d = ParseDuration(a.horizon);
-    if (!d.ok() || *d <= 0) {
+    if (!d.ok() || *d <= Micros{}) {
       return PrintError(kCmd, fmt::format("--horizon '{}': expected a positive duration such as 30s or 5m", a.horizon)),
              kExitUsage;
     }

@@ -133,8 +133,8 @@ HttpClient::HttpClient(HttpUrl url, std::string token, Micros timeout)
 HttpClient::~HttpClient() = default;
 
 Result<HttpClientResponse> HttpClient::Send(const HttpClientRequest& request) {
-  const auto limit = std::chrono::microseconds(timeout_ > 0 ? timeout_ : 10 * kMicrosPerSecond);
-  const std::string limit_text = FormatDuration(limit.count());
+  const Micros limit = timeout_ > Micros{} ? timeout_ : 10 * kSecond;
+  const std::string limit_text = FormatDuration(limit);
   Impl& im = *impl_;
   for (int attempt = 0;; ++attempt) {
     const bool reused = im.stream.has_value() && im.exchanges > 0;

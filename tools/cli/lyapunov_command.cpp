@@ -65,7 +65,7 @@ int RunLyapunov(const LyapunovArgs& a) {
       if (!s.missing(channel)) series.push_back(s.values[static_cast<std::size_t>(channel)]);
       if (s.complete()) start = Eigen::Map<const Eigen::VectorXd>(s.values.data(), static_cast<Eigen::Index>(s.values.size()));
     }
-    auto r = RosensteinLargest(series, static_cast<double>(f.step) / 1e6);
+    auto r = RosensteinLargest(series, Seconds(f.step));
     if (!r.ok()) return PrintError(kCmd, "data: " + r.status().message()), kExitFailure;
     rows.push_back({"data (Rosenstein, " + f.channels[static_cast<std::size_t>(channel)] + ")", r->lambda, "-",
                     fmt::format("lag {}, dimension {}, Theiler {}, fit steps [{}, {}), R^2 {:.4f}", r->lag,
@@ -75,7 +75,7 @@ int RunLyapunov(const LyapunovArgs& a) {
   if (!a.model.empty()) {
     auto file = LoadModel(a.model);
     if (!file.ok()) return PrintError(kCmd, file.status().message()), kExitUsage;
-    const double per_second = 1e6 / static_cast<double>(file->time_unit_micros);
+    const double per_second = 1.0 / Seconds(file->time_unit_micros);
     const auto estimate = std::visit(
         [&](const auto& model) {
           const MapStep step = LearnedMapStep(model);
@@ -96,8 +96,8 @@ int RunLyapunov(const LyapunovArgs& a) {
     const FeedConfig& f = feed->feed();
     auto dynamics = Dynamics::Compile(f);
     if (!dynamics.ok()) return PrintError(kCmd, dynamics.status().message()), kExitUsage;
-    const double unit = static_cast<double>(f.dynamics->time_unit);
-    const double dt = static_cast<double>(f.step) / unit;
+    const double unit_s = Seconds(f.dynamics->time_unit);
+    const double dt = Seconds(f.step) / unit_s;
     const MapStep step = FlowMapStep(*dynamics, dt, std::max(1, static_cast<int>(std::ceil(dt / 5e-3))));
     Eigen::VectorXd x0 = start ? *start : Eigen::VectorXd::Ones(static_cast<Eigen::Index>(f.channels.size()));
     SpectrumOptions o;
@@ -105,7 +105,7 @@ int RunLyapunov(const LyapunovArgs& a) {
     o.transient_steps = o.steps / 10;
     auto estimate = LyapunovSpectrum(step, x0, o);
     if (!estimate.ok()) return PrintError(kCmd, "dynamics: " + estimate.status().message()), kExitFailure;
-    const double per_second = 1e6 / unit;
+    const double per_second = 1.0 / unit_s;
     rows.push_back({"dynamics (QR on the tangent dynamics)", estimate->exponents[0] * per_second,
                     Spectrum(estimate->exponents, per_second),
                     fmt::format("{} steps, converged to {:.2g}", estimate->steps, estimate->convergence * per_second)});

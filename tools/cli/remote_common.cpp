@@ -34,7 +34,7 @@ Result<std::unique_ptr<Remote>> Remote::Open(const RemoteArgs& args) {
   auto parsed = ParseHttpUrl(url);
   if (!parsed.ok()) return parsed.status();
   auto timeout = ParseDuration(args.timeout);
-  if (!timeout.ok() || *timeout <= 0) {
+  if (!timeout.ok() || *timeout <= Micros{}) {
     return Status::Invalid(
         fmt::format("--timeout '{}': expected a positive duration such as 10s or 500ms", args.timeout));
   }

@@ -126,7 +126,7 @@ int RunReplay(const ReplayArgs& a) {
       if (const auto t = LineTime(line)) {
         if (!t0) t0 = *t;
         const auto due =
-            wall_start + std::chrono::microseconds(static_cast<std::int64_t>(static_cast<double>(*t - *t0) / a.speed));
+            wall_start + std::chrono::duration_cast<Micros>((*t - *t0) / a.speed);
         std::this_thread::sleep_until(due);
       }
     }

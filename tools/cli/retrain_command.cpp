@@ -47,7 +47,7 @@ int RunRetrain(const RetrainArgs& a) {
   auto path = FeedPath(a.feed);
   if (!path.ok()) return PrintError(kCmd, path.status().message()), kExitUsage;
   auto limit = ParseDuration(a.wait_timeout);
-  if (!limit.ok() || *limit < 0) {
+  if (!limit.ok() || *limit < Micros{}) {
     return PrintError(kCmd, "--wait-timeout must be a duration such as 10m (0 = no limit)"), kExitUsage;
   }
   auto remote = Remote::Open(a.remote);
@@ -99,7 +99,7 @@ int RunRetrain(const RetrainArgs& a) {
       std::fprintf(stderr, "job %lld %s\n", static_cast<long long>(*job_id), state.c_str());
     last_state = state;
     const auto waited = std::chrono::steady_clock::now() - started;
-    if (*limit > 0 && waited > std::chrono::microseconds(*limit)) {
+    if (*limit > Micros{} && waited > std::chrono::microseconds(*limit)) {
       return PrintError(kCmd, fmt::format("job {} is still {} after {}; it goes on in the daemon (GET {})", *job_id,
                                           state, FormatDuration(*limit), job_path)),
              kExitFailure;

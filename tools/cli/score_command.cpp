@@ -49,7 +49,7 @@ Result<DataTime> ParseTimeArg(const std::string& text, const char* what) {
   char* end = nullptr;
   const double seconds = std::strtod(text.c_str(), &end);
   if (!text.empty() && end == text.c_str() + text.size() && std::isfinite(seconds) && std::abs(seconds) < 1e11) {
-    return static_cast<DataTime>(std::llround(seconds * 1e6));
+    return DataTimeFromMicros(std::llround(seconds * 1e6));
   }
   return Status::Invalid(fmt::format("{} '{}' is neither an RFC 3339 time (2026-01-01T00:00:00Z) nor epoch seconds",
                                      what, text));
@@ -145,7 +145,7 @@ int RunScore(const ScoreArgs& a) {
   // The model's grid; one-step pairs as the trainer's validation takes them:
   // from a complete state to the next grid point holding a sample, missing
   // channels left out of that channel's error.
-  const GridSeries grid = ResampleToGrid(all, channels, {file->step_micros, 0});
+  const GridSeries grid = ResampleToGrid(all, channels, {file->step_micros, Micros{}});
   TrajectoryOptions topt;
   topt.rollout = 1;
   topt.max_gap = 1;  // a longer gap has no one-step target

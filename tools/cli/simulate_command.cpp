@@ -75,7 +75,7 @@ class Sink {
       return Status::Ok();
     }
     if (speed_ > 0) {  // pace data time at `speed` times wall time
-      const auto due = wall_start_ + std::chrono::microseconds(static_cast<std::int64_t>(offset / speed_));
+      const auto due = wall_start_ + std::chrono::duration_cast<Micros>(offset / speed_);
       std::this_thread::sleep_until(due);
     }
     Status s = client_.Send(line);
@@ -111,16 +111,16 @@ SampleFormat FormatOf(const SimulateArgs& a) { return a.format == "ndjson" ? Sam
 // Parses --duration; 0 after printing an error.
 Micros DurationArg(const std::string& text) {
   auto duration = ParseDuration(text);
-  if (!duration.ok() || *duration <= 0) {
+  if (!duration.ok() || *duration <= Micros{}) {
     PrintError(kCmd, "--duration must be a positive duration such as 10m");
-    return 0;
+    return Micros{};
   }
   return *duration;
 }
 
 // --start, or by default so that the series ends now (a daemon then accepts every sample).
 Result<DataTime> StartArg(const SimulateArgs& a, Micros duration) {
-  if (a.start.empty()) return WallNowMicros() - duration;
+  if (a.start.empty()) return DataTimeAtWall(WallNow()) - duration;  // data that ends now
   auto t = ParseRfc3339(a.start);
   if (!t.ok()) return Status::Invalid("--start: " + t.status().message());
   return *t;
@@ -151,13 +151,13 @@ int RunSingleFeed(const SimulateArgs& a) {
   }
   if (!a.step.empty()) {
     auto s = ParseDuration(a.step);
-    if (!s.ok() || *s <= 0) return PrintError(kCmd, "--step must be a positive duration such as 100ms"), kExitUsage;
+    if (!s.ok() || *s <= Micros{}) return PrintError(kCmd, "--step must be a positive duration such as 100ms"), kExitUsage;
     o.step = *s;
   }
   o.duration = DurationArg(a.duration);
-  if (o.duration == 0) return kExitUsage;
+  if (o.duration == Micros{}) return kExitUsage;
   auto transient = ParseDuration(a.transient);
-  if (!transient.ok() || *transient < 0) return PrintError(kCmd, "--transient must be a duration"), kExitUsage;
+  if (!transient.ok() || *transient < Micros{}) return PrintError(kCmd, "--transient must be a duration"), kExitUsage;
   o.transient = *transient;
   auto start = StartArg(a, o.duration);
   if (!start.ok()) return PrintError(kCmd, start.status().message()), kExitUsage;
@@ -235,7 +235,7 @@ Result<FeedSimulatorOptions> ScenarioOptions(const Scenario& scenario, std::size
   FeedSimulatorOptions o;
   o.seed = sf.seed;
   o.transient = sf.transient;
-  o.step = sf.step.value_or(0);
+  o.step = sf.step.value_or(Micros{});
   o.gap_rate = sf.gap_rate;
   o.missing_rate = sf.missing_rate;
   if (!sf.from.empty() && sf.from.size() != dim) {
@@ -290,10 +290,10 @@ int RunScenario(const SimulateArgs& a) {
   auto scenario = LoadScenario(a.scenario);
   if (!scenario.ok()) return PrintError(kCmd, scenario.status().message()), kExitUsage;
 
-  Micros duration = 0;
+  Micros duration{};
   if (!a.duration.empty()) {
     duration = DurationArg(a.duration);
-    if (duration == 0) return kExitUsage;
+    if (duration == Micros{}) return kExitUsage;
   } else if (scenario->duration) {
     duration = *scenario->duration;
   } else {

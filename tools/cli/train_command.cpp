@@ -50,11 +50,11 @@ int RunTrain(const TrainArgs& a) {
     if (!d.ok()) return PrintError(kCmd, d.status().message()), kExitUsage;
     dynamics.emplace(std::move(d).value());
   }
-  const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kMicrosPerSecond;
-  const double dt = static_cast<double>(feed.step) / static_cast<double>(time_unit);
+  const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kSecond;
+  const double dt = Seconds(feed.step) / Seconds(time_unit);
   const int channels = static_cast<int>(feed.channels.size());
 
-  const GridSeries grid = ResampleToGrid(file->samples, channels, {feed.step, 0});
+  const GridSeries grid = ResampleToGrid(file->samples, channels, {feed.step, Micros{}});
   TrajectoryOptions topt;
   topt.rollout = a.rollout.value_or(feed.model.rollout);
   topt.max_gap = a.max_gap.value_or(feed.model.max_gap);
