@@ -43,8 +43,8 @@ const Config& TestConfig() {
 // A good rig-b line (without its newline) at kT0 + i * 10 ms, value x = i.
 std::string Good(int i) {
   const DataTime t = kT0 + i * 10'000;
-  return "rig-b," + std::to_string(t / kMicrosPerSecond) + "." + std::to_string(1'000'000 + t % kMicrosPerSecond).substr(1) +
-         "," + std::to_string(i) + ",2";
+  const std::string micros = std::to_string(1'000'000 + t % kMicrosPerSecond).substr(1);  // six digits
+  return "rig-b," + std::to_string(t / kMicrosPerSecond) + "." + micros + "," + std::to_string(i) + ",2";
 }
 
 constexpr std::string_view kBad = "rig-b,1733097600,1";  // field-count: rig-b has two channels
@@ -79,7 +79,9 @@ class LineSessionTest : public ::testing::Test {
     return o;
   }
 
-  void Open(LineSessionOptions o) { session_ = std::make_unique<LineSession>(TestConfig(), sink_, counters_, std::move(o)); }
+  void Open(LineSessionOptions o) {
+    session_ = std::make_unique<LineSession>(TestConfig(), sink_, counters_, std::move(o));
+  }
   void SetUp() override { Open(Options()); }
 
   LineSession& s() { return *session_; }
@@ -123,7 +125,8 @@ class LineSessionTest : public ::testing::Test {
     return all;
   };
   if (actual.size() != patterns.size()) {
-    return ::testing::AssertionFailure() << patterns.size() << " replies expected, got " << actual.size() << ":" << show();
+    return ::testing::AssertionFailure() << patterns.size() << " replies expected, got " << actual.size() << ":"
+                                         << show();
   }
   for (std::size_t i = 0; i < patterns.size(); ++i) {
     const std::string& p = patterns[i];
@@ -374,14 +377,15 @@ TEST_F(LineSessionTest, RejectsBeforeAnyWaitingSampleAreAnsweredAtOnce) {
 }
 
 TEST_F(LineSessionTest, StoreOutcomesMapToTheirCodes) {
-  s().Consume(Good(1) + "\n" + Good(2) + "\n" + std::string(kBad) + "\n" + Good(3) + "\n" + Good(4) + "\n" + Good(5) + "\n");
+  s().Consume(Good(1) + "\n" + Good(2) + "\n" + std::string(kBad) + "\n" + Good(3) + "\n" + Good(4) + "\n" + Good(5) +
+              "\n");
   ASSERT_EQ(sink_.submissions.size(), 1u);
   s().Complete(sink_.submissions[0].ticket, {WriteOutcome{true, {}}, WriteOutcome{false, R::kStorageUnavailable},
                                              WriteOutcome{false, R::kTooOld}, WriteOutcome{false, R::kDuplicateTime},
                                              WriteOutcome{true, {}}});
   EXPECT_TRUE(Replies(Take(), {"ok 1",
-                               "error 2 storage-unavailable the store cannot commit right now (disk full or I/O error); "
-                               "resend later",
+                               "error 2 storage-unavailable the store cannot commit right now "
+                               "(disk full or I/O error); resend later",
                                "error 3 field-count *",
                                "error 4 too-old sample is older than the feed's newest sample minus storage.retention",
                                "error 5 duplicate-time a different sample of this feed is already stored at this time",
