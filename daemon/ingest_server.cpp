@@ -1,4 +1,4 @@
-#include <utility>  // before Asio: Boost 1.74 needs std::exchange (DEVELOPERS.md "Pitfalls")
+#include <utility>  // before Asio: Boost 1.74 needs std::exchange (PITFALLS.md)
 
 #include "ingest_server.h"
 #include "listen.h"
@@ -7,16 +7,12 @@
 
 #include <boost/asio.hpp>
 #include <chrono>
-#include <cstring>
-#include <deque>
 #include <mutex>
 #include <unordered_set>
 #include <vector>
 
-#include "ingest/line_parser.h"
+#include "ingest/line_session.h"
 #include "store/sample_writer.h"
-#include "core/secret.h"
-#include "core/wall_clock.h"
 
 namespace lyapcast {
 
@@ -27,18 +23,13 @@ namespace {
 
 constexpr std::size_t kReadChunk = 64 * 1024;
 
-// One reply line owed to the client, in input order.
-struct ReplySlot {
-  std::uint64_t line = 0;
-  bool ready = false;   // false: waiting for the commit outcome
-  bool accepted = false;
-  std::string error;    // "<code> <text>" when !accepted
-};
-
-std::string RejectText(RejectReason reason, std::string_view message) {
-  std::string s(RejectCode(reason));
-  s += ' ';
-  s += message;
+LineSessionOptions SessionOptions(const IngestServerOptions& o) {
+  LineSessionOptions s;
+  s.max_line = o.max_line;
+  s.max_future_skew = o.max_future_skew;
+  s.token = o.token;
+  s.max_outstanding = o.max_outstanding;
+  s.max_pending_output = o.max_pending_output;
   return s;
 }
 
@@ -48,7 +39,13 @@ struct IngestServer::Impl : std::enable_shared_from_this<IngestServer::Impl> {
   class Session;
 
   Impl(asio::io_context& io_, const Config& config_, SampleWriter& writer_, IngestServerOptions options_)
-      : io(io_), config(config_), writer(writer_), options(std::move(options_)), acceptor(io_), grace_timer(io_) {}
+      : io(io_),
+        config(config_),
+        writer(writer_),
+        options(std::move(options_)),
+        session_options(SessionOptions(options)),
+        acceptor(io_),
+        grace_timer(io_) {}
 
   void Accept();
   void Forget(Session* s);
@@ -58,6 +55,7 @@ struct IngestServer::Impl : std::enable_shared_from_this<IngestServer::Impl> {
   const Config& config;
   SampleWriter& writer;
   const IngestServerOptions options;
+  const LineSessionOptions session_options;
   tcp::acceptor acceptor;
   asio::steady_timer grace_timer;
   IngestCounters counters;
@@ -70,15 +68,20 @@ struct IngestServer::Impl : std::enable_shared_from_this<IngestServer::Impl> {
   std::atomic<int> active{0};
 };
 
-class IngestServer::Impl::Session : public std::enable_shared_from_this<Session> {
+// One TCP connection: socket reads and writes, the idle timer and closing,
+// around a LineSession that does the protocol. Everything runs on strand_;
+// the session is also the LineSession's sink (over the SampleWriter), and
+// posts each writer completion back to strand_. A completion holds a
+// shared_ptr to the session, so the LineSession outlives every ticket.
+class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>, public SampleSink {
  public:
-  Session(std::shared_ptr<Impl> server, tcp::socket socket)
+  Session(std::shared_ptr<Impl> server, tcp::socket socket, std::string peer)
       : server_(std::move(server)),
         socket_(std::move(socket)),
         strand_(socket_.get_executor()),
         idle_timer_(strand_),
-        parser_(server_->config, server_->options.max_future_skew),
-        authed_(!server_->options.token.has_value()) {
+        peer_(std::move(peer)),
+        lines_(server_->config, *this, server_->counters, server_->session_options) {
     read_buf_.resize(kReadChunk);
   }
 
@@ -91,16 +94,23 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
 
   // Stop reading; finish and answer what was received, then close.
   void Drain() {
-    asio::dispatch(strand_, [self = shared_from_this()] {
-      self->draining_ = true;
-      boost::system::error_code ec;
-      self->socket_.cancel(ec);  // aborts a pending read; replies still flow
-      self->MaybeClose();
-    });
+    asio::dispatch(strand_, [self = shared_from_this()] { self->StopReading(); });
   }
 
   void ForceClose() {
     asio::dispatch(strand_, [self = shared_from_this()] { self->Close(); });
+  }
+
+  // SampleSink: called by lines_ on strand_.
+  bool Submit(std::vector<FeedSample> samples, SubmissionTicket ticket) override {
+    return server_->writer.Submit(std::move(samples), [self = shared_from_this(), ticket](
+                                                          std::vector<WriteOutcome> outcomes) mutable {
+      asio::strand<asio::any_io_executor>& strand = self->strand_;
+      asio::post(strand, [self = std::move(self), ticket, outcomes = std::move(outcomes)]() mutable {
+        self->lines_.Complete(ticket, std::move(outcomes));
+        self->Pump();
+      });
+    });
   }
 
  private:
@@ -110,18 +120,31 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
       if (ec || self->closed_) return;
       if (self->idle_timer_.expiry() > asio::steady_timer::clock_type::now()) return;  // re-armed
       spdlog::info("ingest: closing idle connection from {} after {}", self->peer_, FormatDuration(self->server_->options.idle_timeout));
-      self->draining_ = true;
-      boost::system::error_code ignored;
-      self->socket_.cancel(ignored);
-      self->MaybeClose();
+      self->StopReading();
     });
   }
 
+  // Cancels a pending read; replies still flow. The bytes of a read that
+  // completed before the cancel were received and still get answered, so the
+  // session's input ends only when no read is in flight.
+  void StopReading() {
+    draining_ = true;
+    boost::system::error_code ec;
+    socket_.cancel(ec);
+    if (!reading_) lines_.StopInput();
+    Pump();
+  }
+
+  // After every event: send what is ready, read if the session wants input
+  // (backpressure), close when everything is answered.
+  void Pump() {
+    DoWrite();
+    DoRead();
+    MaybeClose();
+  }
+
   void DoRead() {
-    if (reading_ || draining_ || closed_ || eof_ || close_after_flush_) return;
-    if (outstanding_ > server_->options.max_outstanding || PendingOutput() > server_->options.max_pending_output) {
-      return;  // backpressure: resumed from OnCommitted / OnWritten
-    }
+    if (reading_ || draining_ || closed_ || !lines_.WantsInput()) return;
     reading_ = true;
     socket_.async_read_some(asio::buffer(read_buf_), asio::bind_executor(strand_, [self = shared_from_this()](
                                                                                        boost::system::error_code ec,
@@ -135,226 +158,50 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
     if (closed_) return;
     if (n > 0) {
       ArmIdleTimer();
-      Consume(read_buf_.data(), n);
+      lines_.Consume(std::string_view(read_buf_.data(), n));
     }
     if (ec == asio::error::eof) {
-      // The client finished sending. An unterminated last line still counts.
-      eof_ = true;
-      if (!partial_.empty() && !skipping_) HandleLine(partial_);
-      partial_.clear();
-      SubmitBatch();
-      MaybeClose();
-      return;
-    }
-    if (ec == asio::error::operation_aborted) {
-      MaybeClose();
-      return;
-    }
-    if (ec) {
+      lines_.EndInput();  // an unterminated last line still counts
+    } else if (ec && ec != asio::error::operation_aborted) {
       spdlog::debug("ingest: read from {} failed: {}", peer_, ec.message());
       Close();
       return;
     }
-    SubmitBatch();
-    Flush();
-    DoRead();
+    if (draining_) lines_.StopInput();
+    LogAuthFailure();
+    Pump();
   }
 
-  // Splits bytes into lines; a line longer than max_line is answered
-  // line-too-long once and its remaining bytes are skipped up to the newline.
-  void Consume(const char* p, std::size_t n) {
-    const char* end = p + n;
-    const std::size_t max_line = server_->options.max_line;
-    while (p < end && !close_after_flush_) {
-      const char* nl = static_cast<const char*>(std::memchr(p, '\n', static_cast<std::size_t>(end - p)));
-      if (skipping_) {
-        if (nl == nullptr) return;
-        skipping_ = false;
-        p = nl + 1;
-        continue;
-      }
-      if (nl == nullptr) {
-        // +1 leaves room for a '\r' that belongs to the line ending.
-        if (partial_.size() + static_cast<std::size_t>(end - p) > max_line + 1) {
-          partial_.clear();
-          skipping_ = true;
-          RejectTooLong();
-          return;
-        }
-        partial_.append(p, end);
-        return;
-      }
-      if (!partial_.empty()) {
-        partial_.append(p, nl);
-        HandleLine(partial_);
-        partial_.clear();
-      } else {
-        HandleLine(std::string_view(p, static_cast<std::size_t>(nl - p)));
-      }
-      p = nl + 1;
+  void LogAuthFailure() {
+    if (auth_logged_ || lines_.auth_failure() == LineSession::AuthFailure::kNone) return;
+    auth_logged_ = true;
+    if (lines_.auth_failure() == LineSession::AuthFailure::kWrongToken) {
+      spdlog::warn("ingest: connection from {} sent a wrong ingest token; closing", peer_);
+    } else {
+      spdlog::warn("ingest: connection from {} did not authenticate; closing", peer_);
     }
-  }
-
-  void RejectTooLong() {
-    const std::uint64_t line = ++line_no_;
-    server_->counters.lines.fetch_add(1, std::memory_order_relaxed);
-    AddReject(line, RejectReason::kLineTooLong,
-              fmt::format("line exceeds {} bytes (limits.max_line); the rest of it is skipped", server_->options.max_line));
-  }
-
-  void HandleLine(std::string_view line) {
-    if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
-    if (line.size() > server_->options.max_line) {
-      RejectTooLong();
-      return;
-    }
-    const std::uint64_t line_no = ++line_no_;
-    server_->counters.lines.fetch_add(1, std::memory_order_relaxed);
-    if (wall_now_ == WallTime{}) wall_now_ = WallNow();
-    ParsedLine parsed = parser_.Parse(line, wall_now_);
-    switch (parsed.kind) {
-      case ParsedLine::Kind::kAuth:
-        HandleAuth(line_no, parsed.token);
-        return;
-      case ParsedLine::Kind::kReject:
-        if (!authed_) return RejectUnauthenticated(line_no);
-        AddReject(line_no, parsed.reason, parsed.message);
-        return;
-      case ParsedLine::Kind::kSample:
-        if (!authed_) return RejectUnauthenticated(line_no);
-        batch_.push_back(std::move(parsed.sample));
-        slots_.push_back(ReplySlot{line_no, false, false, {}});
-        return;
-    }
-  }
-
-  void HandleAuth(std::uint64_t line_no, const std::string& token) {
-    const auto& expected = server_->options.token;
-    if (!expected || (line_no == 1 && ConstantTimeEquals(token, *expected)) || (authed_ && token == *expected)) {
-      authed_ = true;
-      AddReady(line_no, "ok auth");
-      return;
-    }
-    spdlog::warn("ingest: connection from {} sent a wrong ingest token; closing", peer_);
-    AddReject(line_no, RejectReason::kBadAuth, "wrong ingest token");
-    close_after_flush_ = true;
-  }
-
-  void RejectUnauthenticated(std::uint64_t line_no) {
-    spdlog::warn("ingest: connection from {} did not authenticate; closing", peer_);
-    AddReject(line_no, RejectReason::kBadAuth, "this server requires 'auth <token>' as the first line");
-    close_after_flush_ = true;
-  }
-
-  void AddReject(std::uint64_t line_no, RejectReason reason, std::string_view message) {
-    server_->counters.rejected[static_cast<int>(reason)].fetch_add(1, std::memory_order_relaxed);
-    slots_.push_back(ReplySlot{line_no, true, false, RejectText(reason, message)});
-  }
-
-  void AddReady(std::uint64_t line_no, std::string text) {
-    ReplySlot slot{line_no, true, true, std::move(text)};
-    slots_.push_back(std::move(slot));
-  }
-
-  void SubmitBatch() {
-    wall_now_ = WallTime{};
-    if (batch_.empty()) {
-      Flush();
-      return;
-    }
-    const std::size_t count = batch_.size();
-    outstanding_ += count;
-    auto self = shared_from_this();
-    const bool queued = server_->writer.Submit(std::move(batch_), [self](std::vector<WriteOutcome> outcomes) {
-      asio::post(self->strand_, [self, outcomes = std::move(outcomes)] { self->OnCommitted(outcomes); });
-    });
-    batch_.clear();
-    if (!queued) {
-      std::vector<WriteOutcome> outcomes(count, WriteOutcome{false, RejectReason::kShuttingDown});
-      OnCommitted(outcomes);
-    }
-    Flush();
-  }
-
-  // Fills the oldest waiting slots: the writer completes submissions in order.
-  void OnCommitted(const std::vector<WriteOutcome>& outcomes) {
-    outstanding_ -= outcomes.size();
-    std::size_t i = 0;
-    for (ReplySlot& slot : slots_) {
-      if (i == outcomes.size()) break;
-      if (slot.ready) continue;
-      const WriteOutcome& o = outcomes[i++];
-      slot.ready = true;
-      slot.accepted = o.accepted;
-      if (o.accepted) {
-        server_->counters.accepted.fetch_add(1, std::memory_order_relaxed);
-      } else {
-        server_->counters.rejected[static_cast<int>(o.reason)].fetch_add(1, std::memory_order_relaxed);
-        slot.error = RejectText(o.reason, DescribeWriteReject(o.reason));
-      }
-    }
-    Flush();
-    DoRead();
-    MaybeClose();
-  }
-
-  static std::string_view DescribeWriteReject(RejectReason reason) {
-    switch (reason) {
-      case RejectReason::kTooOld: return "sample is older than the feed's newest sample minus storage.retention";
-      case RejectReason::kDuplicateTime: return "a different sample of this feed is already stored at this time";
-      case RejectReason::kStorageUnavailable: return "the store cannot commit right now (disk full or I/O error); resend later";
-      case RejectReason::kShuttingDown: return "the daemon is shutting down; resend after it restarts";
-      default: return "rejected by the store";
-    }
-  }
-
-  // Moves ready replies from the front into the output and starts a write.
-  void Flush() {
-    while (!slots_.empty() && slots_.front().ready) {
-      ReplySlot& slot = slots_.front();
-      if (slot.accepted && slot.error.empty()) {
-        out_ += "ok ";
-        out_ += std::to_string(++accepted_count_);
-      } else if (slot.accepted) {
-        out_ += slot.error;  // e.g. "ok auth"
-      } else {
-        out_ += "error ";
-        out_ += std::to_string(slot.line);
-        out_ += ' ';
-        out_ += slot.error;
-      }
-      out_ += '\n';
-      slots_.pop_front();
-    }
-    DoWrite();
   }
 
   void DoWrite() {
-    if (writing_ || out_.empty() || closed_) return;
+    if (writing_ || closed_ || !lines_.HasReplies()) return;
     writing_ = true;
-    writing_buf_.swap(out_);
-    out_.clear();
+    lines_.TakeReplies(writing_buf_);
     asio::async_write(socket_, asio::buffer(writing_buf_),
                       asio::bind_executor(strand_, [self = shared_from_this()](boost::system::error_code ec, std::size_t) {
                         self->writing_ = false;
+                        self->lines_.RepliesSent(self->writing_buf_.size());
                         self->writing_buf_.clear();
                         if (ec) {
                           if (!self->closed_) spdlog::debug("ingest: write to {} failed: {}", self->peer_, ec.message());
                           self->Close();
                           return;
                         }
-                        self->DoWrite();
-                        self->DoRead();
-                        self->MaybeClose();
+                        self->Pump();
                       }));
   }
 
-  std::size_t PendingOutput() const { return out_.size() + writing_buf_.size(); }
-
   void MaybeClose() {
-    if (closed_) return;
-    const bool input_done = draining_ || eof_ || close_after_flush_;
-    if (!input_done || reading_ || outstanding_ > 0 || !slots_.empty() || writing_ || !out_.empty()) return;
+    if (closed_ || reading_ || writing_ || !lines_.Finished()) return;
     boost::system::error_code ec;
     socket_.shutdown(tcp::socket::shutdown_send, ec);
     Close();
@@ -369,28 +216,15 @@ class IngestServer::Impl::Session : public std::enable_shared_from_this<Session>
     server_->Forget(this);
   }
 
- public:
-  std::string peer_;
-
- private:
   std::shared_ptr<Impl> server_;
   tcp::socket socket_;
   asio::strand<asio::any_io_executor> strand_;
   asio::steady_timer idle_timer_;
-  LineParser parser_;
+  const std::string peer_;
+  LineSession lines_;
   std::vector<char> read_buf_;
-  std::string partial_;
-  bool skipping_ = false;
-  std::uint64_t line_no_ = 0;
-  std::uint64_t accepted_count_ = 0;
-  WallTime wall_now_{};
-  std::vector<FeedSample> batch_;
-  std::deque<ReplySlot> slots_;
-  std::size_t outstanding_ = 0;
-  std::string out_, writing_buf_;
-  bool reading_ = false, writing_ = false, draining_ = false, eof_ = false, closed_ = false;
-  bool close_after_flush_ = false;
-  bool authed_;
+  std::string writing_buf_;  // the replies being written; swapped with the session's buffer
+  bool reading_ = false, writing_ = false, draining_ = false, closed_ = false, auth_logged_ = false;
 };
 
 void IngestServer::Impl::Accept() {
@@ -420,8 +254,7 @@ void IngestServer::Impl::Accept() {
           sock->close(ignored);
         });
       } else {
-        auto session = std::make_shared<Session>(self, std::move(socket));
-        session->peer_ = peer;
+        auto session = std::make_shared<Session>(self, std::move(socket), peer);
         self->sessions.insert(session.get());
         self->weak_sessions_snapshot.push_back(session);
         self->active.store(static_cast<int>(self->sessions.size()), std::memory_order_relaxed);

@@ -1,19 +1,21 @@
-// IngestServer: the TCP listener for sample lines (docs/protocol.md "Sample
-// line format"). Each connection is a session that splits the byte stream into
-// lines, parses them (lib/ingest), submits good samples to the SampleWriter
-// and answers every line exactly once, in order: `ok <n>` after its
-// transaction committed, or `error <line> <code> <text>`.
+// IngestServer: the TCP listener for sample lines (docs/protocol.md). Each
+// connection is a thin TCP adapter over a LineSession
+// (lib/ingest/line_session.h), which frames, authenticates, parses, submits
+// to the SampleWriter and answers every line exactly once, in order: `ok <n>`
+// after its transaction committed, or `error <line> <code> <text>`. The
+// adapter reads the socket, writes the replies, runs the idle timer and
+// closes.
 //
-// Backpressure: a session stops reading its socket while it has more than
-// `max_outstanding` samples awaiting commit or more than `max_pending_output`
-// bytes of replies the client has not read yet; TCP then slows the sender.
-// Nothing is dropped.
+// Backpressure: a connection stops reading its socket while its session has
+// more than `max_outstanding` samples awaiting commit or more than
+// `max_pending_output` bytes of replies the client has not read yet; TCP
+// then slows the sender. Nothing is dropped.
 //
 // Threads: all calls on the io_context's threads (the constructor and
-// Listen() before io_context::run). Sessions run on their own strands.
+// Listen() before io_context::run). Each connection and its LineSession run
+// on their own strand; writer completions are posted back to it.
 #pragma once
 
-#include <atomic>
 #include <cstdint>
 #include <functional>
 #include <memory>
@@ -23,6 +25,7 @@
 #include "config/config.h"
 #include "core/reject_reason.h"
 #include "core/status.h"
+#include "ingest/ingest_counters.h"
 
 namespace boost::asio {
 class io_context;
@@ -42,15 +45,6 @@ struct IngestServerOptions {
   std::size_t max_outstanding = 16384;     // samples per connection awaiting commit
   std::size_t max_pending_output = 1 << 20;  // reply bytes per connection not yet sent
   Micros shutdown_grace = 10 * kSecond;  // then remaining sessions are closed
-};
-
-// Totals since start, readable from any thread.
-struct IngestCounters {
-  std::atomic<std::uint64_t> connections_accepted{0};
-  std::atomic<std::uint64_t> connections_refused{0};
-  std::atomic<std::uint64_t> lines{0};
-  std::atomic<std::uint64_t> accepted{0};
-  std::atomic<std::uint64_t> rejected[kRejectReasonCount] = {};
 };
 
 class IngestServer {

@@ -39,6 +39,7 @@
 
 #include "core/reject_reason.h"
 #include "core/sample.h"
+#include "core/write_outcome.h"
 #include "store/window_store.h"
 
 namespace lyapcast {
@@ -51,12 +52,6 @@ struct WriterOptions {
   int prune_batch = 1000;                       // rows per prune transaction
   Micros prune_every = kSecond;        // wall time between prune passes
   Micros retry_after_failure{200'000};         // wait before retrying after a failed commit
-};
-
-// Per-sample result: accepted (stored now or an identical resend) or why not.
-struct WriteOutcome {
-  bool accepted = false;
-  RejectReason reason = RejectReason::kStorageUnavailable;  // when !accepted
 };
 
 using WriteCompletion = std::function<void(std::vector<WriteOutcome>)>;
