@@ -12,8 +12,8 @@ using sqlite::Stmt;
 namespace {
 
 constexpr const char* kColumns =
-    "version, status, reason, parent, created_at, trained_from_us, trained_to_us, validation_error, lyapunov_max, "
-    "details";
+    "version, status, reason, parent, created_at, trained_from_us, trained_to_us, validation_error, lambda_max, "
+    "details, data_exponent, dynamics_exponent";
 
 Result<ModelStatus> ParseStatus(const std::string& s) {
   if (s == "active") return ModelStatus::kActive;
@@ -35,7 +35,7 @@ std::optional<double> ColumnOptionalDouble(const Stmt& st, int column) {
   return sqlite3_column_double(st.get(), column);
 }
 
-// Reads the kColumns of the current row (and `file` at column 10 if asked).
+// Reads the kColumns of the current row (and `file` at column 12 if asked).
 Result<ModelRecord> ReadRow(const Stmt& st, std::uint32_t feed, bool with_file) {
   ModelRecord r;
   r.feed = feed;
@@ -49,10 +49,12 @@ Result<ModelRecord> ReadRow(const Stmt& st, std::uint32_t feed, bool with_file) 
   r.trained_from = st.ColumnTime(5);
   r.trained_to = st.ColumnTime(6);
   r.validation_error = ColumnOptionalDouble(st, 7);
-  r.lyapunov_max = ColumnOptionalDouble(st, 8);
+  r.lambda_max = ColumnOptionalDouble(st, 8);
   r.details = st.ColumnText(9);
+  r.data_exponent = ColumnOptionalDouble(st, 10);
+  r.dynamics_exponent = ColumnOptionalDouble(st, 11);
   if (with_file) {
-    const auto blob = st.ColumnBlob(10);
+    const auto blob = st.ColumnBlob(12);
     r.file.assign(reinterpret_cast<const char*>(blob.data()), blob.size());
   }
   return r;
@@ -99,8 +101,8 @@ Status ModelRegistry::Prepare() {
       {&st->next_version, "SELECT coalesce(max(version), 0) + 1 FROM models WHERE feed_id = ?1"},
       {&st->retire_active, "UPDATE models SET status = 'retired', reason = ?2 WHERE feed_id = ?1 AND status = 'active'"},
       {&st->insert, "INSERT INTO models (feed_id, version, status, reason, parent, created_at, trained_from_us, "
-       "trained_to_us, validation_error, lyapunov_max, details, file) "
-       "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)"},
+       "trained_to_us, validation_error, lambda_max, details, file, data_exponent, dynamics_exponent) "
+       "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14)"},
       {&st->active, Select("WHERE feed_id = ?1 AND status = 'active'", true)},
       {&st->one, Select("WHERE feed_id = ?1 AND version = ?2", true)},
       {&st->list, Select("WHERE feed_id = ?1 ORDER BY version DESC LIMIT ?2", false)},
@@ -159,9 +161,11 @@ Result<std::int64_t> ModelRegistry::Insert(const ModelRecord& r) {
     st.BindTime(7, r.trained_from);
     st.BindTime(8, r.trained_to);
     BindOptionalDouble(st, 9, r.validation_error);
-    BindOptionalDouble(st, 10, r.lyapunov_max);
+    BindOptionalDouble(st, 10, r.lambda_max);
     st.BindText(11, r.details.empty() ? "{}" : r.details);
     st.BindBlob(12, Bytes(r.file));
+    BindOptionalDouble(st, 13, r.data_exponent);
+    BindOptionalDouble(st, 14, r.dynamics_exponent);
     if (const int rc = st.Step(); rc != SQLITE_DONE) return sqlite::Error(store_->raw_handle(), rc, what);
   }
   if (Status s = txn.Commit(st_->commit, what); !s.ok()) return s;

@@ -1,5 +1,5 @@
 // ModelRegistry: every model version of every feed, durable in SQLite before
-// it is served (docs/design.md "Data flow"; schema version 2, table `models`).
+// it is served (docs/design.md "Data flow"; schema version 3, table `models`).
 //
 // Versions count from 1 per feed. At most one version of a feed is 'active'
 // (the one served); promoting a new version retires the previous active one
@@ -38,8 +38,13 @@ struct ModelRecord {
   DataTime trained_from{};       // data-time range of the training chunk
   DataTime trained_to{};
   std::optional<double> validation_error;
-  std::optional<double> lyapunov_max;  // per second of data time
-  std::string details = "{}";      // JSON object: losses, per-channel errors, estimates, timings
+  // Largest Lyapunov exponents, per second of data time: the version's own
+  // (lambda_max, from its learned map) and the feed's estimates from the
+  // data and the known dynamics when it was trained, which pace the cadence
+  // after it (a restarted daemon resumes with them).
+  std::optional<double> lambda_max;
+  std::optional<double> data_exponent, dynamics_exponent;
+  std::string details = "{}";      // JSON object (schedule/retrain_details.h): losses, errors, timings
   std::string file;                // model file bytes (learn/model_file.h); empty in listings
 };
 

@@ -73,8 +73,29 @@ Status CreateModelTables(sqlite3* db) {
                       "creating the model registry (schema version 2)");
 }
 
+Status AddExponentColumns(sqlite3* db) {
+  // The largest exponent has one name everywhere (lambda_max, per second of
+  // data time). The data and dynamics estimates that pace the cadence after
+  // a job were only inside `details`; as columns a restart reads them
+  // without parsing JSON. Existing rows are filled from their details where
+  // those hold a number (CASE evaluates only the branch it takes, so
+  // malformed details are left NULL rather than failing the migration).
+  return sqlite::Exec(db,
+                      "ALTER TABLE models RENAME COLUMN lyapunov_max TO lambda_max;"
+                      "ALTER TABLE models ADD COLUMN data_exponent REAL;"
+                      "ALTER TABLE models ADD COLUMN dynamics_exponent REAL;"
+                      "UPDATE models SET"
+                      "  data_exponent = CASE WHEN json_valid(details) THEN"
+                      "    CASE WHEN json_type(details, '$.exponents.data') IN ('real', 'integer')"
+                      "    THEN json_extract(details, '$.exponents.data') END END,"
+                      "  dynamics_exponent = CASE WHEN json_valid(details) THEN"
+                      "    CASE WHEN json_type(details, '$.exponents.dynamics') IN ('real', 'integer')"
+                      "    THEN json_extract(details, '$.exponents.dynamics') END END;",
+                      "adding the exponent columns (schema version 3)");
+}
+
 using Migration = Status (*)(sqlite3*);
-constexpr Migration kMigrations[] = {&CreateWindowTables, &CreateModelTables};
+constexpr Migration kMigrations[] = {&CreateWindowTables, &CreateModelTables, &AddExponentColumns};
 static_assert(std::size(kMigrations) == kSchemaVersion, "one migration per schema version");
 
 Result<int> ReadUserVersion(sqlite3* db) {

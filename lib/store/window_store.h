@@ -60,7 +60,7 @@ struct StoreOptions {
   int busy_timeout_ms = 5000;  // wait for locks this long before failing
 };
 
-inline constexpr int kSchemaVersion = 2;  // 1: window tables; 2: model registry
+inline constexpr int kSchemaVersion = 3;  // 1: window tables; 2: model registry; 3: exponent columns
 
 class WindowStore {
  public:

@@ -138,5 +138,54 @@ TEST(ModelRegistryMigration, AVersionOneFileGainsTheRegistryAndKeepsItsSamples) 
   EXPECT_EQ(Shell(db, "PRAGMA integrity_check"), "ok");
 }
 
+// A file as schema version 2 left it (the largest exponent as lyapunov_max,
+// the cadence estimates only inside details) gains the exponent columns,
+// filled from the details where they hold numbers.
+TEST(ModelRegistryMigration, AVersionTwoFileGainsExponentColumnsFilledFromTheDetails) {
+  testing::TempDir dir("lyapcast-migration-test");
+  const fs::path db = dir.path() / "v2.db";
+  Shell(db,
+        "PRAGMA journal_mode=WAL;"
+        "CREATE TABLE feeds(feed_id INTEGER PRIMARY KEY, name TEXT NOT NULL UNIQUE, channels TEXT NOT NULL,"
+        " step_us INTEGER NOT NULL, created_at TEXT);"
+        "CREATE TABLE samples(feed_id INTEGER NOT NULL REFERENCES feeds(feed_id), t_us INTEGER NOT NULL,"
+        " mask INTEGER NOT NULL, vals BLOB NOT NULL, PRIMARY KEY(feed_id, t_us)) WITHOUT ROWID;"
+        "CREATE TABLE models(feed_id INTEGER NOT NULL REFERENCES feeds(feed_id), version INTEGER NOT NULL,"
+        " status TEXT NOT NULL CHECK (status IN ('active', 'retired', 'rejected')), reason TEXT NOT NULL,"
+        " parent INTEGER, created_at TEXT NOT NULL, trained_from_us INTEGER NOT NULL,"
+        " trained_to_us INTEGER NOT NULL, validation_error REAL, lyapunov_max REAL, details TEXT NOT NULL,"
+        " file BLOB NOT NULL, PRIMARY KEY (feed_id, version));"
+        "CREATE UNIQUE INDEX models_one_active ON models(feed_id) WHERE status = 'active';"
+        "INSERT INTO feeds VALUES (1, 'loop-a', 'flow,dtemp_h', 500000, '2026-01-01');"
+        "INSERT INTO models VALUES (1, 1, 'retired', 'r', NULL, '2026-01-01', 0, 10, 0.1, 0.9,"
+        " json_object('exponents', json_object('data', 1.25, 'dynamics', NULL)), x'00');"
+        "INSERT INTO models VALUES (1, 2, 'active', 'a', 1, '2026-01-01', 0, 20, 0.1, 0.8,"
+        " 'not json', x'00');"
+        "INSERT INTO models VALUES (1, 3, 'rejected', 'b', 2, '2026-01-01', 0, 30, 0.1, NULL,"
+        " json_object('exponents', json_object('data', 'fast', 'dynamics', 0.9056)), x'00');"
+        "PRAGMA user_version = 2;");
+  {
+    auto store = Open(db);
+    EXPECT_EQ(store->schema_version(), kSchemaVersion);
+    ModelRegistry registry(std::move(store));
+    auto rows = registry.List(0, 10);
+    ASSERT_TRUE(rows.ok()) << rows.status().ToString();
+    ASSERT_EQ(rows->size(), 3u);
+    const ModelRecord& v3 = (*rows)[0];
+    const ModelRecord& v2 = (*rows)[1];
+    const ModelRecord& v1 = (*rows)[2];
+    EXPECT_EQ(v1.lambda_max, 0.9);
+    EXPECT_EQ(v1.data_exponent, 1.25);
+    EXPECT_FALSE(v1.dynamics_exponent.has_value());
+    EXPECT_EQ(v2.lambda_max, 0.8);
+    EXPECT_FALSE(v2.data_exponent.has_value());  // details not JSON: left empty, not an error
+    EXPECT_FALSE(v3.data_exponent.has_value());  // not a number
+    EXPECT_EQ(v3.dynamics_exponent, 0.9056);
+  }
+  EXPECT_EQ(Shell(db, "PRAGMA user_version"), std::to_string(kSchemaVersion));
+  EXPECT_EQ(Shell(db, "SELECT count(*) FROM pragma_table_info('models') WHERE name = 'lyapunov_max'"), "0");
+  EXPECT_EQ(Shell(db, "PRAGMA integrity_check"), "ok");
+}
+
 }  // namespace
 }  // namespace lyapcast
