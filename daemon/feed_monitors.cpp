@@ -1,12 +1,12 @@
 #include "feed_monitors.h"
 
-#include <nlohmann/json.hpp>
 #include <spdlog/spdlog.h>
 
 #include <cmath>
 #include <limits>
 
 #include "core/wall_clock.h"
+#include "schedule/retrain_details.h"
 
 namespace lyapcast {
 
@@ -41,19 +41,8 @@ namespace {
 // channels differ. The per-channel figures in the version's details give
 // the RMS form; without them the mean is used.
 double ValidationRms(const ModelRecord& r) {
-  const auto details = nlohmann::json::parse(r.details, nullptr, /*allow_exceptions=*/false);
-  if (details.is_object() && details.contains("validation_per_channel") &&
-      details["validation_per_channel"].is_array() && !details["validation_per_channel"].empty()) {
-    double sum = 0;
-    int n = 0;
-    for (const auto& v : details["validation_per_channel"]) {
-      if (!v.is_number()) continue;
-      sum += v.get<double>() * v.get<double>();
-      ++n;
-    }
-    if (n > 0) return std::sqrt(sum / n);
-  }
-  return r.validation_error.value_or(std::numeric_limits<double>::quiet_NaN());
+  return ValidationRms(ParseRetrainDetails(r.details))
+      .value_or(r.validation_error.value_or(std::numeric_limits<double>::quiet_NaN()));
 }
 
 }  // namespace

@@ -1,0 +1,56 @@
+// RetrainDetails: what a retraining job records about the version it made,
+// beyond the registry's columns (the `details` JSON object of a model row,
+// shown verbatim by the HTTP API's model listings).
+//
+// One serializer (ToJson) and one tolerant parser (ParseRetrainDetails) so
+// the daemon, the CLI and the benchmarks read the same keys. JSON has no NaN
+// or infinity: non-finite numbers are written as null and read back as NaN
+// (per-channel errors) or absent (optionals). Numbers round-trip exactly.
+//
+// Keys: strategy, trigger, iterations, seconds, stop, train_pairs,
+// selection_pairs (held-out pairs early stopping chose the weights on),
+// validation_pairs (held-out pairs the promotion was judged on),
+// validation_per_channel (the candidate's normalized RMSE per channel on the
+// judged pairs), active_error, refit, exponents {data, dynamics} (also the
+// registry's data_exponent / dynamics_exponent columns).
+//
+// Pure functions; thread-safe.
+#pragma once
+
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace lyapcast {
+
+struct RetrainDetails {
+  std::string strategy = "supervised";
+  std::string trigger = "cadence";   // cadence, drift or operator
+  int iterations = 0;
+  double seconds = 0;                // wall time of the fit
+  std::string stop;                  // FitStopName
+  std::int64_t train_pairs = 0;
+  std::int64_t selection_pairs = 0;
+  std::int64_t validation_pairs = 0;
+  std::vector<double> validation_per_channel;  // NaN where a channel had no target
+  std::optional<double> active_error;          // the active version on the same pairs
+  std::string refit;                           // why the normalization moved; empty if it did not
+  std::optional<double> data_exponent, dynamics_exponent;  // per second of data time
+};
+
+// A JSON object (one line).
+std::string ToJson(const RetrainDetails& d);
+
+// Reads what it can: unknown keys are ignored, missing or mistyped ones keep
+// their defaults, text that is not a JSON object gives all defaults (older
+// versions and hand-edited rows must not stop a daemon).
+RetrainDetails ParseRetrainDetails(std::string_view json);
+
+// The RMS over channels of validation_per_channel (finite entries only);
+// nullopt when there is none. The drift monitor compares its rolling error,
+// an RMS over channels, with this.
+std::optional<double> ValidationRms(const RetrainDetails& d);
+
+}  // namespace lyapcast
