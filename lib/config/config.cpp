@@ -345,9 +345,14 @@ ModelConfig ReadModel(const Value& v) {
 
 RetrainConfig ReadRetrain(const Value& v) {
   const MapReader m =
-      v.Map({"lyapunov_fraction", "min_interval", "max_interval", "min_pairs", "replay", "validation", "iterations",
-             "batch", "learning_rate", "weight_decay", "clip", "time_budget", "promote_tolerance"});
+      v.Map({"strategy", "lyapunov_fraction", "min_interval", "max_interval", "min_pairs", "replay", "validation",
+             "iterations", "batch", "learning_rate", "weight_decay", "clip", "time_budget", "promote_tolerance"});
   RetrainConfig c;
+  if (auto x = m.Get("strategy")) {
+    const char* const allowed = "supervised (the only training strategy so far)";
+    if (x->Text(allowed) != "supervised") x->FailMustBe(allowed);
+    c.strategy = RetrainStrategy::kSupervised;
+  }
   if (auto x = m.Get("lyapunov_fraction")) c.lyapunov_fraction = x->Real(RealRange::Positive());
   if (auto x = m.Get("min_interval")) c.min_interval = x->Duration(DurationRule::NonNegative());
   if (auto x = m.Get("max_interval")) c.max_interval = x->Duration(DurationRule::Positive());
@@ -520,6 +525,13 @@ const char* ConstraintKindName(ConstraintKind kind) {
     case ConstraintKind::kResidual: return "residual";
   }
   return "unknown";
+}
+
+const char* RetrainStrategyName(RetrainStrategy s) {
+  switch (s) {
+    case RetrainStrategy::kSupervised: return "supervised";
+  }
+  return "?";
 }
 
 const char* ActivationName(Activation a) {

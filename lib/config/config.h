@@ -97,7 +97,12 @@ struct ModelConfig {
   int max_gap = 8;  // longest composition G^k trained across gaps
 };
 
+// How a retraining job fits its candidate (schedule/training_strategy.h).
+enum class RetrainStrategy { kSupervised };
+const char* RetrainStrategyName(RetrainStrategy s);  // "supervised"
+
 struct RetrainConfig {
+  RetrainStrategy strategy = RetrainStrategy::kSupervised;
   double lyapunov_fraction = 0.5;  // retrain after this many Lyapunov times of new data
   Micros min_interval = 30 * kSecond;
   Micros max_interval = 3600 * kSecond;

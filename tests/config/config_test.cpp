@@ -148,6 +148,8 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_DOUBLE_EQ(f.retrain.clip, 1.0);
   EXPECT_EQ(f.retrain.time_budget, 60 * kSecond);
   EXPECT_DOUBLE_EQ(f.retrain.promote_tolerance, 0.05);
+  EXPECT_EQ(f.retrain.strategy, RetrainStrategy::kSupervised);
+  EXPECT_STREQ(RetrainStrategyName(f.retrain.strategy), "supervised");
   EXPECT_DOUBLE_EQ(f.monitor.horizon_tol, 0.5);
   EXPECT_DOUBLE_EQ(f.monitor.change_threshold, 15.0);
   EXPECT_DOUBLE_EQ(f.monitor.change_drift, 0.5);
@@ -392,6 +394,8 @@ INSTANTIATE_TEST_SUITE_P(
         RangeCase{"iterations", FeedWith("    retrain: {iterations: 0}\n"), 4, "feeds[0].retrain.iterations",
                   "an integer >= 1"},
         RangeCase{"batch", FeedWith("    retrain: {batch: 0}\n"), 4, "feeds[0].retrain.batch", "an integer >= 1"},
+        RangeCase{"strategy", FeedWith("    retrain: {strategy: genetic}\n"), 4, "feeds[0].retrain.strategy",
+                  "supervised (the only training strategy so far); got 'genetic'"},
         RangeCase{"min_pairs", FeedWith("    retrain: {min_pairs: 0}\n"), 4, "feeds[0].retrain.min_pairs",
                   "an integer >= 1"},
         RangeCase{"replay", FeedWith("    retrain: {replay: 1}\n"), 4, "feeds[0].retrain.replay",
