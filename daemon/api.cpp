@@ -179,7 +179,7 @@ class Api {
       m = {{"version", r.version},
            {"trained_to", TimeJson(r.trained_to)},
            {"validation_error", api::OptionalNumber(r.validation_error)},
-           {"lyapunov_per_s", api::OptionalNumber(r.lyapunov_max)}};
+           {"lyapunov_per_s", api::OptionalNumber(r.lambda_max)}};
     }
     (*entry)["model"] = std::move(m);
     const FeedSchedule s = c_.scheduler->schedule(feed);

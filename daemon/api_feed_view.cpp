@@ -52,7 +52,7 @@ json ModelJson(const ModelRecord& r) {
           {"trained_from", TimeJson(r.trained_from)},
           {"trained_to", TimeJson(r.trained_to)},
           {"validation_error", OptionalNumber(r.validation_error)},
-          {"lyapunov_per_s", OptionalNumber(r.lyapunov_max)},
+          {"lyapunov_per_s", OptionalNumber(r.lambda_max)},
           {"details", std::move(details)}};
 }
 
@@ -114,7 +114,7 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
              {"trained_from", TimeJson(r.trained_from)},
              {"trained_to", TimeJson(r.trained_to)},
              {"validation_error", OptionalNumber(r.validation_error)},
-             {"lyapunov_per_s", OptionalNumber(r.lyapunov_max)},
+             {"lyapunov_per_s", OptionalNumber(r.lambda_max)},
              {"created_at", r.created_at},
              {"reason", r.reason}};
   }

@@ -77,10 +77,6 @@ SchedulerOptions SchedulerOptionsFor(const Config& config) {
   SchedulerOptions o;
   o.store_path = config.storage.path;
   o.layouts = Layouts(config);
-  o.threads = config.training.threads;
-  o.lockstep = config.training.lockstep;
-  o.retention = config.storage.retention;
-  o.keep_models = config.storage.keep_models;
   o.log = [](SchedulerLogLevel level, const std::string& text) {
     switch (level) {
       case SchedulerLogLevel::kDebug: spdlog::debug("{}", text); break;

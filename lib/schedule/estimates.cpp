@@ -34,7 +34,7 @@ Result<ExponentEstimate> DynamicsExponent(const FeedConfig& feed, const Eigen::V
                                       estimate->convergence * per_second)};
 }
 
-Result<ExponentEstimate> DataExponent(const FeedConfig& feed, const std::vector<Sample>& samples, int channel,
+Result<ExponentEstimate> DataExponent(const FeedConfig& feed, std::span<const Sample> samples, int channel,
                                       int max_samples) {
   if (channel < 0 || channel >= static_cast<int>(feed.channels.size())) {
     return Status::Invalid(fmt::format("feed '{}' has no channel {}", feed.id, channel));

@@ -1,13 +1,14 @@
 // The largest Lyapunov exponent of a feed from its known dynamics or from its
 // raw data, in the units the cadence uses (per second of data time), with the
 // diagnostics an operator needs to judge it. The model's own exponent comes
-// with each trained version (RetrainOutcome::lyapunov_per_s).
+// with each trained version (RetrainOutcome::lambda_max).
 //
 // Thread safety: reentrant; each call compiles or reads what it needs.
 #pragma once
 
 #include "core/eigen.h"  // first, instead of <Eigen/Core>: see there
 
+#include <span>
 #include <string>
 #include <vector>
 
@@ -34,7 +35,7 @@ struct ExponentEstimate {
 // missing values skipped), using the most recent `max_samples` values and at
 // most 1000 reference points so a job spends well under a second on it.
 // Errors as RosensteinLargest (too short, constant series, ...).
-[[nodiscard]] Result<ExponentEstimate> DataExponent(const FeedConfig& feed, const std::vector<Sample>& samples,
+[[nodiscard]] Result<ExponentEstimate> DataExponent(const FeedConfig& feed, std::span<const Sample> samples,
                                                     int channel = 0, int max_samples = 20000);
 
 }  // namespace lyapcast

@@ -9,26 +9,13 @@
 
 #include "learn/model_file.h"
 #include "schedule/estimates.h"
+#include "schedule/retrain_data.h"
 
 namespace lyapcast {
 namespace {
 
 constexpr std::size_t kJobsKept = 256;
 constexpr double kProgressLogSeconds = 10;  // long jobs report at info level this often
-
-Result<std::shared_ptr<const ActiveModel>> MakeActive(ModelRecord record) {
-  auto file = Deserialize(record.file);
-  if (!file.ok()) {
-    return Status::Internal(fmt::format("stored version {}: {}", record.version, file.status().message()));
-  }
-  auto active = std::make_shared<ActiveModel>();
-  active->model = std::holds_alternative<FlowMap<float>>(file->model)
-                      ? std::get<FlowMap<float>>(file->model)
-                      : std::get<FlowMap<double>>(file->model).Cast<float>();
-  active->time_unit = file->time_unit_micros;
-  active->record = std::move(record);
-  return std::shared_ptr<const ActiveModel>(std::move(active));
-}
 
 // FNV-1a of the feed id, mixed with the job's data time: the same job gets
 // the same seed in every replay, different jobs different seeds.
@@ -93,7 +80,7 @@ void Scheduler::Log(SchedulerLogLevel level, const std::string& text) const {
 
 Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
   std::vector<std::unique_ptr<Trainer>> trainers;
-  for (int k = 0; k < std::max(options_.threads, 1); ++k) {
+  for (int k = 0; k < std::max(config_.training.threads, 1); ++k) {
     Trainer& t = *trainers.emplace_back(std::make_unique<Trainer>());
     auto reader = WindowStore::Open(StoreOptions{options_.store_path, false, options_.busy_timeout_ms});
     if (!reader.ok()) return reader.status();
@@ -121,9 +108,9 @@ Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
     auto active = trainers[0]->registry->Active(i);
     if (!active.ok()) return active.status();
     if (*active) {
-      auto published = MakeActive(std::move(**active));
+      auto published = MakeActiveModel(std::move(**active));
       if (!published.ok()) return published.status();
-      f.s.estimates.model = (*published)->record.lyapunov_max;
+      f.s.estimates.model = (*published)->record.lambda_max;
       f.active.store(*published);
     }
     auto newest = trainers[0]->registry->List(i, 1);
@@ -134,9 +121,8 @@ Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
       // is where the next interval starts, paced by the estimates it
       // recorded (the data's is otherwise unknown until the next job).
       f.s.last_retrain = newest->front().trained_to;
-      const RecordedExponents recorded = ParseRecordedExponents(newest->front().details);
-      f.s.estimates.data = recorded.data;
-      f.s.estimates.dynamics = recorded.dynamics;
+      f.s.estimates.data = newest->front().data_exponent;
+      f.s.estimates.dynamics = newest->front().dynamics_exponent;
       ScheduleNextLocked(f, i, *f.s.last_retrain, false);
       Log(SchedulerLogLevel::kInfo,
           fmt::format("feed {}: active {}, last retrain used data to {}; next retrain due at {} ({})", f.config->id,
@@ -187,121 +173,180 @@ void Scheduler::RunTrainer(Trainer& trainer) {
   }
 }
 
-void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id) {
-  Feed& f = *feeds_[feed];
-  const FeedConfig& fc = *f.config;
-  const std::shared_ptr<const ActiveModel> active = f.active.load();
+// What a job knows when it starts (taken under mu_ in BeginJob).
+struct Scheduler::JobStart {
+  std::uint64_t id = 0;
+  std::uint32_t feed = 0;
+  std::shared_ptr<const ActiveModel> active;
   DataTime until{};
-  bool estimate_dynamics = false;
-  LyapunovEstimates known;  // before this job
-  std::string trigger;
+  std::string trigger;             // "<kind>: <reason>", for logs
   const char* trigger_kind = "cadence";
-  {
-    std::lock_guard lock(mu_);
-    JobInfo* j = FindJobLocked(job_id);
-    if (j != nullptr) {
-      if (j->until == DataTime{}) j->until = f.s.newest + Micros(1);  // everything committed so far
-      j->state = JobState::kRunning;
-      if (active) j->parent = active->record.version;
-      until = j->until;
-      trigger = fmt::format("{}: {}", TriggerKindName(j->trigger), j->trigger_reason);
-      trigger_kind = TriggerKindName(j->trigger);
-    } else {
-      until = f.s.newest + Micros(1);
-      trigger = "unknown";
-    }
-    f.running_until = until;
-    estimate_dynamics = fc.dynamics.has_value() && !f.dynamics_tried;
-    f.dynamics_tried = true;
-    known = f.s.estimates;
-  }
-  Log(SchedulerLogLevel::kInfo,
-      fmt::format("feed {}: job {} started ({}), data before {}, {}", fc.id, job_id, trigger, FormatRfc3339(until),
-                  active ? fmt::format("warm start from version {}", active->record.version) : "cold start"));
-  const auto started = std::chrono::steady_clock::now();
-  const auto elapsed = [&started] {
-    return std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
-  };
+  bool estimate_dynamics = false;  // the known dynamics' exponent is estimated once
+  LyapunovEstimates known;         // before this job
+};
 
-  // Lyapunov estimates from the data (and once from the known dynamics),
-  // for the cadence before a model exists and for the status report.
-  std::vector<Sample> recent;
-  const Micros recent_span = 20000 * fc.step;
-  Status read = trainer.reader->ReadRange(feed, until - recent_span, until, 4096, [&](std::span<const Sample> slice) {
-    recent.insert(recent.end(), slice.begin(), slice.end());
-    return true;
-  });
-  std::optional<ExponentEstimate> from_data, from_dynamics;
-  if (read.ok()) {
-    auto d = DataExponent(fc, recent);
-    if (d.ok()) from_data = *d;
-    else Log(SchedulerLogLevel::kDebug, fmt::format("feed {}: no data exponent yet: {}", fc.id, d.status().message()));
-    if (estimate_dynamics) {
-      for (auto it = recent.rbegin(); it != recent.rend(); ++it) {
-        if (!it->complete()) continue;
-        const Eigen::VectorXd x0 = Eigen::Map<const Eigen::VectorXd>(it->values.data(),
-                                                                      static_cast<Eigen::Index>(it->values.size()));
-        auto e = DynamicsExponent(fc, x0);
-        if (e.ok()) from_dynamics = *e;
-        else Log(SchedulerLogLevel::kWarning, fmt::format("feed {}: known dynamics give no exponent: {}", fc.id,
-                                                          e.status().message()));
-        break;
-      }
-    }
-  }
+struct Scheduler::JobEstimates {
+  std::optional<ExponentEstimate> data, dynamics;
+};
 
-  RetrainInput in;
-  in.feed = &fc;
-  in.feed_index = feed;
-  in.retention = options_.retention;
-  in.until = until;
-  if (active) in.active = active->record;
-  in.seed = JobSeed(options_.seed, fc.id, until);
-  in.lockstep = options_.lockstep;
-  in.cancel = &cancel_;
-  in.trigger = trigger_kind;
-  in.data_exponent = from_data ? std::optional<double>(from_data->per_second) : known.data;
-  in.dynamics_exponent = from_dynamics ? std::optional<double>(from_dynamics->per_second) : known.dynamics;
-  double last_info = 0;
-  int last_tenth = 0;
-  const auto progress = [&](const FitProgress& p) {
+namespace {
+
+// Fit progress in the log: debug at every tenth of the iterations, info
+// every kProgressLogSeconds so a long job shows it is alive.
+class ProgressLogger {
+ public:
+  ProgressLogger(std::function<void(SchedulerLogLevel, const std::string&)> log, std::string prefix)
+      : log_(std::move(log)), prefix_(std::move(prefix)) {}
+  void operator()(const FitProgress& p) {
     const int tenth = p.iterations > 0 ? 10 * p.iteration / p.iterations : 0;
-    const bool info = elapsed() - last_info >= kProgressLogSeconds;
-    if (!info && tenth == last_tenth) return;
-    last_tenth = tenth;
-    if (info) last_info = elapsed();
-    Log(info ? SchedulerLogLevel::kInfo : SchedulerLogLevel::kDebug,
-        fmt::format("feed {}: job {} iteration {}/{}, loss {:.4g}{}", fc.id, job_id, p.iteration, p.iterations, p.loss,
-                    p.validation ? fmt::format(", validation {:.4g}", *p.validation) : ""));
-  };
-  auto outcome = RunRetrain(*trainer.reader, *trainer.registry, in, progress);
-  const double seconds = elapsed();
+    const bool info = Elapsed() - last_info_ >= kProgressLogSeconds;
+    if (!info && tenth == last_tenth_) return;
+    last_tenth_ = tenth;
+    if (info) last_info_ = Elapsed();
+    log_(info ? SchedulerLogLevel::kInfo : SchedulerLogLevel::kDebug,
+         fmt::format("{} iteration {}/{}, loss {:.4g}{}", prefix_, p.iteration, p.iterations, p.loss,
+                     p.validation ? fmt::format(", validation {:.4g}", *p.validation) : ""));
+  }
+  double Elapsed() const {
+    return std::chrono::duration<double>(std::chrono::steady_clock::now() - started_).count();
+  }
 
-  std::shared_ptr<const ActiveModel> published;
-  if (outcome.ok() && outcome->verdict == RetrainVerdict::kPromoted && outcome->version) {
-    auto record = trainer.registry->Get(feed, *outcome->version);
-    auto made = record.ok() ? MakeActive(std::move(record).value()) : Result<std::shared_ptr<const ActiveModel>>(record.status());
-    if (made.ok()) {
-      published = *made;
-      f.active.store(published);
+ private:
+  std::function<void(SchedulerLogLevel, const std::string&)> log_;
+  std::string prefix_;
+  std::chrono::steady_clock::time_point started_ = std::chrono::steady_clock::now();
+  double last_info_ = 0;
+  int last_tenth_ = 0;
+};
+
+// The samples of `window` (oldest first) at or after `from`.
+std::span<const Sample> Since(const std::vector<Sample>& window, DataTime from) {
+  const auto first = std::lower_bound(window.begin(), window.end(), from,
+                                      [](const Sample& s, DataTime t) { return s.t < t; });
+  return {first, window.end()};
+}
+
+}  // namespace
+
+void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id) {
+  const JobStart start = BeginJob(feed, job_id);
+  const FeedConfig& fc = *feeds_[feed]->config;
+  Log(SchedulerLogLevel::kInfo,
+      fmt::format("feed {}: job {} started ({}), data before {}, {}", fc.id, job_id, start.trigger,
+                  FormatRfc3339(start.until),
+                  start.active ? fmt::format("warm start from version {}", start.active->record.version)
+                               : "cold start"));
+  ProgressLogger progress([this](SchedulerLogLevel l, const std::string& t) { Log(l, t); },
+                          fmt::format("feed {}: job {}", fc.id, job_id));
+
+  // One read serves the retraining window and the data exponent's recent span.
+  const Micros retention = config_.storage.retention;
+  const Micros recent_span = 20000 * fc.step;
+  auto window = ReadWindow(*trainer.reader, feed, start.until - std::max(retention, recent_span), start.until);
+  JobEstimates estimates;
+  Result<RetrainOutcome> outcome = window.status();
+  if (window.ok()) {
+    estimates = EstimateExponents(fc, Since(*window, start.until - recent_span), start.estimate_dynamics);
+    RetrainInput in;
+    in.feed = &fc;
+    in.feed_index = feed;
+    in.until = start.until;
+    in.window = Since(*window, start.until - retention);
+    in.active = start.active;
+    in.seed = JobSeed(options_.seed, fc.id, start.until);
+    in.lockstep = config_.training.lockstep;
+    in.cancel = &cancel_;
+    in.trigger = start.trigger_kind;
+    in.data_exponent = estimates.data ? std::optional<double>(estimates.data->per_second) : start.known.data;
+    in.dynamics_exponent =
+        estimates.dynamics ? std::optional<double>(estimates.dynamics->per_second) : start.known.dynamics;
+    outcome = RunRetrain(*trainer.registry, in, [&progress](const FitProgress& p) { progress(p); });
+  }
+  const double seconds = progress.Elapsed();
+  PublishAndPrune(trainer, start, outcome);
+  FinishJob(start, estimates, outcome, seconds);
+}
+
+Scheduler::JobStart Scheduler::BeginJob(std::uint32_t feed, std::uint64_t job_id) {
+  Feed& f = *feeds_[feed];
+  JobStart start;
+  start.id = job_id;
+  start.feed = feed;
+  start.active = f.active.load();
+  std::lock_guard lock(mu_);
+  JobInfo* j = FindJobLocked(job_id);
+  if (j != nullptr) {
+    if (j->until == DataTime{}) j->until = f.s.newest + Micros(1);  // everything committed so far
+    j->state = JobState::kRunning;
+    if (start.active) j->parent = start.active->record.version;
+    start.until = j->until;
+    start.trigger = fmt::format("{}: {}", TriggerKindName(j->trigger), j->trigger_reason);
+    start.trigger_kind = TriggerKindName(j->trigger);
+  } else {
+    start.until = f.s.newest + Micros(1);
+    start.trigger = "unknown";
+  }
+  f.running_until = start.until;
+  start.estimate_dynamics = f.config->dynamics.has_value() && !f.dynamics_tried;
+  f.dynamics_tried = true;
+  start.known = f.s.estimates;
+  return start;
+}
+
+// Lyapunov estimates from the data (and once from the known dynamics), for
+// the cadence before a model exists and for the status report.
+Scheduler::JobEstimates Scheduler::EstimateExponents(const FeedConfig& fc, std::span<const Sample> recent,
+                                                     bool estimate_dynamics) const {
+  JobEstimates out;
+  auto d = DataExponent(fc, recent);
+  if (d.ok()) {
+    out.data = *d;
+  } else {
+    Log(SchedulerLogLevel::kDebug, fmt::format("feed {}: no data exponent yet: {}", fc.id, d.status().message()));
+  }
+  if (!estimate_dynamics) return out;
+  for (auto it = recent.rbegin(); it != recent.rend(); ++it) {
+    if (!it->complete()) continue;
+    const Eigen::VectorXd x0 =
+        Eigen::Map<const Eigen::VectorXd>(it->values.data(), static_cast<Eigen::Index>(it->values.size()));
+    auto e = DynamicsExponent(fc, x0);
+    if (e.ok()) {
+      out.dynamics = *e;
     } else {
-      Log(SchedulerLogLevel::kError, fmt::format("feed {}: version {} was promoted but cannot be loaded ({}); "
-                                                 "still serving {}",
-                                                 fc.id, *outcome->version, made.status().message(),
-                                                 active ? Ver(active->record.version) : "no model"));
+      Log(SchedulerLogLevel::kWarning,
+          fmt::format("feed {}: known dynamics give no exponent: {}", fc.id, e.status().message()));
     }
+    break;
   }
-  if (outcome.ok() && outcome->verdict != RetrainVerdict::kCancelled) {
-    auto pruned = trainer.registry->Prune(feed, options_.keep_models);
-    if (!pruned.ok()) {
-      Log(SchedulerLogLevel::kWarning, fmt::format("feed {}: pruning old versions failed: {}", fc.id,
-                                                   pruned.status().message()));
-    } else if (*pruned > 0) {
-      Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: pruned {} retired/rejected versions beyond keep_models {}",
-                                                fc.id, *pruned, options_.keep_models));
-    }
-  }
+  return out;
+}
 
+// A promoted version is already durable in the registry; serve it, then
+// prune old versions (not after a cancelled job: shutting down).
+void Scheduler::PublishAndPrune(Trainer& trainer, const JobStart& start, const Result<RetrainOutcome>& outcome) {
+  Feed& f = *feeds_[start.feed];
+  const FeedConfig& fc = *f.config;
+  if (!outcome.ok() || outcome->verdict == RetrainVerdict::kCancelled) return;
+  if (outcome->promoted) f.active.store(outcome->promoted);
+  const int keep = config_.storage.keep_models;
+  auto pruned = trainer.registry->Prune(start.feed, keep);
+  if (!pruned.ok()) {
+    Log(SchedulerLogLevel::kWarning,
+        fmt::format("feed {}: pruning old versions failed: {}", fc.id, pruned.status().message()));
+  } else if (*pruned > 0) {
+    Log(SchedulerLogLevel::kInfo,
+        fmt::format("feed {}: pruned {} retired/rejected versions beyond keep_models {}", fc.id, *pruned, keep));
+  }
+}
+
+// Bookkeeping after a job: the job record, counters, estimates, the next
+// due time, and one log line with the outcome.
+void Scheduler::FinishJob(const JobStart& start, const JobEstimates& estimates,
+                          const Result<RetrainOutcome>& outcome, double seconds) {
+  Feed& f = *feeds_[start.feed];
+  const FeedConfig& fc = *f.config;
+  const std::uint64_t job_id = start.id;
+  const std::string serving = start.active ? Ver(start.active->record.version) : "no model";
   std::lock_guard lock(mu_);
   JobInfo done;
   if (JobInfo* j = FindJobLocked(job_id); j != nullptr) {
@@ -309,21 +354,20 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     j->seconds = seconds;
     done = *j;
   }
-  if (from_data) {
-    f.s.estimates.data = from_data->per_second;
-    f.s.data_diagnostics = from_data->diagnostics;
+  if (estimates.data) {
+    f.s.estimates.data = estimates.data->per_second;
+    f.s.data_diagnostics = estimates.data->diagnostics;
   }
-  if (from_dynamics) {
-    f.s.estimates.dynamics = from_dynamics->per_second;
-    f.s.dynamics_diagnostics = from_dynamics->diagnostics;
+  if (estimates.dynamics) {
+    f.s.estimates.dynamics = estimates.dynamics->per_second;
+    f.s.dynamics_diagnostics = estimates.dynamics->diagnostics;
   }
   bool retry_soon = false;
   if (!outcome.ok()) {
     ++f.s.failed;
     done.outcome = outcome.status().message();
     Log(SchedulerLogLevel::kError, fmt::format("feed {}: job {} failed after {:.1f}s: {}; still serving {}", fc.id,
-                                               job_id, seconds, done.outcome,
-                                               active ? Ver(active->record.version) : "no model"));
+                                               job_id, seconds, done.outcome, serving));
     retry_soon = true;
   } else {
     const RetrainOutcome& o = *outcome;
@@ -334,7 +378,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     switch (o.verdict) {
       case RetrainVerdict::kPromoted:
         ++f.s.promoted;
-        if (published) f.s.estimates.model = published->record.lyapunov_max;
+        if (o.promoted) f.s.estimates.model = o.promoted->record.lambda_max;
         Log(SchedulerLogLevel::kInfo,
             fmt::format("feed {}: job {} promoted version {} in {:.1f}s ({} iterations): {}", fc.id, job_id,
                         o.version.value_or(0), seconds, o.fit.iterations, o.reason));
@@ -343,8 +387,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
         ++f.s.rejected;
         Log(SchedulerLogLevel::kWarning,
             fmt::format("feed {}: job {} rejected candidate version {} in {:.1f}s: {}; still serving {}", fc.id,
-                        job_id, o.version.value_or(0), seconds, o.reason,
-                        active ? Ver(active->record.version) : "no model"));
+                        job_id, o.version.value_or(0), seconds, o.reason, serving));
         break;
       case RetrainVerdict::kNotEnoughData:
         ++f.s.not_enough_data;
@@ -360,23 +403,28 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   }
   if (JobInfo* j = FindJobLocked(job_id); j != nullptr) *j = done;
   f.s.last_job = done;
-  f.s.last_retrain = until;
+  f.s.last_retrain = start.until;
   ++f.s.jobs_finished;
   f.s.job_seconds_total += seconds;
+  ScheduleAfterJobLocked(f, start, retry_soon);
+}
+
+void Scheduler::ScheduleAfterJobLocked(Feed& f, const JobStart& start, bool retry_soon) {
+  const FeedConfig& fc = *f.config;
   if (retry_soon && f.active.load()) {
     // A failure with a model: try again after min_interval, not a whole cadence.
     const Micros interval = std::max(fc.retrain.min_interval, fc.step);
-    f.s.next_due = until + interval;
+    f.s.next_due = start.until + interval;
     f.s.next_reason = fmt::format("the last job did not finish a model: retry after {}", FormatDuration(interval));
   } else {
-    ScheduleNextLocked(f, feed, until, retry_soon);
+    ScheduleNextLocked(f, start.feed, start.until, retry_soon);
   }
   Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: next retrain due at {} ({})", fc.id,
                                             FormatRfc3339(f.s.next_due), f.s.next_reason));
-  if (f.s.newest >= f.s.next_due && !options_.lockstep) {
+  if (f.s.newest >= f.s.next_due && !config_.training.lockstep) {
     Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: that retrain was due while job {} ran (data reached {}); "
                                               "it starts now",
-                                              fc.id, job_id, FormatRfc3339(f.s.newest)));
+                                              fc.id, start.id, FormatRfc3339(f.s.newest)));
   }
 }
 
@@ -455,7 +503,7 @@ std::uint64_t Scheduler::QueueLocked(std::uint32_t feed, TriggerKind kind, std::
   job.trigger = kind;
   job.trigger_reason = std::move(reason);
   // A cadence job in lockstep uses exactly the data before its due time.
-  if (kind == TriggerKind::kCadence && options_.lockstep) job.until = f.s.next_due;
+  if (kind == TriggerKind::kCadence && config_.training.lockstep) job.until = f.s.next_due;
   if (until) job.until = *until;
   jobs_.push_back(job);
   while (jobs_.size() > kJobsKept) jobs_.pop_front();
@@ -495,7 +543,7 @@ void Scheduler::OnSample(std::uint32_t feed, DataTime t) {
   if (f.s.next_due == DataTime{} || t < f.s.next_due) return;  // the common case: nothing due
   QueueDueLocked();
   work_cv_.notify_all();
-  if (options_.lockstep) {
+  if (config_.training.lockstep) {
     // Ingest pauses here (the writer does not go on) until every due
     // retrain is done; a job's end may make the next one due.
     idle_cv_.wait(lock, [this] { return stopping_ || !BusyLocked(); });
@@ -507,7 +555,7 @@ void Scheduler::OnCommitted(const CommittedBatch& batch) {
 }
 
 void Scheduler::WaitIfLockstep() {
-  if (!options_.lockstep) return;
+  if (!config_.training.lockstep) return;
   std::unique_lock lock(mu_);
   idle_cv_.wait(lock, [this] { return stopping_ || !BusyLocked(); });
 }
@@ -587,22 +635,24 @@ Status Scheduler::Activate(std::uint32_t feed, std::int64_t version, const std::
     release();
     return record.status();
   }
-  if (Status s = admin_registry_->Activate(feed, version, reason); !s.ok()) {
-    release();
-    return s;
-  }
   record->status = ModelStatus::kActive;
   record->reason = reason;
-  auto published = MakeActive(std::move(record).value());
+  // Decoded before the registry changes: a version that cannot be served is
+  // never made active.
+  auto published = MakeActiveModel(std::move(record).value());
   if (!published.ok()) {
     release();
     return published.status();
+  }
+  if (Status s = admin_registry_->Activate(feed, version, reason); !s.ok()) {
+    release();
+    return s;
   }
   const auto previous = f.active.load();
   f.active.store(*published);
   {
     std::lock_guard lock(mu_);
-    f.s.estimates.model = (*published)->record.lyapunov_max;
+    f.s.estimates.model = (*published)->record.lambda_max;
     Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: version {} activated by an operator ({}), replacing {}",
                                               f.config->id, version, reason,
                                               previous ? Ver(previous->record.version) : "no model"));

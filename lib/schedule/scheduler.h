@@ -18,7 +18,7 @@
 // immutable object behind an atomic shared pointer, so readers never wait.
 // A failed, diverged or worse candidate leaves the active version in place.
 //
-// Lockstep (`lockstep`): OnSample() does not return while a job is due or
+// Lockstep (training.lockstep): OnSample() does not return while a job is due or
 // running, so the writer, and through backpressure the ingest sessions,
 // pause until the retraining is done, and later samples (and whatever the
 // caller does with them, e.g. drift scoring) see the new model. A cadence job then uses exactly the
@@ -45,12 +45,13 @@
 #include <memory>
 #include <mutex>
 #include <optional>
+#include <span>
 #include <string>
 #include <thread>
 #include <vector>
 
 #include "config/config.h"
-#include "learn/flow_map.h"
+#include "schedule/active_model.h"
 #include "schedule/cadence.h"
 #include "schedule/retrain_job.h"
 #include "store/model_registry.h"
@@ -62,23 +63,15 @@ namespace lyapcast {
 enum class SchedulerLogLevel { kDebug, kInfo, kWarning, kError };
 using SchedulerLog = std::function<void(SchedulerLogLevel, const std::string&)>;
 
+// What the scheduler needs beyond the Config it is given (which supplies
+// training.threads, training.lockstep, storage.retention and
+// storage.keep_models).
 struct SchedulerOptions {
   std::filesystem::path store_path;        // the window database (required)
   std::vector<FeedLayout> layouts;         // as registered by the writer's store
-  int threads = 1;                         // training.threads
-  bool lockstep = false;                   // training.lockstep
-  Micros retention = 6 * 3600 * kSecond;  // storage.retention
-  int keep_models = 200;                   // storage.keep_models
   int busy_timeout_ms = 5000;
   std::uint64_t seed = 1;                  // mixed with the feed and the job's data time
   SchedulerLog log;                        // may be empty
-};
-
-// The served model of a feed; never changes once published.
-struct ActiveModel {
-  ModelRecord record;  // with the model file bytes
-  FlowMap<float> model;
-  Micros time_unit = kSecond;  // data time per model time unit
 };
 
 enum class TriggerKind { kCadence, kDrift, kOperator };
@@ -184,7 +177,18 @@ class Scheduler {
   // Requires mu_. Queues (or coalesces into) a job of `feed`.
   std::uint64_t QueueLocked(std::uint32_t feed, TriggerKind kind, std::string reason,
                             std::optional<DataTime> until = std::nullopt);
+  // A job, in steps: BeginJob (under mu_: marks it running, fixes its data
+  // end), EstimateExponents, RunRetrain, PublishAndPrune, FinishJob (under
+  // mu_: bookkeeping, the next due time).
+  struct JobStart;
+  struct JobEstimates;
   void RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_id);
+  JobStart BeginJob(std::uint32_t feed, std::uint64_t job_id);
+  JobEstimates EstimateExponents(const FeedConfig& fc, std::span<const Sample> recent, bool estimate_dynamics) const;
+  void PublishAndPrune(Trainer& trainer, const JobStart& start, const Result<RetrainOutcome>& outcome);
+  void FinishJob(const JobStart& start, const JobEstimates& estimates, const Result<RetrainOutcome>& outcome,
+                 double seconds);
+  void ScheduleAfterJobLocked(Feed& f, const JobStart& start, bool retry_soon);  // requires mu_
   bool BusyLocked() const;  // some job queued or running
   void ReleaseActivatingLocked(Feed& f, std::uint32_t feed);  // requires mu_
   JobInfo* FindJobLocked(std::uint64_t id);

@@ -39,7 +39,11 @@ Config LorenzConfig() {
 // A store, its writer and a scheduler subscribed to it, as the daemon wires them.
 class Rig {
  public:
-  Rig(const Config& config, const fs::path& db, bool lockstep, int commit_batch, int keep_models = 1000) {
+  // Sets training.lockstep and storage.keep_models on `config`, which the
+  // scheduler keeps a reference to (a test may change it between jobs).
+  Rig(Config& config, const fs::path& db, bool lockstep, int commit_batch, int keep_models = 1000) {
+    config.training.lockstep = lockstep;
+    config.storage.keep_models = keep_models;
     auto store = WindowStore::Open(StoreOptions{db, false, 5000});
     EXPECT_TRUE(store.ok()) << store.status().ToString();
     EXPECT_TRUE((*store)->RegisterFeeds(Layouts(config)).ok());
@@ -49,8 +53,6 @@ class Rig {
     SchedulerOptions o;
     o.store_path = db;
     o.layouts = Layouts(config);
-    o.lockstep = lockstep;
-    o.keep_models = keep_models;
     o.log = [this](SchedulerLogLevel, const std::string& text) {
       std::lock_guard lock(log_mu_);
       log_.push_back(text);
@@ -134,7 +136,7 @@ std::vector<Version> Versions(const fs::path& db, const Config& config) {
 }
 
 TEST(Scheduler, LockstepReplayGivesTheSameRetrainPointsAndModelBytesAtAnyGrouping) {
-  const Config config = LorenzConfig();
+  Config config = LorenzConfig();
   const std::vector<FeedSample> data = testing::LorenzSamples(2000, DataTimeFromMicros(1'000'000'000'000'000));
   std::vector<Version> runs[2];
   const std::pair<std::size_t, int> groupings[2] = {{7, 16}, {997, 4096}};  // (chunk, commit_batch)
@@ -301,7 +303,7 @@ TEST(Scheduler, WarnsOnceWhenHealthWouldCallEveryRetrainIntervalStale) {
 }
 
 TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
-  const Config config = LorenzConfig();
+  Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
   ASSERT_TRUE(rig.scheduler().SetPaused(0, true).ok());
@@ -318,7 +320,7 @@ TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
 }
 
 TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
-  const Config config = LorenzConfig();
+  Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
   Rig rig(config, db, /*lockstep=*/true, 4096);
@@ -351,7 +353,7 @@ TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
 }
 
 TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
-  const Config config = LorenzConfig();
+  Config config = LorenzConfig();
   testing::TempDir dir("lyapcast-scheduler-test");
   const fs::path db = dir.path() / "w.db";
   const std::vector<FeedSample> data = testing::LorenzSamples(2000, DataTime{});

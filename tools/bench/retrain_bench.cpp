@@ -53,6 +53,7 @@
 #include "physics/dynamics.h"
 #include "physics/integrators.h"
 #include "schedule/cadence.h"
+#include "schedule/retrain_data.h"
 #include "schedule/retrain_job.h"
 #include "store/model_registry.h"
 #include "store/window_store.h"
@@ -266,14 +267,19 @@ void Insert(WindowStore& writer, const Truth& truth, std::size_t from, std::size
   Must(writer.InsertBatch(batch, &outcomes), "inserting samples");
 }
 
-RetrainInput Input(const FeedConfig& feed, DataTime until, std::optional<ModelRecord> active, std::uint64_t seed) {
+// One job as the scheduler runs it: the window read once, then RunRetrain.
+RetrainOutcome Retrain(Db& db, const FeedConfig& feed, DataTime until, const std::optional<ModelRecord>& active,
+                       std::uint64_t seed, const char* what) {
+  const std::vector<Sample> window =
+      Must(ReadWindow(*db.reader, 0, until - StorageConfig{}.retention, until), "reading the window");
   RetrainInput in;
   in.feed = &feed;
   in.until = until;
-  in.active = std::move(active);
+  in.window = window;
+  if (active) in.active = Must(MakeActiveModel(*active), "decoding the active model");
   in.seed = seed;
   in.lockstep = true;
-  return in;
+  return Must(RunRetrain(*db.registry, in), what);
 }
 
 FlowMap<float> ModelOf(const ModelRecord& record) {
@@ -299,14 +305,14 @@ WarmTiming TimeWarmRetrain(const fs::path& file, const Truth& truth, std::uint64
   Insert(*db.writer, truth, 0, window, 1);
   FeedConfig cold = LorenzFeed();
   cold.retrain.iterations = 500;
-  auto first = Must(RunRetrain(*db.reader, *db.registry, Input(cold, TimeOf(window), std::nullopt, seed)), "cold start");
+  auto first = Retrain(db, cold, TimeOf(window), std::nullopt, seed, "cold start");
   if (first.verdict != RetrainVerdict::kPromoted) Fail("part 1 cold start not promoted: " + first.reason);
 
   Insert(*db.writer, truth, window, fresh, 1);
   const FeedConfig warm = LorenzFeed();  // iterations 2000
   auto active = Must(db.registry->Active(0), "reading the active model");
   const auto started = Clock::now();
-  auto out = Must(RunRetrain(*db.reader, *db.registry, Input(warm, TimeOf(fresh), active, seed + 1)), "warm start");
+  auto out = Retrain(db, warm, TimeOf(fresh), active, seed + 1, "warm start");
   WarmTiming t;
   t.wall_s = ElapsedSeconds(started);
   t.fit_s = out.fit.seconds;
@@ -350,7 +356,7 @@ std::string FirstModel(Db& db, const FeedConfig& feed, const StreamPlan& plan, s
   FeedConfig cold = feed;
   cold.retrain.iterations = plan.cold_iterations;
   const DataTime until = TimeOf(IndexAt(plan.first_s));
-  auto out = Must(RunRetrain(*db.reader, *db.registry, Input(cold, until, std::nullopt, seed)), "cold start");
+  auto out = Retrain(db, cold, until, std::nullopt, seed, "cold start");
   if (out.verdict != RetrainVerdict::kPromoted) {
     Fail(fmt::format("RunRetrain cold start on [0, {:g}s) gave no model ({}: {})", plan.first_s,
                      RetrainVerdictName(out.verdict), out.reason));
@@ -377,14 +383,14 @@ ContinualRun RunContinual(const fs::path& file, const FeedConfig& feed, const Tr
     // As the daemon would: the active model's exponent and the known
     // dynamics' (nominal rho); NextRetrain paces by the larger.
     LyapunovEstimates estimates;
-    estimates.model = active->lyapunov_max;
+    estimates.model = active->lambda_max;
     estimates.dynamics = nominal_lambda;
     const CadenceDecision next = NextRetrain(feed.retrain, estimates, true, since);
     if (run.cadence_example.empty()) run.cadence_example = next.reason;
     if (next.due > end) break;
     Insert(*db.writer, truth, FirstIndexFrom(since), FirstIndexFrom(next.due), stride);
     const auto started = Clock::now();
-    auto out = Must(RunRetrain(*db.reader, *db.registry, Input(feed, next.due, *active, settings.seed + k)), "retrain");
+    auto out = Retrain(db, feed, next.due, *active, settings.seed + k, "retrain");
     run.retrain_wall_s += ElapsedSeconds(started);
     ++run.retrains;
     (since < change ? run.intervals_before_s : run.intervals_after_s).push_back(Seconds(next.interval));
@@ -393,7 +399,7 @@ ContinualRun RunContinual(const fs::path& file, const FeedConfig& feed, const Tr
     ++run.verdicts[verdict];
     run.first_reason.emplace(verdict, out.reason);
     if (settings.verbose) {
-      const std::string lambda = out.lyapunov_per_s ? fmt::format("{:.3f}/s", *out.lyapunov_per_s) : "?";
+      const std::string lambda = out.lambda_max ? fmt::format("{:.3f}/s", *out.lambda_max) : "?";
       std::printf("    t=%7.2fs  interval %5.2fs  %-9s candidate lambda %-8s %s\n", ToEpochSeconds(next.due),
                   Seconds(next.interval), verdict.c_str(), lambda.c_str(), out.reason.c_str());
     }

@@ -1,0 +1,34 @@
+// ActiveModel: the version of a feed being served, decoded once.
+//
+// Built once per promotion (from the candidate a job just trained, or from
+// the stored bytes at start-up and on an operator's activation) and then
+// shared read-only: the scheduler publishes it behind an atomic shared
+// pointer, the drift monitor scores with it, forecasts roll it out and the
+// next retraining job warm-starts from it, none of them decoding bytes again.
+//
+// Immutable after construction; any thread may read it.
+#pragma once
+
+#include <memory>
+
+#include "core/data_time.h"
+#include "core/status.h"
+#include "learn/flow_map.h"
+#include "store/model_registry.h"
+
+namespace lyapcast {
+
+struct ActiveModel {
+  ModelRecord record;          // with the model file bytes
+  FlowMap<float> model;        // the served map (float, as it was trained)
+  Micros time_unit = kSecond;  // data time per model time unit
+};
+
+// Decodes record.file. kInternal naming the version when the bytes are not
+// a readable model file.
+[[nodiscard]] Result<std::shared_ptr<const ActiveModel>> MakeActiveModel(ModelRecord record);
+
+// From a model already in memory (a job's promoted candidate): no decoding.
+std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, FlowMap<float> model, Micros time_unit);
+
+}  // namespace lyapcast
