@@ -76,7 +76,8 @@ std::optional<double> LargestExponentPerSecond(const FlowMap<float>& model, cons
   o.exponents = 1;
   o.steps = std::clamp(static_cast<long>(200.0 / model.dt()), 1000L, 20000L);
   o.transient_steps = o.steps / 10;
-  auto e = LyapunovSpectrum(LearnedMapStep(model), x0, o);
+  const NeuralFlowMap<float> wrapped(model);
+  auto e = LyapunovSpectrum(ModelMapStep(wrapped), x0, o);
   if (!e.ok()) return std::nullopt;
   return e->exponents[0] / Seconds(time_unit);
 }
