@@ -107,7 +107,7 @@ void NeuralFlowMap<T>::Jacobian(const Eigen::VectorXd& x, Eigen::MatrixXd* J, Mo
 template class NeuralFlowMap<float>;
 template class NeuralFlowMap<double>;
 
-Trajectory Rollout(const ForecastModel& model, const Eigen::VectorXd& start, std::int64_t steps,
+FreeRun Rollout(const ForecastModel& model, const Eigen::VectorXd& start, std::int64_t steps,
                    ModelScratch* scratch) {
   assert(start.size() == model.shape().channels && steps >= 0);
   std::unique_ptr<ModelScratch> own;
@@ -115,7 +115,7 @@ Trajectory Rollout(const ForecastModel& model, const Eigen::VectorXd& start, std
     own = model.NewScratch();
     scratch = own.get();
   }
-  Trajectory out;
+  FreeRun out;
   out.states.resize(start.size(), static_cast<Eigen::Index>(steps));
   Eigen::VectorXd x = start, next;
   for (std::int64_t k = 0; k < steps; ++k) {

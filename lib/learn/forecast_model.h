@@ -132,14 +132,14 @@ const FlowMap<T>* NeuralNetworkOf(const ForecastModel& model) {
 // values as missing (null in JSON, empty in CSV) rather than stopping, so the
 // trajectory always has `steps` columns. first_non_finite is the column of
 // the first non-finite value (-1 when every value is finite).
-struct Trajectory {
+struct FreeRun {
   Eigen::MatrixXd states;
   std::int64_t first_non_finite = -1;
 };
 
 // Requires start.size() == model.shape().channels and steps >= 0. `scratch`
 // may be null (one is made for the call) or from model.NewScratch().
-Trajectory Rollout(const ForecastModel& model, const Eigen::VectorXd& start, std::int64_t steps,
+FreeRun Rollout(const ForecastModel& model, const Eigen::VectorXd& start, std::int64_t steps,
                    ModelScratch* scratch = nullptr);
 
 }  // namespace lyapcast

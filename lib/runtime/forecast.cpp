@@ -38,7 +38,7 @@ Result<Forecast> MakeForecast(const ForecastModel& model, const ForecastRequest&
   f.start = request.start;
   f.horizon = ForecastHorizon(request.lambda_max_per_s, request.e0, request.tol);
   const Eigen::VectorXd start = Eigen::Map<const Eigen::VectorXd>(request.start.data(), channels);
-  const Trajectory run = Rollout(model, start, request.steps);
+  const FreeRun run = Rollout(model, start, request.steps);
   f.points.resize(static_cast<std::size_t>(request.steps));
   for (std::int64_t k = 0; k < request.steps; ++k) {
     ForecastPoint& p = f.points[static_cast<std::size_t>(k)];

@@ -50,7 +50,7 @@ TEST(NeuralFlowMap, FloatRolloutEqualsAFloatLoop) {
   const FlowMap<float> map = RandomMap().Cast<float>();
   const NeuralFlowMap<float> model(map);
   const Eigen::Vector3d start(0.3, -0.8, 1.7);
-  const Trajectory run = Rollout(model, start, 50);
+  const FreeRun run = Rollout(model, start, 50);
   ASSERT_EQ(run.states.cols(), 50);
   EXPECT_EQ(run.first_non_finite, -1);
   FlowMap<float>::Mat x = start.cast<float>(), y;
@@ -84,7 +84,7 @@ TEST(NeuralFlowMap, StepBatchAndJacobianAgreeWithTheNetwork) {
 TEST(Rollout, ContinuesPastNonFiniteValuesAndFlagsTheFirst) {
   const NeuralFlowMap<float> model(RandomMap().Cast<float>());
   const double inf = std::numeric_limits<double>::infinity();
-  const Trajectory run = Rollout(model, Eigen::Vector3d(inf, 0.0, 0.0), 5);
+  const FreeRun run = Rollout(model, Eigen::Vector3d(inf, 0.0, 0.0), 5);
   EXPECT_EQ(run.states.cols(), 5);  // never cut short: one point per step
   EXPECT_EQ(run.first_non_finite, 0);
   EXPECT_EQ(Rollout(model, Eigen::Vector3d(0.0, 0.0, 0.0), 0).states.cols(), 0);

@@ -50,7 +50,7 @@ TEST(MakeForecast, PointsAreTheFreeRunOnTheDataGrid) {
   EXPECT_EQ(f->from, kFrom);
   EXPECT_EQ(f->start, (std::vector<double>{1.0, 2.0}));
   ASSERT_EQ(f->points.size(), 4u);
-  const Trajectory run = Rollout(*model, Eigen::Vector2d(1.0, 2.0), 4);
+  const FreeRun run = Rollout(*model, Eigen::Vector2d(1.0, 2.0), 4);
   for (std::size_t k = 0; k < 4; ++k) {
     const ForecastPoint& p = f->points[k];
     EXPECT_EQ(p.t, kFrom + static_cast<std::int64_t>(k + 1) * kStep);
