@@ -21,10 +21,12 @@ Result<std::shared_ptr<const ActiveModel>> MakeActive(ModelRecord record) {
   if (!file.ok()) {
     return Status::Internal(fmt::format("stored version {}: {}", record.version, file.status().message()));
   }
+  auto model = MakeForecastModel(*file, ModelScalar::kFloat32);
+  if (!model.ok()) {
+    return Status::Internal(fmt::format("stored version {}: {}", record.version, model.status().message()));
+  }
   auto active = std::make_shared<ActiveModel>();
-  active->model = std::holds_alternative<FlowMap<float>>(file->model)
-                      ? std::get<FlowMap<float>>(file->model)
-                      : std::get<FlowMap<double>>(file->model).Cast<float>();
+  active->model = std::move(model).value();
   active->time_unit = file->time_unit_micros;
   active->record = std::move(record);
   return std::shared_ptr<const ActiveModel>(std::move(active));

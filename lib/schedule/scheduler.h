@@ -50,7 +50,7 @@
 #include <vector>
 
 #include "config/config.h"
-#include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "schedule/cadence.h"
 #include "schedule/retrain_job.h"
 #include "store/model_registry.h"
@@ -77,7 +77,7 @@ struct SchedulerOptions {
 // The served model of a feed; never changes once published.
 struct ActiveModel {
   ModelRecord record;  // with the model file bytes
-  FlowMap<float> model;
+  std::shared_ptr<const ForecastModel> model;  // never null; float, as the drift monitor scores it
   Micros time_unit = kSecond;  // data time per model time unit
 };
 
