@@ -9,9 +9,9 @@
 #include "api_feed_view.h"
 #include "api_routes.h"
 #include "api_store.h"
-#include "chaos/horizon.h"
 #include "core/wall_clock.h"
 #include "feed_monitors.h"
+#include "runtime/forecast.h"
 
 namespace lyapcast::api {
 namespace {
@@ -20,30 +20,54 @@ constexpr std::int64_t kMaxSteps = 100'000;
 constexpr std::int64_t kDefaultSteps = 100;
 constexpr int kFromLookbackSteps = 10;  // from=T uses a complete sample at most this many steps before T
 
-struct Trajectory {
-  std::vector<DataTime> times;
-  std::vector<std::vector<double>> values;
-};
+std::string CsvNumber(double v) { return std::isfinite(v) ? fmt::format("{:.9g}", v) : ""; }
 
-Trajectory FreeRun(const FlowMap<float>& model, const Sample& start, Micros step, std::int64_t steps) {
-  Trajectory out;
-  out.times.reserve(static_cast<std::size_t>(steps));
-  out.values.reserve(static_cast<std::size_t>(steps));
-  FlowMap<float>::Mat x(model.channels(), 1), y;
-  for (int c = 0; c < model.channels(); ++c) x(c, 0) = static_cast<float>(start.values[static_cast<std::size_t>(c)]);
-  FlowMapCache<float> cache;
-  for (std::int64_t k = 1; k <= steps; ++k) {
-    model.Forward(x, &y, &cache);
-    x = y;
-    std::vector<double> v(static_cast<std::size_t>(model.channels()));
-    for (int c = 0; c < model.channels(); ++c) v[static_cast<std::size_t>(c)] = static_cast<double>(x(c, 0));
-    out.times.push_back(start.t + k * step);
-    out.values.push_back(std::move(v));
+std::string CsvBody(const FeedConfig& fc, const lyapcast::Forecast& f) {
+  std::string body = "time";
+  for (const std::string& ch : fc.channels) body += "," + ch;
+  body += ",beyond_horizon\n";
+  for (const ForecastPoint& p : f.points) {
+    body += FormatRfc3339(p.t);
+    for (double v : p.values) body += "," + CsvNumber(v);
+    body += p.beyond_horizon ? ",1\n" : ",0\n";
   }
-  return out;
+  return body;
 }
 
-std::string CsvNumber(double v) { return std::isfinite(v) ? fmt::format("{:.9g}", v) : ""; }
+// The JSON body: the fields of `head` as Json() would write them (keys in
+// the document's order), then "points" last. The points are most of the
+// body: written directly rather than through a JSON document tree, which
+// took most of a 1000-step forecast's time.
+std::string JsonBody(const json& head, const lyapcast::Forecast& f) {
+  std::string body = "{";
+  for (const auto& [key, value] : head.items()) {
+    if (body.size() > 1) body += ',';
+    body += json(key).dump(-1, ' ', false, json::error_handler_t::replace);
+    body += ':';
+    body += value.dump(-1, ' ', false, json::error_handler_t::replace);
+  }
+  const std::size_t channels = f.start.size();
+  body.reserve(body.size() + f.points.size() * (96 + 24 * channels));
+  auto out = std::back_inserter(body);
+  fmt::format_to(out, ",\"points\":[");
+  for (std::size_t k = 0; k < f.points.size(); ++k) {
+    const ForecastPoint& p = f.points[k];
+    fmt::format_to(out, "{}{{\"t\":{{\"epoch_s\":{},\"rfc3339\":\"{}\"}},\"values\":[", k ? "," : "",
+                   ToEpochSeconds(p.t), FormatRfc3339(p.t));
+    for (std::size_t c = 0; c < p.values.size(); ++c) {
+      const double v = p.values[c];
+      if (c) body += ',';
+      if (std::isfinite(v)) {
+        fmt::format_to(out, "{}", v);
+      } else {
+        body += "null";
+      }
+    }
+    fmt::format_to(out, "],\"beyond_horizon\":{}}}", p.beyond_horizon ? "true" : "false");
+  }
+  body += "]}\n";
+  return body;
+}
 
 }  // namespace
 
@@ -103,34 +127,26 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   }
 
   const FeedView view = ViewFeed(c, feed, WallNow());
-  const Trajectory run = FreeRun(active->model, *start, fc.step, steps);
-
   // Predictability horizon from the exponent the cadence paces by and the
   // monitor's current one-step error.
   double e0 = c.monitors->e0(feed);
   if (!std::isfinite(e0) && active->record.validation_error) e0 = *active->record.validation_error;
-  std::string why;
-  std::optional<double> horizon_s;
-  if (!view.exponent) {
-    why = "no Lyapunov exponent estimate yet";
-  } else {
-    horizon_s = PredictabilityHorizon(view.exponent->lambda_max, e0, fc.monitor.horizon_tol, &why);
-  }
-  const auto beyond = [&](DataTime t) {
-    return horizon_s && Seconds(t - start->t) > *horizon_s;
-  };
+  ForecastRequest request;
+  request.from = start->t;
+  request.start = start->values;
+  request.step = fc.step;
+  request.steps = steps;
+  if (view.exponent) request.lambda_max_per_s = view.exponent->lambda_max;
+  request.e0 = e0;
+  request.tol = fc.monitor.horizon_tol;
+  auto made = MakeForecast(*active->model, request);
+  if (!made.ok()) return FromStatus(made.status());
+  const lyapcast::Forecast& f = *made;
 
   if (*csv) {
     HttpResponse r;
     r.content_type = "text/csv; charset=utf-8";
-    r.body = "time";
-    for (const std::string& ch : fc.channels) r.body += "," + ch;
-    r.body += ",beyond_horizon\n";
-    for (std::size_t k = 0; k < run.times.size(); ++k) {
-      r.body += FormatRfc3339(run.times[k]);
-      for (double v : run.values[k]) r.body += "," + CsvNumber(v);
-      r.body += beyond(run.times[k]) ? ",1\n" : ",0\n";
-    }
+    r.body = CsvBody(fc, f);
     r.headers.emplace_back("X-Lyapcast-Model-Version", std::to_string(active->record.version));
     return r;
   }
@@ -142,46 +158,27 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
                 {"lyapunov_time_s",
                  view.exponent->lambda_max > 0 ? json(1.0 / view.exponent->lambda_max) : json(nullptr)}};
   }
-  json horizon = {{"seconds", OptionalNumber(horizon_s)},
-                  {"lyapunov_times",
-                   horizon_s && view.exponent ? json(*horizon_s * view.exponent->lambda_max) : json(nullptr)},
-                  {"e0", OptionalNumber(e0)},
-                  {"tol", fc.monitor.horizon_tol},
-                  {"reason", horizon_s ? json(nullptr) : json(why)}};
+  const Horizon& h = f.horizon;
+  json horizon = {{"seconds", OptionalNumber(h.seconds)},
+                  {"lyapunov_times", OptionalNumber(h.lyapunov_times)},
+                  {"e0", OptionalNumber(h.e0)},
+                  {"tol", h.tol},
+                  {"reason", h.seconds ? json(nullptr) : json(h.reason)}};
   json start_values = json::array();
-  for (double v : start->values) start_values.push_back(v);
-  HttpResponse r = Json(200, json{{"feed", fc.id},
-                                  {"model_version", active->record.version},
-                                  {"channels", fc.channels},
-                                  {"step_s", Seconds(fc.step)},
-                                  {"from", TimeJson(start->t)},
-                                  {"start", std::move(start_values)},
-                                  {"lyapunov", std::move(lyapunov)},
-                                  {"horizon", std::move(horizon)},
-                                  {"staleness", StalenessJson(view)},
-                                  {"advisory", kAdvisory}});
-  // The points are most of the body: written directly rather than through a
-  // JSON document tree, which took most of a 1000-step forecast's time.
-  if (!r.body.empty() && r.body.back() == '\n') r.body.pop_back();
-  if (!r.body.empty() && r.body.back() == '}') r.body.pop_back();  // reopen the top-level object
-  r.body.reserve(r.body.size() + run.times.size() * (96 + 24 * fc.channels.size()));
-  auto out = std::back_inserter(r.body);
-  fmt::format_to(out, ",\"points\":[");
-  for (std::size_t k = 0; k < run.times.size(); ++k) {
-    fmt::format_to(out, "{}{{\"t\":{{\"epoch_s\":{},\"rfc3339\":\"{}\"}},\"values\":[", k ? "," : "",
-                   ToEpochSeconds(run.times[k]), FormatRfc3339(run.times[k]));
-    for (std::size_t c = 0; c < run.values[k].size(); ++c) {
-      const double v = run.values[k][c];
-      if (c) r.body += ',';
-      if (std::isfinite(v)) {
-        fmt::format_to(out, "{}", v);
-      } else {
-        r.body += "null";
-      }
-    }
-    fmt::format_to(out, "],\"beyond_horizon\":{}}}", beyond(run.times[k]) ? "true" : "false");
-  }
-  r.body += "]}\n";
+  for (double v : f.start) start_values.push_back(v);
+  const json head{{"feed", fc.id},
+                  {"model_version", active->record.version},
+                  {"channels", fc.channels},
+                  {"step_s", Seconds(fc.step)},
+                  {"from", TimeJson(f.from)},
+                  {"start", std::move(start_values)},
+                  {"lyapunov", std::move(lyapunov)},
+                  {"horizon", std::move(horizon)},
+                  {"staleness", StalenessJson(view)},
+                  {"advisory", kAdvisory}};
+  HttpResponse r;
+  r.status = 200;
+  r.body = JsonBody(head, f);
   return r;
 }
 

@@ -61,8 +61,7 @@ void FeedMonitors::SyncModel(Feed& f) {
   const ModelRecord& r = active->record;
   auto created = ParseWallRfc3339(r.created_at);
   const WallTime promoted_wall = created.ok() ? *created : WallNow();
-  Status s = f.monitor.SetModel(std::shared_ptr<const FlowMap<float>>(active, &active->model), r.version,
-                                ValidationRms(r), r.trained_to, promoted_wall,
+  Status s = f.monitor.SetModel(active->model, r.version, ValidationRms(r), r.trained_to, promoted_wall,
                                 successor ? DriftMonitor::Handover::kSuccessor : DriftMonitor::Handover::kFresh);
   if (!s.ok()) spdlog::error("feed {}: the drift monitor cannot use version {}: {}", f.config->id, r.version,
                              s.message());

@@ -6,6 +6,7 @@
 #include <algorithm>
 #include <cmath>
 #include <functional>
+#include <memory>
 #include <utility>
 
 #include <fmt/format.h>
@@ -147,6 +148,18 @@ MapStep FlowMapStep(const Dynamics& d, double dt_model, int rk4_substeps) {
     s->z = PackTangent(x, Eigen::MatrixXd::Identity(n, n));
     for (int i = 0; i < rk4_substeps; ++i) Rk4Step(s->tangent_rhs, s->z, h, &s->ws);
     UnpackTangent(s->z, n, n, next, jacobian);
+  };
+  return m;
+}
+
+MapStep ModelMapStep(const ForecastModel& model) {
+  std::shared_ptr<ModelScratch> scratch = model.NewScratch();
+  MapStep m;
+  m.dim = model.shape().channels;
+  m.time_per_step = model.shape().dt;
+  m.step = [&model, scratch](const Eigen::VectorXd& x, Eigen::VectorXd* next, Eigen::MatrixXd* jacobian) {
+    model.Step(x, next, *scratch);
+    if (jacobian != nullptr) model.Jacobian(x, jacobian, *scratch);
   };
   return m;
 }

@@ -4,16 +4,16 @@
 //
 // A flow enters through its integrator (FlowMapStep: one RK4 step of the
 // variational system per map step) and a learned model through its one-step
-// map G (LearnedMapStep), so published map values test the same code path.
+// map G (ModelMapStep), so published map values test the same code path.
 //
 // Units: exponents are per unit of the map's own time, i.e. per iteration
-// divided by MapStep::time_per_step. For FlowMapStep and LearnedMapStep that
+// divided by MapStep::time_per_step. For FlowMapStep and ModelMapStep that
 // is per unit of MODEL time; callers convert to data time with the feed's
 // time unit (lambda_data = lambda_model / time_unit).
 //
 // Thread safety: LyapunovSpectrum is reentrant; it calls MapStep::step only
 // from the calling thread. A MapStep is no more thread-safe than what it
-// refers to (a Dynamics or FlowMap, which must outlive it).
+// refers to (a Dynamics or ForecastModel, which must outlive it).
 // Nothing here throws (unless the user's step function does).
 #pragma once
 
@@ -25,7 +25,7 @@
 #include <vector>
 
 #include "core/status.h"
-#include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "physics/dynamics.h"
 
 namespace lyapcast {
@@ -90,35 +90,11 @@ struct SpectrumEstimate {
 // `d` must outlive the MapStep and is used on the calling thread only.
 MapStep FlowMapStep(const Dynamics& d, double dt_model, int rk4_substeps = 1);
 
-// The learned one-step map: next = G(x) (FlowMap::Forward on a one-column
-// batch), jacobian = FlowMap::Jacobian cast to double; time_per_step =
-// model.dt() (model time). Keeps a reference to `model`, which must outlive
-// the MapStep and not change meanwhile; the step owns its scratch buffers
-// (shared by copies of the MapStep, so copies must stay on one thread).
-template <typename T>
-MapStep LearnedMapStep(const FlowMap<T>& model) {
-  struct Scratch {
-    typename FlowMap<T>::Mat in, out, jac;
-    FlowMapCache<T> cache;
-    MlpJacobianScratch<T> jscratch;
-    typename FlowMap<T>::Vec x;
-  };
-  auto scratch = std::make_shared<Scratch>();
-  MapStep m;
-  m.dim = model.channels();
-  m.time_per_step = model.dt();
-  m.step = [&model, scratch](const Eigen::VectorXd& x, Eigen::VectorXd* next, Eigen::MatrixXd* jacobian) {
-    Scratch& s = *scratch;
-    s.x = x.template cast<T>();
-    s.in = s.x;  // one-column batch
-    model.Forward(s.in, &s.out, &s.cache);
-    *next = s.out.col(0).template cast<double>();
-    if (jacobian != nullptr) {
-      model.Jacobian(s.x, &s.jac, &s.jscratch);
-      *jacobian = s.jac.template cast<double>();
-    }
-  };
-  return m;
-}
+// A model's one-step map (learn/forecast_model.h): next = model.Step(x),
+// jacobian = model.Jacobian(x); time_per_step = model.shape().dt (model
+// time). Keeps a reference to `model`, which must outlive the MapStep; the
+// step owns a scratch from model.NewScratch() (shared by copies of the
+// MapStep, so copies must stay on one thread).
+MapStep ModelMapStep(const ForecastModel& model);
 
 }  // namespace lyapcast

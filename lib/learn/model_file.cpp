@@ -262,7 +262,44 @@ Status CheckContents(const ModelFileContents& contents) {
       return Status::Invalid(fmt::format("metadata '{}' is too long", key));
     }
   }
+  if (!contents.roles.empty() && contents.roles != AllStateRoles(c)) {
+    // Every family stored today is a flow map, which predicts all channels.
+    return Status::Invalid(fmt::format("{} channel roles for {} channels; a flow map's channels are all 'state'",
+                                       contents.roles.size(), c));
+  }
   return std::visit([](const auto& map) { return CheckModel(map); }, contents.model);
+}
+
+// Metadata: count, then (key, value) pairs; keys non-empty and unique.
+Status ReadMetadata(Reader* r, std::vector<std::pair<std::string, std::string>>* out) {
+  const std::uint64_t k = r->Count(4, 8, "metadata count");
+  std::set<std::string> keys;
+  for (std::uint64_t i = 0; i < k && r->ok(); ++i) {
+    std::string key = r->Str("metadata key");
+    std::string value = r->Str("metadata value");
+    if (!r->ok()) break;
+    if (key.empty()) return Status::Corruption(fmt::format("metadata entry {} has an empty key", i));
+    if (!keys.insert(key).second) return Status::Corruption(fmt::format("metadata key '{}' repeats", key));
+    out->emplace_back(std::move(key), std::move(value));
+  }
+  return r->error();
+}
+
+// Channel roles (format version 2): count == channels, then one code each.
+// Only the state role exists, and a flow map's channels are all state.
+Status ReadRoles(Reader* r, std::size_t channels, std::vector<ChannelRole>* out) {
+  const std::uint64_t n = r->Count(4, 1, "role count");
+  if (!r->ok()) return r->error();
+  if (n != channels) return Status::Corruption(fmt::format("{} channel roles for {} channels", n, channels));
+  for (std::uint64_t i = 0; i < n; ++i) {
+    const std::uint8_t code = r->U8("channel role");
+    if (!r->ok()) return r->error();
+    if (code != static_cast<std::uint8_t>(ChannelRole::kState)) {
+      return Status::Corruption(fmt::format("channel {} has role code {}; this build knows 0 (state)", i, code));
+    }
+    out->push_back(static_cast<ChannelRole>(code));
+  }
+  return Status::Ok();
 }
 
 std::string ErrnoText(int e) { return std::strerror(e); }
@@ -293,6 +330,10 @@ Result<std::string> Serialize(const ModelFileContents& contents) {
     PutStr(&out, key);
     PutStr(&out, value);
   }
+  const std::vector<ChannelRole> roles =
+      contents.roles.empty() ? AllStateRoles(static_cast<int>(contents.channels.size())) : contents.roles;
+  PutU32(&out, static_cast<std::uint32_t>(roles.size()));
+  for (const ChannelRole role : roles) PutU8(&out, static_cast<std::uint8_t>(role));
   const std::uint64_t body = out.size() - kModelFileHeaderLength;
   for (int i = 0; i < 8; ++i) out[16 + static_cast<size_t>(i)] = static_cast<char>((body >> (8 * i)) & 0xff);
   PutU64(&out, Fnv1a64(out));
@@ -322,7 +363,7 @@ Result<ModelFileContents> Deserialize(std::string_view bytes) {
   }
   if (version == 0) return Status::Corruption("model file format version 0 does not exist");
   if (header_length != kModelFileHeaderLength) {
-    return Status::Corruption(fmt::format("header length {} is not {} (format version 1)", header_length,
+    return Status::Corruption(fmt::format("header length {} is not {} (format versions 1 and 2)", header_length,
                                           kModelFileHeaderLength));
   }
   const std::uint64_t actual_body = bytes.size() - kMin;
@@ -367,22 +408,31 @@ Result<ModelFileContents> Deserialize(std::string_view bytes) {
   }
   if (!st.ok()) return st;
   contents.channels = std::move(arch.channels);
-  const std::uint64_t k = r.Count(4, 8, "metadata count");
-  std::set<std::string> keys;
-  for (std::uint64_t i = 0; i < k && r.ok(); ++i) {
-    std::string key = r.Str("metadata key");
-    std::string value = r.Str("metadata value");
-    if (!r.ok()) break;
-    if (key.empty()) return Status::Corruption(fmt::format("metadata entry {} has an empty key", i));
-    if (!keys.insert(key).second) return Status::Corruption(fmt::format("metadata key '{}' repeats", key));
-    contents.metadata.emplace_back(std::move(key), std::move(value));
-  }
-  if (!r.ok()) return r.error();
+  if (Status meta = ReadMetadata(&r, &contents.metadata); !meta.ok()) return meta;
+  // Version 1 ends at the metadata: its channels are all state.
+  const Status roles = version >= 2 ? ReadRoles(&r, contents.channels.size(), &contents.roles) : Status::Ok();
+  if (!roles.ok()) return roles;
+  if (version < 2) contents.roles = AllStateRoles(static_cast<int>(contents.channels.size()));
   if (r.remaining() != 0) {
     return Status::Corruption(fmt::format("{} unexpected bytes at the end of the body (byte {})", r.remaining(),
                                           r.offset()));
   }
   return contents;
+}
+
+Result<std::shared_ptr<const ForecastModel>> MakeForecastModel(const ModelFileContents& contents,
+                                                               ModelScalar scalar) {
+  std::vector<ChannelRole> roles = contents.roles;
+  if (roles.empty()) roles = AllStateRoles(static_cast<int>(contents.channels.size()));
+  auto wrap = [&](auto map) -> Result<std::shared_ptr<const ForecastModel>> {
+    using Map = decltype(map);
+    auto made = NeuralFlowMap<typename Map::Mat::Scalar>::Create(std::move(map), std::move(roles));
+    if (!made.ok()) return made.status();
+    return std::shared_ptr<const ForecastModel>(std::move(made).value());
+  };
+  if (const auto* f = std::get_if<FlowMap<float>>(&contents.model)) return wrap(*f);
+  const auto& d = std::get<FlowMap<double>>(contents.model);
+  return scalar == ModelScalar::kFloat32 ? wrap(d.Cast<float>()) : wrap(d);
 }
 
 Status SaveModel(const std::filesystem::path& path, const ModelFileContents& contents) {

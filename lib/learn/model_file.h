@@ -1,9 +1,9 @@
 // Model files: a trained flow map with everything needed to serve it, in a
-// versioned little-endian binary format (lyapcast model file, version 1).
+// versioned little-endian binary format (lyapcast model file, version 2).
 //
 //   offset  size  field
 //   0       8     magic "LYAPMODL"
-//   8       4     u32 format version = 1
+//   8       4     u32 format version = 2 (1 is still read)
 //   12      4     u32 header length = 24 (bytes before the body)
 //   16      8     u64 body length N
 //   24      N     body
@@ -21,6 +21,12 @@
 //   u64 P = number of network values, then P values: the Mlp flat layout
 //       (per layer W column-major (out x in), then b; layers in order)
 //   u32 metadata count K, then K pairs (key str, value str)
+//   u32 role count R = C, then R u8 channel role codes (ChannelRole, in
+//       learn/forecast_model.h: 0 = state); format version 2 only
+//
+// Version 1 is version 2 without the roles: its body ends after the
+// metadata, and its channels are all state (a flow map predicts every
+// channel). Deserialize reads both; Serialize writes version 2.
 //
 // Checksum choice: FNV-1a 64 (Fowler/Noll/Vo, IETF draft-eastlake-fnv):
 // table-free, any single-byte change always changes it, easy to recompute in
@@ -39,6 +45,7 @@
 
 #include <cstdint>
 #include <filesystem>
+#include <memory>
 #include <string>
 #include <string_view>
 #include <utility>
@@ -48,11 +55,12 @@
 #include "core/data_time.h"
 #include "core/status.h"
 #include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 
 namespace lyapcast {
 
 inline constexpr char kModelFileMagic[8] = {'L', 'Y', 'A', 'P', 'M', 'O', 'D', 'L'};
-inline constexpr std::uint32_t kModelFileVersion = 1;
+inline constexpr std::uint32_t kModelFileVersion = 2;
 inline constexpr std::uint32_t kModelFileHeaderLength = 24;
 inline constexpr std::uint64_t kMaxModelFileBytes = std::uint64_t{1} << 30;  // LoadModel refuses larger files
 
@@ -66,6 +74,10 @@ struct ModelFileContents {
   // Training metadata (feed id, data range, losses, ...), in order; keys
   // non-empty and unique.
   std::vector<std::pair<std::string, std::string>> metadata;
+  // One role per channel, in model order. Serialize treats empty as all
+  // state; Deserialize always fills it (all state for version-1 files).
+  // Every role of a flow map is state (Serialize checks).
+  std::vector<ChannelRole> roles;
 
   bool is_float32() const { return std::holds_alternative<FlowMap<float>>(model); }
 };
@@ -80,6 +92,18 @@ std::uint64_t Fnv1a64(std::string_view bytes);
 
 // Parses and validates file bytes (see the error classes above).
 [[nodiscard]] Result<ModelFileContents> Deserialize(std::string_view bytes);
+
+// The scalar type a served model runs in.
+enum class ModelScalar {
+  kAsStored,  // the file's own type (float32 or float64)
+  kFloat32,   // float, a float64 model rounded (the daemon serves float)
+};
+
+// The model of `contents` behind the ForecastModel seam (a NeuralFlowMap of
+// the chosen scalar type, with the file's roles). kInvalidArgument when the
+// contents are inconsistent (an empty model, roles that do not fit it).
+[[nodiscard]] Result<std::shared_ptr<const ForecastModel>> MakeForecastModel(
+    const ModelFileContents& contents, ModelScalar scalar = ModelScalar::kAsStored);
 
 // Serialize, then write `path` atomically: a temp file in the same folder,
 // fsync, rename over `path`, fsync of the folder. The folder must exist.

@@ -30,14 +30,15 @@ DriftMonitor::DriftMonitor(const FeedConfig& feed)
       change_options_(ChangeOptions(feed.monitor)),
       change_(change_options_) {}
 
-Status DriftMonitor::SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
+Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::int64_t version,
                               double validation_error, DataTime trained_to, WallTime promoted_wall,
                               Handover handover) {
-  if (model != nullptr && (model->empty() || model->channels() != channels_)) {
+  if (model != nullptr && model->shape().channels != channels_) {
     return Status::Invalid(fmt::format("model version {} has {} channels, the feed {}", version,
-                                       model->empty() ? 0 : model->channels(), channels_));
+                                       model->shape().channels, channels_));
   }
   model_ = std::move(model);
+  scratch_ = model_ != nullptr ? model_->NewScratch() : nullptr;
   version_ = version;
   validation_error_ = validation_error;
   trained_to_ = trained_to;
@@ -75,15 +76,15 @@ bool DriftMonitor::Consecutive(DataTime from, DataTime to) const {
 
 double DriftMonitor::Score(const Sample& s) {
   const auto c = static_cast<Eigen::Index>(channels_);
-  x_.resize(c, 1);
-  for (Eigen::Index k = 0; k < c; ++k) x_(k, 0) = static_cast<float>(prev_->values[static_cast<std::size_t>(k)]);
-  model_->Forward(x_, &y_, &cache_);
+  x_.resize(c);
+  for (Eigen::Index k = 0; k < c; ++k) x_[k] = prev_->values[static_cast<std::size_t>(k)];
+  model_->Step(x_, &y_, *scratch_);
+  const Eigen::VectorXd& scale = model_->error_scale();
   double sum = 0;
   int present = 0;
   for (int k = 0; k < channels_; ++k) {
     if (s.missing(k)) continue;
-    const double z = (static_cast<double>(y_(k, 0)) - s.values[static_cast<std::size_t>(k)]) /
-                     static_cast<double>(model_->stddev()[k]);
+    const double z = (y_[k] - s.values[static_cast<std::size_t>(k)]) / scale[k];
     sum += z * z;
     ++present;
   }

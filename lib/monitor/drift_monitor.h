@@ -16,7 +16,8 @@
 //
 //     e = sqrt( mean over present channels c of ((G(prev)_c - x_c) / s_c)^2 )
 //
-// with G the model's flow map and s_c its per-channel stddev(). From e:
+// with G the model's one-step map (ForecastModel::Step) and s_c its
+// per-channel error_scale() (a flow map's stddev()). From e:
 //   - rmse_ewma: sqrt of an EWMA of e^2, alpha = 2 / (kWindow + 1);
 //   - rmse_window: RMSE over the last kWindow scored samples;
 //   - drift_ratio = rmse_window / validation_error, once kMinScored samples
@@ -68,7 +69,7 @@
 #include "core/data_time.h"
 #include "core/sample.h"
 #include "core/status.h"
-#include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "monitor/change_test.h"
 
 namespace lyapcast {
@@ -125,15 +126,15 @@ class DriftMonitor {
   // A new active model (null: none). Resets the scores, the drift flag and
   // the per-model alarm count, and the change test unless `handover` is
   // kSuccessor and the outgoing model raised no alarm; keeps the arrival
-  // record and the previous sample. The monitor shares ownership of the model (the
-  // daemon can alias its published ActiveModel:
-  // std::shared_ptr<const FlowMap<float>>(active, &active->model)).
+  // record and the previous sample. The monitor shares ownership of the model
+  // (the daemon passes its published ActiveModel's) and scores through its
+  // Step with a scratch of its own.
   // validation_error: the model's one-step error at promotion, normalized
   // like e (NaN when unknown); trained_to: end of its training data (data
   // time); promoted_wall: when it became active (wall time, µs).
   // kInvalidArgument (nothing changed) when the model's channel count is not
   // the feed's.
-  [[nodiscard]] Status SetModel(std::shared_ptr<const FlowMap<float>> model, std::int64_t version,
+  [[nodiscard]] Status SetModel(std::shared_ptr<const ForecastModel> model, std::int64_t version,
                                 double validation_error, DataTime trained_to, WallTime promoted_wall,
                                 Handover handover = Handover::kFresh);
 
@@ -172,7 +173,7 @@ class DriftMonitor {
   ChangeTestOptions change_options_;
 
   // The model.
-  std::shared_ptr<const FlowMap<float>> model_;
+  std::shared_ptr<const ForecastModel> model_;
   std::int64_t version_ = 0;
   double validation_error_ = 0;
   DataTime trained_to_{};
@@ -197,9 +198,9 @@ class DriftMonitor {
   std::int64_t alarms_ = 0;
   std::int64_t alarms_total_ = 0;
 
-  // Forward's buffers, reused.
-  MlpTypes<float>::Mat x_, y_;
-  FlowMapCache<float> cache_;
+  // Step's buffers, reused (the scratch is the model's, made by SetModel).
+  Eigen::VectorXd x_, y_;
+  std::unique_ptr<ModelScratch> scratch_;
 };
 
 }  // namespace lyapcast

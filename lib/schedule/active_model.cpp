@@ -2,7 +2,6 @@
 
 #include <fmt/format.h>
 
-#include <variant>
 
 #include "learn/model_file.h"
 
@@ -13,16 +12,21 @@ Result<std::shared_ptr<const ActiveModel>> MakeActiveModel(ModelRecord record) {
   if (!file.ok()) {
     return Status::Internal(fmt::format("stored version {}: {}", record.version, file.status().message()));
   }
-  FlowMap<float> model = std::holds_alternative<FlowMap<float>>(file->model)
-                             ? std::get<FlowMap<float>>(file->model)
-                             : std::get<FlowMap<double>>(file->model).Cast<float>();
-  return MakeActiveModel(std::move(record), std::move(model), file->time_unit_micros);
+  auto model = MakeForecastModel(*file, ModelScalar::kFloat32);
+  if (!model.ok()) {
+    return Status::Internal(fmt::format("stored version {}: {}", record.version, model.status().message()));
+  }
+  auto active = std::make_shared<ActiveModel>();
+  active->model = std::move(model).value();
+  active->time_unit = file->time_unit_micros;
+  active->record = std::move(record);
+  return std::shared_ptr<const ActiveModel>(std::move(active));
 }
 
 std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, FlowMap<float> model, Micros time_unit) {
   auto active = std::make_shared<ActiveModel>();
   active->record = std::move(record);
-  active->model = std::move(model);
+  active->model = std::make_shared<const NeuralFlowMap<float>>(std::move(model));
   active->time_unit = time_unit;
   return active;
 }

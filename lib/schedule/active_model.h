@@ -14,21 +14,29 @@
 #include "core/data_time.h"
 #include "core/status.h"
 #include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "store/model_registry.h"
 
 namespace lyapcast {
 
 struct ActiveModel {
   ModelRecord record;          // with the model file bytes
-  FlowMap<float> model;        // the served map (float, as it was trained)
+  std::shared_ptr<const ForecastModel> model;  // never null; float, as trained and as the monitor scores it
   Micros time_unit = kSecond;  // data time per model time unit
 };
 
-// Decodes record.file. kInternal naming the version when the bytes are not
-// a readable model file.
+// Decodes record.file (a float model; a float64 file is rounded). kInternal
+// naming the version when the bytes are not a readable model file.
 [[nodiscard]] Result<std::shared_ptr<const ActiveModel>> MakeActiveModel(ModelRecord record);
 
-// From a model already in memory (a job's promoted candidate): no decoding.
+// From a model already in memory (a job's promoted candidate, all channels
+// state): no decoding. Requires !model.empty().
 std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, FlowMap<float> model, Micros time_unit);
+
+// The flow map behind an active model, for a warm start (null for model
+// families that are not a float flow map).
+inline const FlowMap<float>* WarmStartNetwork(const ActiveModel& active) {
+  return NeuralNetworkOf<float>(*active.model);
+}
 
 }  // namespace lyapcast

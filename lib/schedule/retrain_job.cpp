@@ -30,7 +30,8 @@ std::optional<double> LargestExponentPerSecond(const FlowMap<float>& model, cons
   o.exponents = 1;
   o.steps = std::clamp(static_cast<long>(200.0 / model.dt()), 1000L, 20000L);
   o.transient_steps = o.steps / 10;
-  auto e = LyapunovSpectrum(LearnedMapStep(model), x0, o);
+  const NeuralFlowMap<float> wrapped(model);
+  auto e = LyapunovSpectrum(ModelMapStep(wrapped), x0, o);
   if (!e.ok()) return std::nullopt;
   return e->exponents[0] / Seconds(time_unit);
 }
@@ -117,7 +118,8 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
 
   TrainingContext context;
   context.feed = &feed;
-  context.warm = in.active ? &in.active->model : nullptr;
+  const FlowMap<float>* active_network = in.active ? WarmStartNetwork(*in.active) : nullptr;
+  context.warm = active_network;
   context.seed = in.seed;
   context.lockstep = in.lockstep;
   context.cancel = in.cancel;
@@ -131,7 +133,7 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
   }
 
   const Judgement judgement = JudgeCandidate(
-      *candidate, {in.active ? &in.active->model : nullptr, in.active ? in.active->record.version : 0}, data,
+      *candidate, {active_network, in.active ? in.active->record.version : 0}, data,
       feed.retrain.promote_tolerance);
   out.candidate_error = judgement.candidate_error;
   out.active_error = judgement.active_error;

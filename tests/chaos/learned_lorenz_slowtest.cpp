@@ -42,7 +42,8 @@ TEST(LearnedLorenz, LargestExponentAndTheZeroExponent) {
   s.exponents = 2;
   s.transient_steps = 10'000;
   s.steps = 100'000;  // 1000 time units
-  auto e = LyapunovSpectrum(LearnedMapStep(model), x.col(x.cols() - 1), s);
+  const NeuralFlowMap<float> wrapped(model);
+  auto e = LyapunovSpectrum(ModelMapStep(wrapped), x.col(x.cols() - 1), s);
   ASSERT_TRUE(e.ok()) << e.status().ToString();
   std::printf("  learned map: %.4f, %.4f (true 0.9056, 0)\n", e->exponents[0], e->exponents[1]);
   EXPECT_NEAR(e->exponents[0] / 0.9056, 1.0, 0.10);

@@ -207,7 +207,7 @@ TEST(LyapunovTest, SingularJacobianFailsCleanly) {
   EXPECT_NE(r.status().message().find("zero diagonal"), std::string::npos) << r.status().message();
 }
 
-// ---- LearnedMapStep ------------------------------------------------------
+// ---- ModelMapStep --------------------------------------------------------
 
 FlowMap<double> TinyModel() {
   Result<FlowMap<double>> r = FlowMap<double>::Create(3, {6}, Activation::kTanh, 0.05);
@@ -222,9 +222,10 @@ FlowMap<double> TinyModel() {
   return f;
 }
 
-TEST(LearnedMapStepTest, StepMatchesForwardAndJacobianMatchesFiniteDifferences) {
+TEST(ModelMapStepTest, StepMatchesForwardAndJacobianMatchesFiniteDifferences) {
   const FlowMap<double> model = TinyModel();
-  const MapStep m = LearnedMapStep(model);
+  const NeuralFlowMap<double> wrapped(model);
+  const MapStep m = ModelMapStep(wrapped);
   ASSERT_EQ(m.dim, 3);
   EXPECT_DOUBLE_EQ(m.time_per_step, 0.05);
   Eigen::VectorXd x(3), next, plus, minus;
@@ -255,7 +256,7 @@ TEST(LearnedMapStepTest, StepMatchesForwardAndJacobianMatchesFiniteDifferences) 
 
 // A freshly created FlowMap has zero weights and biases, so N = 0 and
 // G(x) = x: every exponent of the identity map is exactly 0.
-TEST(LearnedMapStepTest, IdentityModelHasZeroExponents) {
+TEST(ModelMapStepTest, IdentityModelHasZeroExponents) {
   Result<FlowMap<double>> r = FlowMap<double>::Create(3, {4}, Activation::kTanh, 0.1);
   ASSERT_TRUE(r.ok()) << r.status().ToString();
   const FlowMap<double> model = std::move(r).value();
@@ -264,21 +265,23 @@ TEST(LearnedMapStepTest, IdentityModelHasZeroExponents) {
   SpectrumOptions o;
   o.transient_steps = 10;
   o.steps = 1000;
-  const SpectrumEstimate e = MustEstimate(LearnedMapStep(model), x0, o);
+  const NeuralFlowMap<double> wrapped(model);
+  const SpectrumEstimate e = MustEstimate(ModelMapStep(wrapped), x0, o);
   ASSERT_EQ(e.exponents.size(), 3);
   for (int i = 0; i < 3; ++i) EXPECT_NEAR(e.exponents[i], 0.0, 1e-9);
   EXPECT_DOUBLE_EQ(e.time, 100.0);
 }
 
 // The float model goes through the same adapter (values cast to double).
-TEST(LearnedMapStepTest, FloatModelRuns) {
+TEST(ModelMapStepTest, FloatModelRuns) {
   const FlowMap<float> model = TinyModel().Cast<float>();
   Eigen::VectorXd x0(3);
   x0 << 0.3, -0.8, 1.7;
   SpectrumOptions o;
   o.transient_steps = 10;
   o.steps = 500;
-  Result<SpectrumEstimate> r = LyapunovSpectrum(LearnedMapStep(model), x0, o);
+  const NeuralFlowMap<float> wrapped(model);
+  Result<SpectrumEstimate> r = LyapunovSpectrum(ModelMapStep(wrapped), x0, o);
   ASSERT_TRUE(r.ok()) << r.status().ToString();
   EXPECT_TRUE(r->exponents.allFinite());
   EXPECT_GE(r->exponents[0], r->exponents[1]);

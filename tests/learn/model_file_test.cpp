@@ -113,7 +113,7 @@ TEST(ModelFile, RoundTripIsBitExactForDoubleAndFloat) {
 TEST(ModelFile, HeaderAndChecksumFollowTheDocumentedLayout) {
   const std::string bytes = Bytes(SampleContents<double>());
   EXPECT_EQ(bytes.substr(0, 8), "LYAPMODL");
-  EXPECT_EQ(bytes[8], 1);  // version 1, little-endian
+  EXPECT_EQ(bytes[8], 2);  // version 2, little-endian
   EXPECT_EQ(bytes[12], 24);
   EXPECT_EQ(GetU64At(bytes, 16), bytes.size() - 32);
   EXPECT_EQ(GetU64At(bytes, bytes.size() - 8), Fnv1a64(std::string_view(bytes).substr(0, bytes.size() - 8)));
@@ -130,6 +130,77 @@ TEST(ModelFile, HeaderAndChecksumFollowTheDocumentedLayout) {
   EXPECT_EQ(Fnv1a64(""), 0xcbf29ce484222325ull);
   EXPECT_EQ(Fnv1a64("a"), 0xaf63dc4c8601ec8cull);
   EXPECT_EQ(Fnv1a64("foobar"), 0x85944171f73967e8ull);
+}
+
+// The bytes the version-1 writer produced for `c`: version 2 without the
+// roles section (its last 4 + C bytes before the checksum), header patched.
+std::string VersionOneBytes(const ModelFileContents& c) {
+  std::string bytes = Bytes(c);
+  const size_t roles = 4 + c.channels.size();
+  bytes.erase(bytes.size() - 8 - roles, roles);
+  PutU32At(&bytes, 8, 1);
+  const std::uint64_t body = bytes.size() - 32;
+  for (int i = 0; i < 8; ++i) bytes[16 + static_cast<size_t>(i)] = static_cast<char>(body >> (8 * i));
+  Reseal(&bytes);
+  return bytes;
+}
+
+TEST(ModelFile, VersionTwoCarriesTheChannelRoles) {
+  ModelFileContents c = SampleContents<double>();
+  c.roles = {ChannelRole::kState, ChannelRole::kState, ChannelRole::kState};
+  const std::string bytes = Bytes(c);
+  // After the metadata: u32 role count 3, then one code (0 = state) each.
+  EXPECT_EQ(GetU64At(bytes, bytes.size() - 8 - 7) & 0xffffffffu, 3u);
+  EXPECT_EQ(bytes.substr(bytes.size() - 8 - 3, 3), std::string(3, '\0'));
+  auto back = Deserialize(bytes);
+  ASSERT_TRUE(back.ok()) << back.status().ToString();
+  ExpectSameModel<double>(c, back.value());
+  EXPECT_EQ(back->roles, c.roles);
+  // Empty roles mean all state and write the same bytes.
+  c.roles.clear();
+  EXPECT_EQ(Bytes(c), bytes);
+  // A flow map predicts every channel: a missing role is refused.
+  c.roles = {ChannelRole::kState};
+  EXPECT_EQ(Serialize(c).status().code(), StatusCode::kInvalidArgument);
+  // An unknown role code is corruption.
+  std::string bad = bytes;
+  bad[bad.size() - 8 - 1] = 9;
+  Reseal(&bad);
+  const auto r = Deserialize(bad);
+  EXPECT_EQ(r.status().code(), StatusCode::kCorruption);
+  EXPECT_NE(r.status().message().find("role code 9"), std::string::npos) << r.status().ToString();
+}
+
+TEST(ModelFile, VersionOneFilesLoadWithAllStateRoles) {
+  const ModelFileContents c = SampleContents<float>();
+  const std::string v1 = VersionOneBytes(c);
+  EXPECT_EQ(v1[8], 1);
+  EXPECT_EQ(v1.size(), Bytes(c).size() - 7);
+  auto back = Deserialize(v1);
+  ASSERT_TRUE(back.ok()) << back.status().ToString();
+  ExpectSameModel<float>(c, back.value());
+  EXPECT_EQ(back->roles, AllStateRoles(3));
+  // Re-saving upgrades to version 2.
+  EXPECT_EQ(Bytes(back.value()), Bytes(c));
+}
+
+TEST(ModelFile, MakeForecastModelServesTheStoredMap) {
+  const ModelFileContents d = SampleContents<double>();
+  auto as_stored = MakeForecastModel(d);
+  ASSERT_TRUE(as_stored.ok()) << as_stored.status().ToString();
+  EXPECT_EQ((*as_stored)->family(), "neural_flow_map");
+  EXPECT_EQ((*as_stored)->shape().roles, AllStateRoles(3));
+  EXPECT_DOUBLE_EQ((*as_stored)->shape().dt, 0.5);
+  ASSERT_NE(NeuralNetworkOf<double>(**as_stored), nullptr);
+  EXPECT_EQ(NeuralNetworkOf<float>(**as_stored), nullptr);
+  auto served = MakeForecastModel(d, ModelScalar::kFloat32);
+  ASSERT_TRUE(served.ok()) << served.status().ToString();
+  const FlowMap<float>* net = NeuralNetworkOf<float>(**served);
+  ASSERT_NE(net, nullptr);
+  EXPECT_EQ(net->parameters(), std::get<FlowMap<double>>(d.model).Cast<float>().parameters());
+  ModelFileContents empty = d;
+  empty.model = FlowMap<double>();
+  EXPECT_EQ(MakeForecastModel(empty).status().code(), StatusCode::kInvalidArgument);
 }
 
 TEST(ModelFile, SaveAndLoadAtomically) {
@@ -274,9 +345,10 @@ TEST(ModelFileCorruption, ImpossibleSizesAreRejectedBeforeAllocating) {
   bad = good;
   bad[25] = 7;  // activation
   expect(bad, "activation");
-  // The metadata count sits 4 bytes before the first key's length field.
+  // The metadata count sits 4 bytes before the first key's length field;
+  // the roles (count and 3 codes) follow the metadata.
   bad = good;
-  const size_t meta_count_at = good.size() - 8 - (6 * 4 + 4 + 6 + 10 + 7 + 5 + 25) - 4;
+  const size_t meta_count_at = good.size() - 8 - (4 + 3) - (6 * 4 + 4 + 6 + 10 + 7 + 5 + 25) - 4;
   ASSERT_EQ(bad[meta_count_at], 3);
   PutU32At(&bad, meta_count_at, 0x40000000u);
   expect(bad, "metadata count");

@@ -33,13 +33,13 @@ FeedConfig Feed() {
 }
 
 // G(x) = x + v with s = kStd.
-std::shared_ptr<const FlowMap<float>> ShiftModel(Eigen::Vector2f v) {
+std::shared_ptr<const ForecastModel> ShiftModel(Eigen::Vector2f v) {
   auto created = FlowMap<float>::Create(2, {4}, Activation::kTanh, 1.0);
   EXPECT_TRUE(created.ok()) << created.status().ToString();
   FlowMap<float> map = std::move(created.value());  // zero weights: N(x) = b_last
   EXPECT_TRUE(map.SetNormalization(Eigen::Vector2f::Zero(), kStd, Eigen::Vector2f::Ones()).ok());
   map.network().b(map.network().layers() - 1) = v;
-  return std::make_shared<const FlowMap<float>>(std::move(map));
+  return std::make_shared<const NeuralFlowMap<float>>(std::move(map));
 }
 
 // A sample at kT0 + k steps; NaN values are missing.
@@ -166,7 +166,7 @@ TEST(DriftMonitor, ModelChecksAndNoModel) {
   EXPECT_TRUE(std::isnan(m.e0()));
   auto three = FlowMap<float>::Create(3, {4}, Activation::kTanh, 1.0);
   ASSERT_TRUE(three.ok());
-  auto model3 = std::make_shared<const FlowMap<float>>(std::move(three.value()));
+  auto model3 = std::make_shared<const NeuralFlowMap<float>>(std::move(three.value()));
   const Status wrong = m.SetModel(model3, 2, 0.1, kT0, kWall0);
   EXPECT_EQ(wrong.code(), StatusCode::kInvalidArgument);
   EXPECT_NE(wrong.message().find("3 channels, the feed 2"), std::string::npos) << wrong.message();

@@ -105,7 +105,10 @@ TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
   EXPECT_FALSE(first->promoted->record.created_at.empty());
   auto stored = MakeActiveModel(active);
   ASSERT_TRUE(stored.ok());
-  EXPECT_EQ((*stored)->model.parameters(), first->promoted->model.parameters());
+  const FlowMap<float>* stored_net = NeuralNetworkOf<float>(*(*stored)->model);
+  const FlowMap<float>* promoted_net = NeuralNetworkOf<float>(*first->promoted->model);
+  ASSERT_TRUE(stored_net != nullptr && promoted_net != nullptr);
+  EXPECT_EQ(stored_net->parameters(), promoted_net->parameters());
 }
 
 TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {

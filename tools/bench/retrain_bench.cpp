@@ -49,6 +49,7 @@
 #include "chaos/lyapunov.h"
 #include "config/config.h"
 #include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "learn/model_file.h"
 #include "physics/dynamics.h"
 #include "physics/integrators.h"
@@ -282,10 +283,10 @@ RetrainOutcome Retrain(Db& db, const FeedConfig& feed, DataTime until, const std
   return Must(RunRetrain(*db.registry, in), what);
 }
 
-FlowMap<float> ModelOf(const ModelRecord& record) {
+// The model as the daemon serves it (float).
+std::shared_ptr<const ForecastModel> ModelOf(const ModelRecord& record) {
   ModelFileContents c = Must(Deserialize(record.file), "reading a model file");
-  if (auto* f = std::get_if<FlowMap<float>>(&c.model)) return *f;
-  return std::get<FlowMap<double>>(c.model).Cast<float>();
+  return Must(MakeForecastModel(c, ModelScalar::kFloat32), "serving a model file");
 }
 
 // ---------------------------------------------------------------- part 1
@@ -335,7 +336,7 @@ struct StreamPlan {
 struct Served {
   DataTime from{};
   std::int64_t version = 0;
-  FlowMap<float> model;
+  std::shared_ptr<const ForecastModel> model;
 };
 
 struct ContinualRun {
@@ -455,18 +456,17 @@ std::vector<std::size_t> ForecastStarts(const Segment& s, int stride) {
 
 // VPT in Lyapunov times: the data time until sqrt(mean_c((x_c - xhat_c) /
 // std_c)^2) first exceeds 0.5, free-running the model from the observed state.
-double ValidPredictionTime(const FlowMap<float>& model, const Truth& truth, std::size_t start, const Segment& s,
+double ValidPredictionTime(const ForecastModel& model, const Truth& truth, std::size_t start, const Segment& s,
                            bool* capped) {
-  MlpTypes<float>::Mat x(3, 1), next;
-  FlowMapCache<float> cache;
-  for (int c = 0; c < 3; ++c) x(c, 0) = static_cast<float>(truth.x[start][c]);
   const std::size_t horizon = HorizonSteps(s);
+  // The whole horizon, then the first step past the threshold: the same
+  // answer as stopping there, for a little more work.
+  const Eigen::VectorXd x0 = Eigen::Map<const Eigen::VectorXd>(truth.x[start].data(), 3);
+  const FreeRun run = Rollout(model, x0, static_cast<std::int64_t>(horizon));
   for (std::size_t k = 1; k <= horizon; ++k) {
-    model.Forward(x, &next, &cache);
-    x.swap(next);
     double e2 = 0;
     for (int c = 0; c < 3; ++c) {
-      const double e = (static_cast<double>(x(c, 0)) - truth.x[start + k][c]) / s.stddev[c];
+      const double e = (run.states(c, static_cast<Eigen::Index>(k - 1)) - truth.x[start + k][c]) / s.stddev[c];
       e2 += e * e / 3.0;
     }
     if (!(std::sqrt(e2) <= kVptThreshold)) {  // NaN (a blown-up run) counts as exceeded
@@ -506,11 +506,11 @@ SegmentSkill ScoreSegment(const ContinualRun& run, const Truth& truth, const Seg
     const std::size_t i = starts[n];
     const bool late = 2 * n >= starts.size();
     bool capped = false;
-    const double one = ValidPredictionTime(run.timeline.front().model, truth, i, s, &capped);
+    const double one = ValidPredictionTime(*run.timeline.front().model, truth, i, s, &capped);
     out.one_time.vpt.push_back(one);
     out.one_time.capped += capped;
     if (late) out.one_time_late.vpt.push_back(one);
-    const double cont = ValidPredictionTime(ServedAt(run.timeline, TimeOf(i)).model, truth, i, s, &capped);
+    const double cont = ValidPredictionTime(*ServedAt(run.timeline, TimeOf(i)).model, truth, i, s, &capped);
     out.continual.vpt.push_back(cont);
     out.continual.capped += capped;
     if (late) out.continual_late.vpt.push_back(cont);
@@ -587,7 +587,9 @@ std::string RunJson(const DriftResult& r) {
 bool SameWeights(const ContinualRun& a, const ContinualRun& b) {
   if (a.timeline.size() != b.timeline.size()) return false;
   for (std::size_t i = 0; i < a.timeline.size(); ++i) {
-    if (a.timeline[i].model.parameters() != b.timeline[i].model.parameters()) return false;
+    const FlowMap<float>* na = NeuralNetworkOf<float>(*a.timeline[i].model);
+    const FlowMap<float>* nb = NeuralNetworkOf<float>(*b.timeline[i].model);
+    if (na == nullptr || nb == nullptr || na->parameters() != nb->parameters()) return false;
   }
   return true;
 }

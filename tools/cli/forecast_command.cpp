@@ -17,6 +17,7 @@
 #include "commands.h"
 #include "learn/model_file.h"
 #include "remote_common.h"
+#include "runtime/forecast.h"
 
 namespace lyapcast::cli {
 namespace {
@@ -33,20 +34,15 @@ struct ForecastArgs {
        url_given = false, token_given = false, timeout_given = false;
 };
 
-template <typename T>
-void Iterate(const FlowMap<T>& model, const std::vector<double>& from, int steps, DataTime start, Micros step,
-             bool absolute) {
-  typename MlpTypes<T>::Mat x(model.channels(), 1), y;
-  for (int c = 0; c < model.channels(); ++c) x(c, 0) = static_cast<T>(from[static_cast<std::size_t>(c)]);
-  FlowMapCache<T> cache;
-  for (int k = 1; k <= steps; ++k) {
-    model.Forward(x, &y, &cache);
-    x.swap(y);
-    const DataTime t = start + static_cast<std::int64_t>(k) * step;
-    const std::int64_t us = EpochMicros(t);
-    std::string line = absolute ? fmt::format("{},{}.{:06d}", k, us / 1'000'000, us % 1'000'000)
-                                : fmt::format("{},{:.6f}", k, ToEpochSeconds(t));
-    for (int c = 0; c < model.channels(); ++c) line += fmt::format(",{:.9g}", static_cast<double>(x(c, 0)));
+// One CSV line per point: step number, time (seconds after the start, or
+// absolute epoch seconds with --start), then the channels.
+void PrintOfflineForecast(const lyapcast::Forecast& f, bool absolute) {
+  for (std::size_t k = 0; k < f.points.size(); ++k) {
+    const ForecastPoint& p = f.points[k];
+    const std::int64_t us = EpochMicros(p.t);
+    std::string line = absolute ? fmt::format("{},{}.{:06d}", k + 1, us / 1'000'000, us % 1'000'000)
+                                : fmt::format("{},{:.6f}", k + 1, ToEpochSeconds(p.t));
+    for (const double v : p.values) line += fmt::format(",{:.9g}", v);
     std::puts(line.c_str());
   }
 }
@@ -76,10 +72,21 @@ int RunForecast(const ForecastArgs& a) {
     if (!t.ok()) return PrintError(kCmd, "--start: " + t.status().message()), kExitUsage;
     start = *t;
   }
+  auto model = MakeForecastModel(*file);
+  if (!model.ok()) return PrintError(kCmd, a.model + ": " + model.status().message()), kExitUsage;
+  // No exponent and no live error offline: the forecast's horizon stays
+  // empty and is not printed.
+  ForecastRequest request;
+  request.from = start;
+  request.start = *from;
+  request.step = file->step_micros;
+  request.steps = a.steps;
+  auto forecast = MakeForecast(**model, request);
+  if (!forecast.ok()) return PrintError(kCmd, forecast.status().message()), kExitUsage;
   std::string header = absolute ? "step,t" : "step,seconds";
   for (const std::string& c : file->channels) header += "," + c;
   std::puts(header.c_str());
-  std::visit([&](const auto& model) { Iterate(model, *from, a.steps, start, file->step_micros, absolute); }, file->model);
+  PrintOfflineForecast(*forecast, absolute);
   return kExitOk;
 }
 

@@ -9,6 +9,7 @@
 #include <cmath>
 #include <cstdio>
 #include <optional>
+#include <type_traits>
 #include <variant>
 
 #include "chaos/lyapunov.h"
@@ -78,7 +79,8 @@ int RunLyapunov(const LyapunovArgs& a) {
     const double per_second = 1.0 / Seconds(file->time_unit_micros);
     const auto estimate = std::visit(
         [&](const auto& model) {
-          const MapStep step = LearnedMapStep(model);
+          const NeuralFlowMap<typename std::decay_t<decltype(model)>::Mat::Scalar> wrapped(model);
+          const MapStep step = ModelMapStep(wrapped);
           Eigen::VectorXd x0 = start && start->size() == model.channels() ? *start : model.mean().template cast<double>();
           SpectrumOptions o;
           o.steps = static_cast<long>(a.time_units / model.dt());
