@@ -22,7 +22,7 @@ namespace lyapcast {
 class SampleWriter;
 class IngestServer;
 class Scheduler;
-class FeedMonitors;
+class FeedRuntimes;
 class ApiStore;
 
 struct ApiContext {
@@ -30,7 +30,7 @@ struct ApiContext {
   const SampleWriter* writer = nullptr;   // required
   const IngestServer* ingest = nullptr;   // may be null in tests
   Scheduler* scheduler = nullptr;         // required for the feed routes
-  FeedMonitors* monitors = nullptr;       // required for the feed routes
+  FeedRuntimes* runtimes = nullptr;       // required for the feed routes
   ApiStore* store = nullptr;              // required for models and samples
   std::optional<std::string> read_token;
   std::optional<std::string> admin_token;

@@ -3,7 +3,7 @@
 #include <algorithm>
 #include <cmath>
 
-#include "feed_monitors.h"
+#include "runtime/feed_runtime.h"
 #include "store/sample_writer.h"
 
 namespace lyapcast::api {
@@ -14,7 +14,7 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
   v.config = &c.config->feeds[feed];
   v.extent = c.writer->extent(feed);
   v.schedule = c.scheduler->schedule(feed);
-  v.drift = c.monitors->Snapshot(feed, wall_now);
+  v.drift = c.runtimes->at(feed).Snapshot(wall_now);
   v.model = c.scheduler->active(feed);
   v.exponent = ChooseExponent(v.schedule.estimates, v.model != nullptr);
   std::optional<RetrainCycle> cycle;

@@ -10,8 +10,7 @@
 #include "api_routes.h"
 #include "api_store.h"
 #include "core/wall_clock.h"
-#include "feed_monitors.h"
-#include "runtime/forecast.h"
+#include "runtime/feed_runtime.h"
 
 namespace lyapcast::api {
 namespace {
@@ -95,8 +94,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     }
   }
 
-  const auto active = c.scheduler->active(feed);
-  if (!active) {
+  if (!c.scheduler->active(feed)) {
     const FeedSchedule s = c.scheduler->schedule(feed);
     return Error(409, "no-model", fmt::format("feed {} has no model yet{}", fc.id,
                                               s.next_due != DataTime{} ? "; the first retrain is due at " + FormatRfc3339(s.next_due)
@@ -105,7 +103,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
 
   std::optional<Sample> start;
   if (from_latest) {
-    start = c.monitors->NewestComplete(feed);
+    start = c.runtimes->at(feed).NewestComplete();
     if (!start) {
       // After a restart nothing has arrived yet: the newest stored sample.
       const FeedExtent e = c.writer->extent(feed);
@@ -127,21 +125,12 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   }
 
   const FeedView view = ViewFeed(c, feed, WallNow());
-  // Predictability horizon from the exponent the cadence paces by and the
-  // monitor's current one-step error.
-  double e0 = c.monitors->e0(feed);
-  if (!std::isfinite(e0) && active->record.validation_error) e0 = *active->record.validation_error;
-  ForecastRequest request;
-  request.from = start->t;
-  request.start = start->values;
-  request.step = fc.step;
-  request.steps = steps;
-  if (view.exponent) request.lambda_max_per_s = view.exponent->lambda_max;
-  request.e0 = e0;
-  request.tol = fc.monitor.horizon_tol;
-  auto made = MakeForecast(*active->model, request);
-  if (!made.ok()) return FromStatus(made.status());
-  const lyapcast::Forecast& f = *made;
+  // Predictability horizon from the exponent the cadence paces by.
+  auto served = c.runtimes->at(feed).ForecastFrom(
+      *start, steps, view.exponent ? std::optional<double>(view.exponent->lambda_max) : std::nullopt);
+  if (!served.ok()) return FromStatus(served.status());
+  const lyapcast::Forecast& f = served->forecast;
+  const std::shared_ptr<const ActiveModel>& active = served->model;
 
   if (*csv) {
     HttpResponse r;

@@ -8,7 +8,7 @@
 #include "api_routes.h"
 #include "api_store.h"
 #include "core/wall_clock.h"
-#include "feed_monitors.h"
+#include "runtime/feed_runtime.h"
 
 namespace lyapcast::api {
 namespace {
@@ -97,7 +97,7 @@ HttpResponse Job(const ApiContext& c, std::uint32_t feed, const std::string& job
 
 HttpResponse Pause(const ApiContext& c, std::uint32_t feed, bool paused) {
   if (lyapcast::Status s = c.scheduler->SetPaused(feed, paused); !s.ok()) return FromStatus(s);
-  c.monitors->SetPaused(feed, paused);
+  c.runtimes->at(feed).SetPaused(paused);
   return Json(200, json{{"feed", c.config->feeds[feed].id}, {"paused", paused}});
 }
 

@@ -13,7 +13,7 @@
 
 #include "api.h"
 #include "api_store.h"
-#include "feed_monitors.h"
+#include "runtime/feed_runtime.h"
 #include "config/config.h"
 #include "core/secret.h"
 #include "core/wall_clock.h"
@@ -73,18 +73,20 @@ Status CompileAllDynamics(const Config& config) {
   return Status::Ok();
 }
 
+void LogToSpdlog(SchedulerLogLevel level, const std::string& text) {
+  switch (level) {
+    case SchedulerLogLevel::kDebug: spdlog::debug("{}", text); break;
+    case SchedulerLogLevel::kInfo: spdlog::info("{}", text); break;
+    case SchedulerLogLevel::kWarning: spdlog::warn("{}", text); break;
+    case SchedulerLogLevel::kError: spdlog::error("{}", text); break;
+  }
+}
+
 SchedulerOptions SchedulerOptionsFor(const Config& config) {
   SchedulerOptions o;
   o.store_path = config.storage.path;
   o.layouts = Layouts(config);
-  o.log = [](SchedulerLogLevel level, const std::string& text) {
-    switch (level) {
-      case SchedulerLogLevel::kDebug: spdlog::debug("{}", text); break;
-      case SchedulerLogLevel::kInfo: spdlog::info("{}", text); break;
-      case SchedulerLogLevel::kWarning: spdlog::warn("{}", text); break;
-      case SchedulerLogLevel::kError: spdlog::error("{}", text); break;
-    }
-  };
+  o.log = LogToSpdlog;
   return o;
 }
 
@@ -149,10 +151,11 @@ int RunDaemon(const DaemonOptions& options) {
   wopts.retention = config.storage.retention;
   SampleWriter writer(std::move(store).value(), static_cast<int>(config.feeds.size()), wopts);
   Scheduler scheduler(config, SchedulerOptionsFor(config));
-  FeedMonitors monitors(config, scheduler);
-  // Per sample: the scheduler first (in lockstep a due retrain runs before
-  // the sample is scored), then the drift monitor.
-  writer.Subscribe([&monitors](const CommittedBatch& batch) { monitors.OnCommitted(batch); });
+  FeedRuntimes runtimes(config, scheduler, LogToSpdlog);
+  // Per sample, the order of work of runtime/feed_runtime.h: the scheduler
+  // first (in lockstep a due retrain runs before the sample is scored), then
+  // the drift monitor and a drift retrain.
+  writer.Subscribe([&runtimes](const CommittedBatch& batch) { runtimes.OnCommitted(batch); });
   if (Status s = writer.Start(); !s.ok()) {
     spdlog::error("cannot start the store writer: {}", s.message());
     return kExitFailure;
@@ -198,7 +201,7 @@ int RunDaemon(const DaemonOptions& options) {
 
   HttpServerOptions hopts;
   hopts.endpoint = config.listen.http;
-  ApiContext api{&config,    &writer,     &ingest,     &scheduler,      &monitors,
+  ApiContext api{&config,    &writer,     &ingest,     &scheduler,      &runtimes,
                  api_store->get(), read_token, admin_token, WallNow(), kVersion};
   HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
 

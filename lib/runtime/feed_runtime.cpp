@@ -1,0 +1,168 @@
+#include "runtime/feed_runtime.h"
+
+#include <fmt/format.h>
+
+#include <cmath>
+#include <limits>
+
+#include "core/wall_clock.h"
+#include "schedule/retrain_details.h"
+
+namespace lyapcast {
+namespace {
+
+// The validation error on the monitor's scale. The registry's figure is the
+// mean over channels of per-channel RMSEs; the monitor's rolling error is
+// the RMS over channels, which is larger by up to sqrt(channels) when the
+// channels differ. The per-channel figures in the version's details give
+// the RMS form; without them the mean is used.
+double ValidationRms(const ModelRecord& r) {
+  return ValidationRms(ParseRetrainDetails(r.details))
+      .value_or(r.validation_error.value_or(std::numeric_limits<double>::quiet_NaN()));
+}
+
+}  // namespace
+
+struct FeedRuntime::State {
+  explicit State(const FeedConfig& feed) : monitor(feed) {}
+  DriftMonitor monitor;
+  std::shared_ptr<const ActiveModel> model;  // the one the monitor scores with
+  std::optional<Sample> newest_complete;
+  std::optional<DataTime> last_drift_trigger;
+  std::uint64_t drift_triggers = 0;
+};
+
+FeedRuntime::FeedRuntime(const FeedConfig& feed, std::uint32_t index, Scheduler& scheduler, SchedulerLog log)
+    : feed_(feed), index_(index), scheduler_(scheduler), log_(std::move(log)),
+      state_(std::make_unique<State>(feed)) {
+  std::lock_guard lock(mu_);
+  SyncModelLocked();
+}
+
+FeedRuntime::~FeedRuntime() = default;
+
+void FeedRuntime::Log(SchedulerLogLevel level, const std::string& text) const {
+  if (log_) log_(level, text);
+}
+
+void FeedRuntime::SyncModelLocked() {
+  State& s = *state_;
+  std::shared_ptr<const ActiveModel> active = scheduler_.active(index_);
+  if (active == s.model) return;
+  // A cadence or drift retrain warm-starts from the model it replaces; the
+  // change test may then carry on (DriftMonitor::Handover).
+  const bool successor = active && s.model && active->record.parent == s.model->record.version;
+  s.model = active;
+  if (!active) {
+    (void)s.monitor.SetModel(nullptr, 0, std::numeric_limits<double>::quiet_NaN(), DataTime{}, WallTime{});
+    return;
+  }
+  const ModelRecord& r = active->record;
+  auto created = ParseWallRfc3339(r.created_at);
+  const WallTime promoted_wall = created.ok() ? *created : WallNow();
+  Status st = s.monitor.SetModel(active->model, r.version, ValidationRms(r), r.trained_to, promoted_wall,
+                                 successor ? DriftMonitor::Handover::kSuccessor : DriftMonitor::Handover::kFresh);
+  if (!st.ok()) {
+    Log(SchedulerLogLevel::kError,
+        fmt::format("feed {}: the drift monitor cannot use version {}: {}", feed_.id, r.version, st.message()));
+  }
+}
+
+void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
+  scheduler_.OnSample(index_, sample.t);  // 1. in lockstep: a due retrain runs first
+  DriftMonitor::Observation seen;
+  bool trigger = false;
+  {
+    std::lock_guard lock(mu_);
+    State& s = *state_;
+    SyncModelLocked();                          // 2.
+    seen = s.monitor.Observe(sample, arrived);  // 3.
+    if (sample.complete() && (!s.newest_complete || sample.t >= s.newest_complete->t)) {
+      s.newest_complete = sample;  // 4.
+    }
+    // 5. A lasting change keeps alarming; one drift retrain per min_interval
+    // of data time is enough (the flag stays up meanwhile).
+    if (seen.alarm_raised &&
+        (!s.last_drift_trigger || sample.t - *s.last_drift_trigger >= feed_.retrain.min_interval)) {
+      s.last_drift_trigger = sample.t;
+      ++s.drift_triggers;
+      trigger = true;
+    }
+  }
+  if (seen.alarm_raised && !trigger) {
+    Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: drift alarm again at {}; a drift retrain ran less than "
+                                              "min_interval ago",
+                                              feed_.id, FormatRfc3339(sample.t)));
+  }
+  if (!trigger) return;
+  const std::string reason =
+      fmt::format("change test alarm at {} (one-step error {:.3g})", FormatRfc3339(sample.t), seen.error);
+  Log(SchedulerLogLevel::kWarning, fmt::format("feed {}: drift: {}; retraining", feed_.id, reason));
+  auto job = scheduler_.Trigger(index_, TriggerKind::kDrift, reason, sample.t + Micros(1));
+  if (!job.ok()) {
+    Log(SchedulerLogLevel::kWarning,
+        fmt::format("feed {}: drift retrain not queued: {}", feed_.id, job.status().message()));
+  }
+  scheduler_.WaitIfLockstep();  // 6.
+}
+
+DriftSnapshot FeedRuntime::Snapshot(WallTime wall_now) const {
+  std::lock_guard lock(mu_);
+  return state_->monitor.Snapshot(wall_now);
+}
+
+double FeedRuntime::e0() const {
+  std::lock_guard lock(mu_);
+  return state_->monitor.e0();
+}
+
+std::optional<Sample> FeedRuntime::NewestComplete() const {
+  std::lock_guard lock(mu_);
+  return state_->newest_complete;
+}
+
+void FeedRuntime::SetPaused(bool paused) {
+  std::lock_guard lock(mu_);
+  state_->monitor.SetPaused(paused);
+}
+
+std::uint64_t FeedRuntime::drift_triggers() const {
+  std::lock_guard lock(mu_);
+  return state_->drift_triggers;
+}
+
+Result<ServedForecast> FeedRuntime::ForecastFrom(const Sample& start, std::int64_t steps,
+                                                 std::optional<double> lambda_max_per_s) const {
+  ServedForecast out;
+  out.model = scheduler_.active(index_);
+  if (!out.model) return Status::Precondition(fmt::format("feed {} has no model yet", feed_.id));
+  double e0 = this->e0();
+  if (!std::isfinite(e0) && out.model->record.validation_error) e0 = *out.model->record.validation_error;
+  ForecastRequest request;
+  request.from = start.t;
+  request.start = start.values;
+  request.step = feed_.step;
+  request.steps = steps;
+  request.lambda_max_per_s = lambda_max_per_s;
+  request.e0 = e0;
+  request.tol = feed_.monitor.horizon_tol;
+  auto made = MakeForecast(*out.model->model, request);
+  if (!made.ok()) return made.status();
+  out.forecast = std::move(made).value();
+  return out;
+}
+
+FeedRuntimes::FeedRuntimes(const Config& config, Scheduler& scheduler, SchedulerLog log) {
+  for (std::uint32_t i = 0; i < config.feeds.size(); ++i) {
+    feeds_.push_back(std::make_unique<FeedRuntime>(config.feeds[i], i, scheduler, log));
+  }
+}
+
+void FeedRuntimes::OnCommitted(const CommittedBatch& batch) {
+  const WallTime arrived = WallNow();
+  for (const FeedSample& fs : batch.samples) {
+    if (fs.feed < feeds_.size()) feeds_[fs.feed]->OnSample(fs.sample, arrived);
+  }
+}
+
+}  // namespace lyapcast

@@ -1,0 +1,108 @@
+// FeedRuntime: what the daemon does with one feed between the writer and the
+// HTTP routes (docs/design.md "Data flow"), in one place with its own tests.
+//
+// Per committed sample, in this order (OnSample):
+//   1. the scheduler sees it (cadence; in lockstep a due retrain runs first,
+//      so the sample is scored by the model trained on the data before it);
+//   2. the drift monitor switches to the published model if it changed (a
+//      successor of the model it scored with keeps the change test's
+//      in-control estimate: DriftMonitor::Handover);
+//   3. the monitor scores the sample against the model;
+//   4. the newest complete sample (a forecast's default start) is updated;
+//   5. a change-test alarm triggers a drift retrain with the data up to and
+//      including the alarming sample, at most one per retrain.min_interval
+//      of data time (a lasting change keeps alarming; the flag stays up);
+//   6. in lockstep, the caller waits until that retrain finished, so the
+//      next sample is scored by its outcome (the next sample's step 1 would
+//      wait for it too; waiting here also holds the writer, so whoever reads
+//      after this batch sees the outcome).
+//
+// Forecast: a free run of the published model from a given start with the
+// predictability horizon from the given exponent and the monitor's current
+// one-step error (the model's validation error until the monitor has one).
+//
+// FeedRuntimes holds one per configured feed and is the writer's subscriber.
+//
+// Threads: OnSample/OnCommitted on the writer thread only; the getters,
+// SetPaused and Forecast from any thread (one mutex per feed, held only for
+// in-memory work, never while the scheduler runs a job).
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <vector>
+
+#include "config/config.h"
+#include "core/sample.h"
+#include "monitor/drift_monitor.h"
+#include "runtime/forecast.h"
+#include "schedule/scheduler.h"
+#include "store/sample_writer.h"
+
+namespace lyapcast {
+
+// A forecast and the model version that made it.
+struct ServedForecast {
+  std::shared_ptr<const ActiveModel> model;
+  Forecast forecast;
+};
+
+class FeedRuntime {
+ public:
+  // `feed` and `scheduler` must outlive the runtime; `index` is the feed's
+  // index in the config (and the scheduler). `log` may be empty.
+  FeedRuntime(const FeedConfig& feed, std::uint32_t index, Scheduler& scheduler, SchedulerLog log);
+  ~FeedRuntime();
+  FeedRuntime(const FeedRuntime&) = delete;
+  FeedRuntime& operator=(const FeedRuntime&) = delete;
+
+  // The per-sample order of work above. `arrived`: wall time of the commit.
+  void OnSample(const Sample& sample, WallTime arrived);
+
+  DriftSnapshot Snapshot(WallTime wall_now) const;
+  double e0() const;  // the monitor's current error; NaN when unknown
+  std::optional<Sample> NewestComplete() const;
+  void SetPaused(bool paused);
+  // Drift retrains this runtime queued (alarms within min_interval of the
+  // previous trigger are not counted).
+  std::uint64_t drift_triggers() const;
+
+  // `steps` points from `start` (complete, one value per channel) with the
+  // published model. kFailedPrecondition when the feed has no model yet;
+  // otherwise MakeForecast's errors.
+  [[nodiscard]] Result<ServedForecast> ForecastFrom(const Sample& start, std::int64_t steps,
+                                                    std::optional<double> lambda_max_per_s) const;
+
+ private:
+  struct State;
+  void SyncModelLocked();  // requires mu_
+  void Log(SchedulerLogLevel level, const std::string& text) const;
+
+  const FeedConfig& feed_;
+  const std::uint32_t index_;
+  Scheduler& scheduler_;
+  const SchedulerLog log_;
+  mutable std::mutex mu_;
+  std::unique_ptr<State> state_;  // guarded by mu_
+};
+
+class FeedRuntimes {
+ public:
+  // `config` and `scheduler` must outlive this object.
+  FeedRuntimes(const Config& config, Scheduler& scheduler, SchedulerLog log);
+
+  // The writer's subscriber: OnSample for each sample of the batch, in order.
+  void OnCommitted(const CommittedBatch& batch);
+
+  std::size_t size() const { return feeds_.size(); }
+  // Requires feed < size().
+  FeedRuntime& at(std::uint32_t feed) { return *feeds_[feed]; }
+  const FeedRuntime& at(std::uint32_t feed) const { return *feeds_[feed]; }
+
+ private:
+  std::vector<std::unique_ptr<FeedRuntime>> feeds_;
+};
+
+}  // namespace lyapcast

@@ -1,0 +1,256 @@
+// FeedRuntime: the per-sample order of work (scheduler, model switch,
+// scoring, newest state, drift trigger with its rate limit, lockstep wait)
+// and the forecast, on a real store, writer and scheduler as the daemon
+// wires them. Data: Lorenz-63 (constants of docs/references.md "Systems")
+// from the project's RK4; the "fault" is Gaussian sensor noise of 4 units
+// added from a given sample on (invented for the test), which the change
+// test must flag.
+#include "runtime/feed_runtime.h"
+
+#include <gtest/gtest.h>
+
+#include <future>
+#include <random>
+
+#include "core/wall_clock.h"
+#include "schedule/retrain_details.h"
+#include "support/feeds.h"
+#include "support/temp_dir.h"
+
+namespace lyapcast {
+namespace {
+
+namespace fs = std::filesystem;
+
+const DataTime kT0 = DataTimeFromMicros(1'000'000'000'000'000);
+
+Config LorenzConfig() {
+  Config c;
+  FeedConfig f = testing::LorenzFeed();
+  f.model.hidden = {16, 16};
+  f.retrain.iterations = 60;
+  f.retrain.batch = 64;
+  f.retrain.min_pairs = 400;
+  f.retrain.learning_rate = 3e-3;
+  f.retrain.min_interval = 2 * kSecond;
+  f.retrain.max_interval = 4 * kSecond;
+  c.feeds.push_back(f);
+  c.training.lockstep = true;
+  return c;
+}
+
+// Clean Lorenz samples, then from index `fault_from` on a noisy sensor.
+std::vector<FeedSample> Stream(int n, int fault_from) {
+  std::vector<FeedSample> out = testing::LorenzSamples(n, kT0);
+  std::mt19937_64 rng(7);
+  std::normal_distribution<double> noise(0.0, 4.0);
+  for (int i = fault_from; i < n; ++i) {
+    for (double& v : out[static_cast<std::size_t>(i)].sample.values) v += noise(rng);
+  }
+  return out;
+}
+
+// A store, its writer, a scheduler and the runtimes subscribed to it.
+class Rig {
+ public:
+  Rig(const Config& config, const fs::path& db, int commit_batch) {
+    for (const FeedConfig& f : config.feeds) layouts_.push_back({f.id, f.channels, f.step});
+    auto store = WindowStore::Open(StoreOptions{db, false, 5000});
+    EXPECT_TRUE(store.ok()) << store.status().ToString();
+    EXPECT_TRUE((*store)->RegisterFeeds(layouts_).ok());
+    WriterOptions w;
+    w.commit_batch = commit_batch;
+    writer_ = std::make_unique<SampleWriter>(std::move(store).value(), 1, w);
+    SchedulerOptions o;
+    o.store_path = db;
+    o.layouts = layouts_;
+    scheduler_ = std::make_unique<Scheduler>(config, o);
+    runtimes_ = std::make_unique<FeedRuntimes>(config, *scheduler_, SchedulerLog{});
+    writer_->Subscribe([this](const CommittedBatch& b) { runtimes_->OnCommitted(b); });
+    EXPECT_TRUE(writer_->Start().ok());
+    EXPECT_TRUE(scheduler_->Start({writer_->extent(0)}).ok());
+  }
+  ~Rig() {
+    scheduler_->Stop();
+    writer_->Stop();
+  }
+  void Send(const std::vector<FeedSample>& samples, std::size_t chunk) {
+    for (std::size_t i = 0; i < samples.size(); i += chunk) {
+      std::vector<FeedSample> part(samples.begin() + static_cast<std::ptrdiff_t>(i),
+                                   samples.begin() + static_cast<std::ptrdiff_t>(std::min(samples.size(), i + chunk)));
+      ASSERT_TRUE(writer_->Submit(std::move(part), [](std::vector<WriteOutcome>) {}));
+    }
+  }
+  // Everything submitted is committed and seen by the runtimes (two empty
+  // submissions: the second lands in a later group than the first).
+  void Drain() {
+    for (int round = 0; round < 2; ++round) {
+      std::promise<void> done;
+      ASSERT_TRUE(writer_->Submit({}, [&done](std::vector<WriteOutcome>) { done.set_value(); }));
+      done.get_future().wait();
+    }
+  }
+  Scheduler& scheduler() { return *scheduler_; }
+  FeedRuntime& runtime() { return runtimes_->at(0); }
+
+ private:
+  std::vector<FeedLayout> layouts_;
+  std::unique_ptr<SampleWriter> writer_;
+  std::unique_ptr<Scheduler> scheduler_;
+  std::unique_ptr<FeedRuntimes> runtimes_;
+};
+
+struct Version {
+  std::string trigger;
+  DataTime trained_to{};
+  std::string file;
+  bool operator==(const Version&) const = default;
+};
+
+std::vector<Version> Versions(const fs::path& db, const Config& config) {
+  auto store = WindowStore::Open(StoreOptions{db, false, 5000});
+  EXPECT_TRUE(store.ok());
+  EXPECT_TRUE((*store)->RegisterFeeds({{config.feeds[0].id, config.feeds[0].channels, config.feeds[0].step}}).ok());
+  ModelRegistry registry(std::move(store).value());
+  std::vector<Version> out;
+  auto list = registry.List(0, 1000);
+  EXPECT_TRUE(list.ok());
+  for (auto it = list->rbegin(); it != list->rend(); ++it) {
+    out.push_back({ParseRetrainDetails(it->details).trigger, it->trained_to, registry.Get(0, it->version)->file});
+  }
+  return out;
+}
+
+// Order 1 before 2 and 3: in lockstep the sample at which the first retrain
+// is due waits for that job, and the monitor then switches to the model it
+// produced while handling that same sample. Were the sample scored before
+// the scheduler saw it, the monitor would still have no model after it.
+TEST(FeedRuntime, TheSampleAtADueRetrainWaitsForItAndFindsTheNewModel) {
+  const Config config = LorenzConfig();
+  const FeedConfig& feed = config.feeds[0];
+  testing::TempDir dir("lyapcast-runtime-test");
+  Rig rig(config, dir.path() / "w.db", 4096);
+  EXPECT_FALSE(rig.runtime().NewestComplete().has_value());
+  // The first job is due once the window spans min_pairs / (1 - validation)
+  // + rollout + 1 steps (scheduler.h): 500 + 4 + 1 = 505 steps after the first sample.
+  const int due_index = 505;
+  const std::vector<FeedSample> data = testing::LorenzSamples(700, kT0);
+  rig.Send({data.begin(), data.begin() + due_index}, 100);
+  rig.Drain();
+  EXPECT_EQ(rig.scheduler().active(0), nullptr) << "not due yet";
+  EXPECT_FALSE(rig.runtime().Snapshot(WallNow()).model_version.has_value());
+  rig.Send({data.begin() + due_index, data.begin() + due_index + 1}, 1);  // the due sample alone
+  rig.Drain();
+  const auto active = rig.scheduler().active(0);
+  ASSERT_NE(active, nullptr);
+  EXPECT_EQ(active->record.trained_to, kT0 + due_index * feed.step) << "lockstep: exactly the data before it";
+  EXPECT_EQ(rig.runtime().Snapshot(WallNow()).model_version, 1);
+  EXPECT_EQ(rig.runtime().NewestComplete()->t, kT0 + due_index * feed.step);
+
+  // Later samples are scored against the new model (the due sample itself
+  // is where its training data ends, and serves as the first "previous").
+  rig.Send({data.begin() + due_index + 1, data.end()}, 100);
+  rig.Drain();
+  EXPECT_EQ(rig.runtime().Snapshot(WallNow()).scored, 700 - due_index - 1);
+}
+
+// Order 5 and 6: a sensor fault raises change-test alarms; each drift
+// retrain uses the data up to and including its alarming sample, and drift
+// retrains are at least min_interval of data time apart although the fault
+// keeps alarming.
+TEST(FeedRuntime, DriftAlarmsTriggerRetrainsUpToTheAlarmingSampleAtMostOncePerMinInterval) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-runtime-test");
+  const fs::path db = dir.path() / "w.db";
+  {
+    Rig rig(config, db, 4096);
+    rig.Send(Stream(3000, 1500), 500);
+    rig.Drain();
+    EXPECT_GE(rig.runtime().drift_triggers(), 1u);
+    const DriftSnapshot s = rig.runtime().Snapshot(WallNow());
+    EXPECT_GE(s.alarms_total, static_cast<std::int64_t>(rig.runtime().drift_triggers()));
+  }
+  std::vector<DataTime> drift_ends;
+  for (const Version& v : Versions(db, config)) {
+    if (v.trigger == "drift") drift_ends.push_back(v.trained_to);
+  }
+  ASSERT_FALSE(drift_ends.empty());
+  for (DataTime end : drift_ends) {
+    // until = the alarming sample's time + 1 us; samples lie on the 10 ms grid.
+    EXPECT_EQ((end - Micros(1) - kT0) % config.feeds[0].step, Micros(0));
+    EXPECT_GE(end, kT0 + 1500 * config.feeds[0].step) << "no alarm before the fault";
+  }
+  for (std::size_t i = 1; i < drift_ends.size(); ++i) {
+    EXPECT_GE(drift_ends[i] - drift_ends[i - 1], config.feeds[0].retrain.min_interval);
+  }
+}
+
+// The whole order under lockstep: replays at two groupings give the same
+// drift alarms, the same versions with the same triggers and data ends, and
+// the same model bytes. Without the lockstep wait after a drift trigger,
+// how many samples were scored by the old model would depend on grouping.
+TEST(FeedRuntime, LockstepReplayWithDriftRetrainsIsTheSameAtAnyGrouping) {
+  const Config config = LorenzConfig();
+  const std::vector<FeedSample> data = Stream(2500, 1300);
+  std::vector<Version> runs[2];
+  std::int64_t alarms[2] = {0, 0};
+  const std::pair<std::size_t, int> groupings[2] = {{7, 16}, {997, 4096}};  // (chunk, commit_batch)
+  for (int r = 0; r < 2; ++r) {
+    testing::TempDir dir("lyapcast-runtime-test");
+    const fs::path db = dir.path() / "w.db";
+    {
+      Rig rig(config, db, groupings[r].second);
+      rig.Send(data, groupings[r].first);
+      rig.Drain();
+      alarms[r] = rig.runtime().Snapshot(WallNow()).alarms_total;
+    }
+    runs[r] = Versions(db, config);
+  }
+  EXPECT_GE(alarms[0], 1);
+  EXPECT_EQ(alarms[0], alarms[1]);
+  ASSERT_EQ(runs[0].size(), runs[1].size());
+  bool any_drift = false;
+  for (std::size_t i = 0; i < runs[0].size(); ++i) {
+    any_drift = any_drift || runs[0][i].trigger == "drift";
+    EXPECT_EQ(runs[0][i].trigger, runs[1][i].trigger) << "version " << i + 1;
+    EXPECT_EQ(runs[0][i].trained_to, runs[1][i].trained_to) << "version " << i + 1;
+    EXPECT_TRUE(runs[0][i].file == runs[1][i].file) << "model bytes differ at version " << i + 1;
+  }
+  EXPECT_TRUE(any_drift);
+}
+
+// The forecast: refused without a model; with one, from the given start with
+// the published model, the horizon's e0 the monitor's error (the model's
+// validation error before the monitor has one).
+TEST(FeedRuntime, ForecastsWithThePublishedModelAndTheMonitorsError) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-runtime-test");
+  Rig rig(config, dir.path() / "w.db", 4096);
+  const Sample start = testing::LorenzSamples(1, kT0)[0].sample;
+  EXPECT_EQ(rig.runtime().ForecastFrom(start, 10, 0.9).status().code(), StatusCode::kFailedPrecondition);
+
+  rig.Send(testing::LorenzSamples(800, kT0), 800);
+  rig.Drain();
+  auto served = rig.runtime().ForecastFrom(start, 50, 0.9056);
+  ASSERT_TRUE(served.ok()) << served.status().ToString();
+  EXPECT_EQ(served->model, rig.scheduler().active(0));
+  ASSERT_EQ(served->forecast.points.size(), 50u);
+  EXPECT_EQ(served->forecast.points[0].t, start.t + config.feeds[0].step);
+  EXPECT_EQ(served->forecast.horizon.e0, rig.runtime().e0());
+  EXPECT_TRUE(served->forecast.horizon.seconds.has_value()) << served->forecast.horizon.reason;
+  // The same numbers as MakeForecast on the same model: one forecast.
+  ForecastRequest request;
+  request.from = start.t;
+  request.start = start.values;
+  request.step = config.feeds[0].step;
+  request.steps = 50;
+  request.lambda_max_per_s = 0.9056;
+  request.e0 = rig.runtime().e0();
+  request.tol = config.feeds[0].monitor.horizon_tol;
+  auto direct = MakeForecast(*served->model->model, request);
+  ASSERT_TRUE(direct.ok());
+  EXPECT_EQ(direct->points.back().values, served->forecast.points.back().values);
+}
+
+}  // namespace
+}  // namespace lyapcast
