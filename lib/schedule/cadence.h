@@ -1,9 +1,12 @@
 // Cadence: when a feed's next retrain is due, in data time (docs/design.md
 // "Lyapunov time and cadence").
 //
-// The Lyapunov time T = 1 / lambda_max comes from the best source at hand:
-// the active model once one exists; before that the known dynamics when the
-// feed has them, else the raw data. The next retrain is due after
+// The Lyapunov time T = 1 / lambda_max comes from the LARGEST positive
+// estimate at hand among the active model's (once one exists), the known
+// dynamics' and the raw data's (ties: model, then dynamics): the shortest
+// Lyapunov time, since retraining too rarely costs forecasts and too often
+// only compute (cadence.cpp says why). Without a positive estimate the
+// model's, else the dynamics', else the data's is reported. The next retrain is due after
 // lyapunov_fraction * T of new data time since the last one, clamped to
 // [min_interval, max_interval]; lambda_max <= 0 (or no estimate at all)
 // uses max_interval. Every decision carries its reason in words, for logs

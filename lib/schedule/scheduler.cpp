@@ -550,10 +550,6 @@ void Scheduler::OnSample(std::uint32_t feed, DataTime t) {
   }
 }
 
-void Scheduler::OnCommitted(const CommittedBatch& batch) {
-  for (const FeedSample& fs : batch.samples) OnSample(fs.feed, fs.sample.t);
-}
-
 void Scheduler::WaitIfLockstep() {
   if (!config_.training.lockstep) return;
   std::unique_lock lock(mu_);

@@ -2,7 +2,7 @@
 // the jobs (docs/design.md "Threads" and "Time").
 //
 // Cadence, in data time only: every newly committed sample reaches
-// OnSample() (or a whole batch OnCommitted()); once a feed's newest sample
+// OnSample() (from the per-feed runtime, runtime/feed_runtime.h); once a feed's newest sample
 // reaches its due time a job is queued. The first job is due once the window spans retrain.min_pairs steps
 // (and is retried every min_interval while it holds too few pairs); after a
 // job that used data up to U the next is due at NextRetrain(U) (cadence.h),
@@ -31,7 +31,7 @@
 // Start-up: Start() loads each feed's active version and publishes it, and
 // resumes the cadence from the newest stored version's training end.
 //
-// Threads: OnSample/OnCommitted run on the writer thread. Trigger, active, schedule,
+// Threads: OnSample runs on the writer thread. Trigger, active, schedule,
 // job and Stop may be called from any thread. Every decision is reported
 // through `log` (from the calling or a trainer thread) with its reason.
 #pragma once
@@ -129,8 +129,6 @@ class Scheduler {
   // live mode; in lockstep only when no job is due or running (or Stop()
   // began).
   void OnSample(std::uint32_t feed, DataTime t);
-  // OnSample for each sample of a committed batch (the writer's subscriber).
-  void OnCommitted(const CommittedBatch& batch);
   // In lockstep, waits until no job is queued or running (or Stop() began);
   // returns at once in live mode. Call after a Trigger that must take
   // effect before the next sample (a drift alarm in a replay).
@@ -164,7 +162,7 @@ class Scheduler {
   std::optional<JobInfo> job(std::uint64_t id) const;  // the newest 256 jobs are kept
 
   // Cancels running jobs (their candidates are dropped unrecorded), wakes a
-  // waiting OnCommitted and joins the trainers. Idempotent.
+  // waiting OnSample and joins the trainers. Idempotent.
   void Stop();
 
  private:

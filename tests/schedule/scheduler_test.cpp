@@ -58,7 +58,10 @@ class Rig {
       log_.push_back(text);
     };
     scheduler_ = std::make_unique<Scheduler>(config, o);
-    writer_->Subscribe([this](const CommittedBatch& b) { scheduler_->OnCommitted(b); });
+    // The scheduler's part of the per-sample order (runtime/feed_runtime.h).
+    writer_->Subscribe([this](const CommittedBatch& b) {
+      for (const FeedSample& fs : b.samples) scheduler_->OnSample(fs.feed, fs.sample.t);
+    });
     EXPECT_TRUE(writer_->Start().ok());
     EXPECT_TRUE(scheduler_->Start({writer_->extent(0)}).ok());
   }
