@@ -70,76 +70,77 @@ std::string JsonBody(const json& head, const lyapcast::Forecast& f) {
 
 }  // namespace
 
-HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest& req) {
-  const FeedConfig& fc = c.config->feeds[feed];
-  auto steps_param = IntParam(req, "steps", 1, kMaxSteps);
-  if (!steps_param.ok()) return FromStatus(steps_param.status());
-  auto horizon_param = DurationParam(req, "horizon");
-  if (!horizon_param.ok()) return FromStatus(horizon_param.status());
-  if (*steps_param && *horizon_param) return BadParameter("steps", "give steps or horizon, not both");
+namespace {
+
+struct ForecastParams {
+  std::int64_t steps = kDefaultSteps;
+  bool csv = false;
+  std::optional<DataTime> from;  // none: the newest complete sample
+};
+
+// steps | horizon, format, from; checked before the model so a bad
+// parameter is 400 whatever the feed's state. An error response on failure.
+std::optional<HttpResponse> ParseParams(const FeedConfig& fc, const HttpRequest& req, ForecastParams* p) {
+  auto steps = IntParam(req, "steps", 1, kMaxSteps);
+  if (!steps.ok()) return FromStatus(steps.status());
+  auto horizon = DurationParam(req, "horizon");
+  if (!horizon.ok()) return FromStatus(horizon.status());
+  if (*steps && *horizon) return BadParameter("steps", "give steps or horizon, not both");
   const auto csv = WantsCsv(req);
   if (!csv.ok()) return FromStatus(csv.status());
-  // from: absent or "latest" (the newest complete sample), else a data time;
-  // checked before the model so a bad parameter is 400 whatever the state.
+  p->csv = *csv;
+  // from: absent or "latest" (the newest complete sample), else a data time.
   const auto from_it = req.query.find("from");
-  const bool from_latest = from_it == req.query.end() || from_it->second == "latest";
-  auto from = from_latest ? Result<std::optional<DataTime>>(std::optional<DataTime>{}) : TimeParam(req, "from");
-  if (!from.ok()) return FromStatus(from.status());
-  std::int64_t steps = steps_param->value_or(kDefaultSteps);
-  if (*horizon_param) {
-    steps = (**horizon_param + fc.step - Micros(1)) / fc.step;
-    if (steps > kMaxSteps) {
-      return BadParameter("horizon", fmt::format("{} is {} steps of {}; at most {} steps", FormatDuration(**horizon_param),
-                                                 steps, FormatDuration(fc.step), kMaxSteps));
+  if (from_it != req.query.end() && from_it->second != "latest") {
+    auto from = TimeParam(req, "from");
+    if (!from.ok()) return FromStatus(from.status());
+    p->from = *from;
+  }
+  p->steps = steps->value_or(kDefaultSteps);
+  if (*horizon) {
+    p->steps = (**horizon + fc.step - Micros(1)) / fc.step;
+    if (p->steps > kMaxSteps) {
+      return BadParameter("horizon", fmt::format("{} is {} steps of {}; at most {} steps", FormatDuration(**horizon),
+                                                 p->steps, FormatDuration(fc.step), kMaxSteps));
     }
   }
+  return std::nullopt;
+}
 
-  if (!c.scheduler->active(feed)) {
-    const FeedSchedule s = c.scheduler->schedule(feed);
-    return Error(409, "no-model", fmt::format("feed {} has no model yet{}", fc.id,
-                                              s.next_due != DataTime{} ? "; the first retrain is due at " + FormatRfc3339(s.next_due)
-                                                         : "; it needs data first"));
-  }
-
-  std::optional<Sample> start;
-  if (from_latest) {
-    start = c.runtimes->at(feed).NewestComplete();
-    if (!start) {
-      // After a restart nothing has arrived yet: the newest stored sample.
-      const FeedExtent e = c.writer->extent(feed);
-      if (e.count > 0) {
-        auto found = c.store->CompleteSampleAt(feed, e.newest, kFromLookbackSteps * fc.step);
-        if (!found.ok()) return FromStatus(found.status());
-        start = *found;
-      }
-    }
-    if (!start) return Error(409, "no-data", fmt::format("feed {} has no complete sample to start from", fc.id));
-  } else {
-    auto found = c.store->CompleteSampleAt(feed, **from, kFromLookbackSteps * fc.step);
+// The start: the complete sample at or shortly before `from`, else the
+// newest complete one (after a restart, before anything arrived: the newest
+// stored). An error response when there is none.
+std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed, const std::optional<DataTime>& from,
+                                        Sample* start) {
+  const FeedConfig& fc = c.config->feeds[feed];
+  if (from) {
+    auto found = c.store->CompleteSampleAt(feed, *from, kFromLookbackSteps * fc.step);
     if (!found.ok()) return FromStatus(found.status());
     if (!*found) {
       return Error(404, "not-found", fmt::format("from: feed {} has no complete sample at or up to {} steps before {}",
-                                                 fc.id, kFromLookbackSteps, FormatRfc3339(**from)));
+                                                 fc.id, kFromLookbackSteps, FormatRfc3339(*from)));
     }
-    start = *found;
+    *start = **found;
+    return std::nullopt;
   }
-
-  const FeedView view = ViewFeed(c, feed, WallNow());
-  // Predictability horizon from the exponent the cadence paces by.
-  auto served = c.runtimes->at(feed).ForecastFrom(
-      *start, steps, view.exponent ? std::optional<double>(view.exponent->lambda_max) : std::nullopt);
-  if (!served.ok()) return FromStatus(served.status());
-  const lyapcast::Forecast& f = served->forecast;
-  const std::shared_ptr<const ActiveModel>& active = served->model;
-
-  if (*csv) {
-    HttpResponse r;
-    r.content_type = "text/csv; charset=utf-8";
-    r.body = CsvBody(fc, f);
-    r.headers.emplace_back("X-Lyapcast-Model-Version", std::to_string(active->record.version));
-    return r;
+  if (auto newest = c.runtimes->at(feed).NewestComplete()) {
+    *start = *newest;
+    return std::nullopt;
   }
+  const FeedExtent e = c.writer->extent(feed);
+  if (e.count > 0) {
+    auto found = c.store->CompleteSampleAt(feed, e.newest, kFromLookbackSteps * fc.step);
+    if (!found.ok()) return FromStatus(found.status());
+    if (*found) {
+      *start = **found;
+      return std::nullopt;
+    }
+  }
+  return Error(409, "no-data", fmt::format("feed {} has no complete sample to start from", fc.id));
+}
 
+// Everything of the JSON body but the points, in the document's order.
+json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& served) {
   json lyapunov = nullptr;
   if (view.exponent) {
     lyapunov = {{"per_s", view.exponent->lambda_max},
@@ -147,6 +148,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
                 {"lyapunov_time_s",
                  view.exponent->lambda_max > 0 ? json(1.0 / view.exponent->lambda_max) : json(nullptr)}};
   }
+  const lyapcast::Forecast& f = served.forecast;
   const Horizon& h = f.horizon;
   json horizon = {{"seconds", OptionalNumber(h.seconds)},
                   {"lyapunov_times", OptionalNumber(h.lyapunov_times)},
@@ -155,19 +157,47 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
                   {"reason", h.seconds ? json(nullptr) : json(h.reason)}};
   json start_values = json::array();
   for (double v : f.start) start_values.push_back(v);
-  const json head{{"feed", fc.id},
-                  {"model_version", active->record.version},
-                  {"channels", fc.channels},
-                  {"step_s", Seconds(fc.step)},
-                  {"from", TimeJson(f.from)},
-                  {"start", std::move(start_values)},
-                  {"lyapunov", std::move(lyapunov)},
-                  {"horizon", std::move(horizon)},
-                  {"staleness", StalenessJson(view)},
-                  {"advisory", kAdvisory}};
+  return json{{"feed", fc.id},
+              {"model_version", served.model->record.version},
+              {"channels", fc.channels},
+              {"step_s", Seconds(fc.step)},
+              {"from", TimeJson(f.from)},
+              {"start", std::move(start_values)},
+              {"lyapunov", std::move(lyapunov)},
+              {"horizon", std::move(horizon)},
+              {"staleness", StalenessJson(view)},
+              {"advisory", kAdvisory}};
+}
+
+}  // namespace
+
+HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest& req) {
+  const FeedConfig& fc = c.config->feeds[feed];
+  ForecastParams params;
+  if (auto bad = ParseParams(fc, req, &params)) return *bad;
+  if (!c.scheduler->active(feed)) {
+    const FeedSchedule s = c.scheduler->schedule(feed);
+    return Error(409, "no-model", fmt::format("feed {} has no model yet{}", fc.id,
+                                              s.next_due != DataTime{} ? "; the first retrain is due at " + FormatRfc3339(s.next_due)
+                                                         : "; it needs data first"));
+  }
+  Sample start;
+  if (auto none = StartSample(c, feed, params.from, &start)) return *none;
+
+  const FeedView view = ViewFeed(c, feed, WallNow());
+  // Predictability horizon from the exponent the cadence paces by.
+  auto served = c.runtimes->at(feed).ForecastFrom(
+      start, params.steps, view.exponent ? std::optional<double>(view.exponent->lambda_max) : std::nullopt);
+  if (!served.ok()) return FromStatus(served.status());
   HttpResponse r;
+  if (params.csv) {
+    r.content_type = "text/csv; charset=utf-8";
+    r.body = CsvBody(fc, served->forecast);
+    r.headers.emplace_back("X-Lyapcast-Model-Version", std::to_string(served->model->record.version));
+    return r;
+  }
   r.status = 200;
-  r.body = JsonBody(head, f);
+  r.body = JsonBody(HeadJson(fc, view, *served), served->forecast);
   return r;
 }
 

@@ -103,23 +103,33 @@ int CheckConfig(const std::filesystem::path& file) {
   return kExitOk;
 }
 
-int RunDaemon(const DaemonOptions& options) {
+namespace {
+
+struct Tokens {
+  std::optional<std::string> ingest, read, admin;
+};
+
+// The config and the token files, checked. An exit code on failure.
+std::optional<int> LoadChecked(const DaemonOptions& options, std::optional<Config>* config, Tokens* tokens) {
   auto loaded = LoadConfig(options.config);
   if (!loaded.ok()) {
     spdlog::error("invalid config: {}", loaded.status().message());
     return kExitConfigInvalid;
   }
-  const Config config = std::move(loaded).value();
-  if (Status s = CompileAllDynamics(config); !s.ok()) {
+  if (Status s = CompileAllDynamics(*loaded); !s.ok()) {
     spdlog::error("invalid config: {}", s.message());
     return kExitConfigInvalid;
   }
   bool tokens_ok = true;
-  const auto ingest_token = LoadToken(config.auth.ingest_token_file, "ingest_token_file", &tokens_ok);
-  const auto read_token = LoadToken(config.auth.read_token_file, "read_token_file", &tokens_ok);
-  const auto admin_token = LoadToken(config.auth.admin_token_file, "admin_token_file", &tokens_ok);
+  tokens->ingest = LoadToken(loaded->auth.ingest_token_file, "ingest_token_file", &tokens_ok);
+  tokens->read = LoadToken(loaded->auth.read_token_file, "read_token_file", &tokens_ok);
+  tokens->admin = LoadToken(loaded->auth.admin_token_file, "admin_token_file", &tokens_ok);
   if (!tokens_ok) return kExitConfigInvalid;
+  *config = std::move(loaded).value();
+  return std::nullopt;
+}
 
+void LogStartup(const DaemonOptions& options, const Config& config) {
   spdlog::info("lyapcastd {} starting (pid {}), config {}", kVersion, ::getpid(), options.config.string());
   const std::string summary = DescribeConfig(config);
   for (std::string_view rest = summary; !rest.empty();) {
@@ -133,18 +143,99 @@ int RunDaemon(const DaemonOptions& options) {
     spdlog::warn("listening beyond loopback without tokens (listen.allow_remote_without_tokens: true): "
                  "anyone who can reach these ports can send samples and read forecasts");
   }
+}
 
+// A store/config mismatch is the operator's to fix (exit code 2); anything
+// else is a failure.
+int ExitCodeFor(const Status& s) {
+  return s.code() == StatusCode::kFailedPrecondition ? kExitConfigInvalid : kExitFailure;
+}
+
+Result<std::unique_ptr<WindowStore>> OpenWindow(const Config& config) {
   auto store = WindowStore::Open(StoreOptions{config.storage.path, false, 5000});
-  if (!store.ok()) {
-    spdlog::error("cannot open the store: {}", store.status().message());
-    return store.status().code() == StatusCode::kFailedPrecondition ? kExitConfigInvalid : kExitFailure;
-  }
-  if (Status s = (*store)->RegisterFeeds(Layouts(config)); !s.ok()) {
-    spdlog::error("{}", s.message());
-    return s.code() == StatusCode::kFailedPrecondition ? kExitConfigInvalid : kExitFailure;
-  }
+  if (!store.ok()) return Status(store.status().code(), "cannot open the store: " + store.status().message());
+  if (Status s = (*store)->RegisterFeeds(Layouts(config)); !s.ok()) return s;
   spdlog::info("store {} open (schema version {})", config.storage.path.string(), (*store)->schema_version());
+  return store;
+}
 
+// Logs what each feed holds and starts the trainers from there.
+Status StartRetraining(const Config& config, const SampleWriter& writer, Scheduler& scheduler) {
+  std::vector<FeedExtent> extents;
+  for (std::size_t i = 0; i < config.feeds.size(); ++i) {
+    const FeedExtent e = writer.extent(static_cast<std::uint32_t>(i));
+    extents.push_back(e);
+    if (e.count > 0) {
+      spdlog::info("feed {}: {} samples stored, {} .. {}", config.feeds[i].id, e.count, FormatRfc3339(e.oldest),
+                   FormatRfc3339(e.newest));
+    }
+  }
+  if (Status s = scheduler.Start(extents); !s.ok()) {
+    return Status(s.code(), "cannot start the retraining scheduler: " + s.message());
+  }
+  spdlog::info("retraining: {} trainer thread(s){}", std::max(config.training.threads, 1),
+               config.training.lockstep ? ", lockstep (ingest waits for each due retrain)" : "");
+  return Status::Ok();
+}
+
+IngestServerOptions IngestOptionsFor(const Config& config, const std::optional<std::string>& token) {
+  IngestServerOptions o;
+  o.endpoint = config.listen.ingest;
+  o.max_line = config.limits.max_line;
+  o.max_connections = config.limits.max_connections;
+  o.idle_timeout = config.limits.idle_timeout;
+  o.max_future_skew = config.limits.max_future_skew;
+  o.token = token;
+  o.max_outstanding = static_cast<std::size_t>(std::max(2 * config.limits.commit_batch, 1024));
+  return o;
+}
+
+// On SIGINT or SIGTERM: cancel training, drain the listeners, stop `io`.
+void StopOnSignal(asio::signal_set& signals, asio::io_context& io, Scheduler& scheduler, HttpServer& http,
+                  IngestServer& ingest) {
+  signals.async_wait([&](boost::system::error_code ec, int signo) {
+    if (ec) return;
+    NotifyStopping();  // systemd: the stop has begun (no-op without NOTIFY_SOCKET)
+    spdlog::info("received {}; stopping: no new connections, finishing received lines", signo == SIGINT ? "SIGINT" : "SIGTERM");
+    // Cancel training first: in lockstep the writer may be waiting for a
+    // job, and the sessions for the writer.
+    scheduler.Stop();
+    http.Shutdown();
+    ingest.Shutdown([&io] { io.stop(); });
+  });
+}
+
+// Runs `io` on `io_threads` threads (this one included) until it stops.
+void RunIo(asio::io_context& io, int io_threads) {
+  std::vector<std::thread> threads;
+  for (int i = 1; i < io_threads; ++i) threads.emplace_back([&io] { io.run(); });
+  io.run();
+  for (auto& t : threads) t.join();
+}
+
+void LogTotals(const SampleWriter& writer, const IngestServer& ingest) {
+  const WriterStats stats = writer.stats();
+  const IngestCounters& k = ingest.counters();
+  spdlog::info("writer: committed {} samples in {} transactions ({} failed commits, {} rows pruned)",
+               stats.samples_committed, stats.transactions, stats.failed_commits, stats.rows_pruned);
+  spdlog::info("ingest: {} lines on {} connections, {} accepted", k.lines.load(), k.connections_accepted.load(),
+               k.accepted.load());
+}
+
+}  // namespace
+
+int RunDaemon(const DaemonOptions& options) {
+  std::optional<Config> loaded;
+  Tokens tokens;
+  if (auto exit_code = LoadChecked(options, &loaded, &tokens)) return *exit_code;
+  const Config config = std::move(*loaded);
+  LogStartup(options, config);
+
+  auto store = OpenWindow(config);
+  if (!store.ok()) {
+    spdlog::error("{}", store.status().message());
+    return ExitCodeFor(store.status());
+  }
   WriterOptions wopts;
   wopts.commit_every = config.limits.commit_every;
   wopts.commit_batch = config.limits.commit_batch;
@@ -156,109 +247,44 @@ int RunDaemon(const DaemonOptions& options) {
   // first (in lockstep a due retrain runs before the sample is scored), then
   // the drift monitor and a drift retrain.
   writer.Subscribe([&runtimes](const CommittedBatch& batch) { runtimes.OnCommitted(batch); });
-  if (Status s = writer.Start(); !s.ok()) {
-    spdlog::error("cannot start the store writer: {}", s.message());
-    return kExitFailure;
-  }
-  for (std::size_t i = 0; i < config.feeds.size(); ++i) {
-    const FeedExtent e = writer.extent(static_cast<std::uint32_t>(i));
-    if (e.count > 0) {
-      spdlog::info("feed {}: {} samples stored, {} .. {}", config.feeds[i].id, e.count, FormatRfc3339(e.oldest),
-                   FormatRfc3339(e.newest));
-    }
-  }
-
-  {
-    std::vector<FeedExtent> extents;
-    for (std::size_t i = 0; i < config.feeds.size(); ++i) extents.push_back(writer.extent(static_cast<std::uint32_t>(i)));
-    if (Status s = scheduler.Start(extents); !s.ok()) {
-      spdlog::error("cannot start the retraining scheduler: {}", s.message());
-      scheduler.Stop();
-      writer.Stop();
-      return kExitFailure;
-    }
-  }
-  auto api_store = ApiStore::Open(config.storage.path, Layouts(config));
-  if (!api_store.ok()) {
-    spdlog::error("cannot open the store for the API: {}", api_store.status().message());
+  const auto fail = [&](const std::string& message) {
+    spdlog::error("{}", message);
     scheduler.Stop();
     writer.Stop();
     return kExitFailure;
-  }
-  spdlog::info("retraining: {} trainer thread(s){}", std::max(config.training.threads, 1),
-               config.training.lockstep ? ", lockstep (ingest waits for each due retrain)" : "");
+  };
+  if (Status s = writer.Start(); !s.ok()) return fail("cannot start the store writer: " + s.message());
+  if (Status s = StartRetraining(config, writer, scheduler); !s.ok()) return fail(s.message());
+  auto api_store = ApiStore::Open(config.storage.path, Layouts(config));
+  if (!api_store.ok()) return fail("cannot open the store for the API: " + api_store.status().message());
 
   asio::io_context io;
-  IngestServerOptions iopts;
-  iopts.endpoint = config.listen.ingest;
-  iopts.max_line = config.limits.max_line;
-  iopts.max_connections = config.limits.max_connections;
-  iopts.idle_timeout = config.limits.idle_timeout;
-  iopts.max_future_skew = config.limits.max_future_skew;
-  iopts.token = ingest_token;
-  iopts.max_outstanding = static_cast<std::size_t>(std::max(2 * config.limits.commit_batch, 1024));
-  IngestServer ingest(io, config, writer, iopts);
-
+  IngestServer ingest(io, config, writer, IngestOptionsFor(config, tokens.ingest));
   HttpServerOptions hopts;
   hopts.endpoint = config.listen.http;
-  ApiContext api{&config,    &writer,     &ingest,     &scheduler,      &runtimes,
-                 api_store->get(), read_token, admin_token, WallNow(), kVersion};
+  ApiContext api{&config,         &writer,     &ingest,     &scheduler, &runtimes,
+                 api_store->get(), tokens.read, tokens.admin, WallNow(), kVersion};
   HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
-
-  if (Status s = ingest.Listen(); !s.ok()) {
-    spdlog::error("{}", s.message());
-    scheduler.Stop();
-    writer.Stop();
-    return kExitFailure;
-  }
-  if (Status s = http.Listen(); !s.ok()) {
-    spdlog::error("{}", s.message());
-    scheduler.Stop();
-    writer.Stop();
-    return kExitFailure;
-  }
+  if (Status s = ingest.Listen(); !s.ok()) return fail(s.message());
+  if (Status s = http.Listen(); !s.ok()) return fail(s.message());
   ingest.StartAccepting();
   http.StartAccepting();
   spdlog::info("listening: ingest on {}:{}, HTTP on {}:{}", config.listen.ingest.host, ingest.port(),
                config.listen.http.host, http.port());
-
+  // Before anyone is told we are ready: a stop request must find its handler.
   asio::signal_set signals(io, SIGINT, SIGTERM);
-  signals.async_wait([&](boost::system::error_code ec, int signo) {
-    if (ec) return;
-    NotifyStopping();  // systemd: the stop has begun (no-op without NOTIFY_SOCKET)
-    spdlog::info("received {}; stopping: no new connections, finishing received lines", signo == SIGINT ? "SIGINT" : "SIGTERM");
-    // Cancel training first: in lockstep the writer may be waiting for a
-    // job, and the sessions for the writer.
-    scheduler.Stop();
-    http.Shutdown();
-    ingest.Shutdown([&io] { io.stop(); });
-  });
-
+  StopOnSignal(signals, io, scheduler, http, ingest);
   if (options.ready_file) {
-    if (Status s = WriteReadyFile(*options.ready_file, ingest.port(), http.port()); !s.ok()) {
-      spdlog::error("{}", s.message());
-      scheduler.Stop();
-      writer.Stop();
-      return kExitFailure;
-    }
+    if (Status s = WriteReadyFile(*options.ready_file, ingest.port(), http.port()); !s.ok()) return fail(s.message());
   }
   // systemd (Type=notify): both listeners are up; no-op without NOTIFY_SOCKET.
   NotifyReady(fmt::format("serving: ingest on {}:{}, HTTP on {}:{}", config.listen.ingest.host, ingest.port(),
                           config.listen.http.host, http.port()));
 
-  std::vector<std::thread> threads;
-  for (int i = 1; i < options.io_threads; ++i) threads.emplace_back([&io] { io.run(); });
-  io.run();
-  for (auto& t : threads) t.join();
-
+  RunIo(io, options.io_threads);
   scheduler.Stop();
   writer.Stop();
-  const WriterStats stats = writer.stats();
-  const IngestCounters& k = ingest.counters();
-  spdlog::info("writer: committed {} samples in {} transactions ({} failed commits, {} rows pruned)",
-               stats.samples_committed, stats.transactions, stats.failed_commits, stats.rows_pruned);
-  spdlog::info("ingest: {} lines on {} connections, {} accepted", k.lines.load(), k.connections_accepted.load(),
-               k.accepted.load());
+  LogTotals(writer, ingest);
   if (options.ready_file) {
     std::error_code ec;
     std::filesystem::remove(*options.ready_file, ec);

@@ -62,9 +62,10 @@ HttpResponse Health(const ApiContext& c) {
                    {"feeds", std::move(feeds)}});
 }
 
-HttpResponse Metrics(const ApiContext& c) {
-  const WallTime now = WallNow();
-  Exposition m;
+namespace {
+
+// The daemon itself and its ingest.
+void DaemonFamilies(const ApiContext& c, WallTime now, Exposition& m) {
   m.Family("lyapcast_build_info", "gauge", "The running lyapcastd version.");
   m.Sample("lyapcast_build_info", fmt::format("version=\"{}\"", Label(c.version)), 1);
   m.Family("lyapcast_uptime_seconds", "gauge", "Wall time since the daemon started.");
@@ -89,7 +90,10 @@ HttpResponse Metrics(const ApiContext& c) {
                static_cast<double>(k.rejected[r].load()));
     }
   }
+}
 
+// The store writer: queue, commits, pruning, commit latency.
+void WriterFamilies(const ApiContext& c, Exposition& m) {
   const WriterStats w = c.writer->stats();
   m.Family("lyapcast_writer_queue_samples", "gauge", "Samples queued for the store writer.");
   m.Sample("lyapcast_writer_queue_samples", "", static_cast<double>(c.writer->queued_samples()));
@@ -109,9 +113,10 @@ HttpResponse Metrics(const ApiContext& c) {
   m.Sample("lyapcast_commit_duration_seconds_bucket", "le=\"+Inf\"", static_cast<double>(w.commit_latency.count));
   m.Sample("lyapcast_commit_duration_seconds_sum", "", w.commit_latency.sum_seconds);
   m.Sample("lyapcast_commit_duration_seconds_count", "", static_cast<double>(w.commit_latency.count));
+}
 
-  std::vector<FeedView> views;
-  for (std::uint32_t i = 0; i < c.config->feeds.size(); ++i) views.push_back(ViewFeed(c, i, now));
+// One sample per feed per family: window, health, drift, ages, cadence, jobs.
+void FeedFamilies(const std::vector<FeedView>& views, Exposition& m) {
   const auto per_feed = [&](std::string_view name, std::string_view type, std::string_view help, auto value) {
     m.Family(name, type, help);
     for (const FeedView& v : views) m.Sample(name, FeedLabel(*v.config), value(v));
@@ -157,7 +162,18 @@ HttpResponse Metrics(const ApiContext& c) {
     m.Sample("lyapcast_retrain_duration_seconds_count", FeedLabel(*v.config),
              static_cast<double>(v.schedule.jobs_finished));
   }
+}
 
+}  // namespace
+
+HttpResponse Metrics(const ApiContext& c) {
+  const WallTime now = WallNow();
+  Exposition m;
+  DaemonFamilies(c, now, m);
+  WriterFamilies(c, m);
+  std::vector<FeedView> views;
+  for (std::uint32_t i = 0; i < c.config->feeds.size(); ++i) views.push_back(ViewFeed(c, i, now));
+  FeedFamilies(views, m);
   HttpResponse r;
   r.content_type = "text/plain; version=0.0.4; charset=utf-8";
   r.body = m.Take();
