@@ -178,11 +178,14 @@ void SampleWriter::Run(std::stop_token) {
   }
 }
 
-bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
-  std::vector<std::vector<WriteOutcome>> results(group.size());
-  std::vector<FeedSample> candidates;
-  std::vector<std::pair<size_t, size_t>> origin;  // candidate -> (submission, sample)
+struct SampleWriter::GroupWork {
+  std::vector<std::vector<WriteOutcome>> results;  // per submission, per sample
+  std::vector<FeedSample> candidates;              // samples to insert
+  std::vector<std::pair<size_t, size_t>> origin;   // candidate -> (submission, sample)
+};
 
+void SampleWriter::ScreenGroup(std::vector<Submission>& group, GroupWork& w) {
+  w.results.resize(group.size());
   // Too-old is decided against the newest time known so far, including
   // earlier samples of this group, so the verdict does not depend on how
   // samples happened to be grouped.
@@ -193,89 +196,93 @@ bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
   }
   for (size_t i = 0; i < group.size(); ++i) {
     std::vector<FeedSample>& samples = group[i].samples;
-    results[i].assign(samples.size(), WriteOutcome{});
+    w.results[i].assign(samples.size(), WriteOutcome{});
     for (size_t j = 0; j < samples.size(); ++j) {
       FeedSample& fs = samples[j];
       // Ingest validates feed and channel count; checking here keeps one bad
       // sample from failing the whole group's transaction.
       if (fs.feed >= static_cast<std::uint32_t>(feed_count_)) {
-        results[i][j] = {false, RejectReason::kUnknownFeed};
+        w.results[i][j] = {false, RejectReason::kUnknownFeed};
         continue;
       }
       const int channels = store_->channel_count(fs.feed);
       const std::uint64_t channel_bits = channels >= 64 ? ~std::uint64_t{0} : (std::uint64_t{1} << channels) - 1;
       if (fs.sample.values.size() != static_cast<size_t>(channels) || (fs.sample.missing_mask & ~channel_bits) != 0) {
-        results[i][j] = {false, RejectReason::kFieldCount};
+        w.results[i][j] = {false, RejectReason::kFieldCount};
         continue;
       }
       FeedExtent& e = known[fs.feed];
       if (e.count > 0 && fs.sample.t < e.newest - options_.retention) {
-        results[i][j] = {false, RejectReason::kTooOld};
+        w.results[i][j] = {false, RejectReason::kTooOld};
         continue;
       }
       if (e.count == 0 || fs.sample.t > e.newest) e.newest = fs.sample.t;
       e.count = std::max<std::int64_t>(e.count, 1);
       // Completions only receive outcomes, so the samples can move.
-      candidates.push_back(std::move(fs));
-      origin.emplace_back(i, j);
+      w.candidates.push_back(std::move(fs));
+      w.origin.emplace_back(i, j);
     }
   }
+}
 
-  bool committed = true;
-  CommittedBatch batch;
-  if (!candidates.empty()) {
-    std::vector<InsertOutcome> inserted;
-    const auto started = Clock::now();
-    const Status status = store_->InsertBatch(candidates, &inserted);
-    const double seconds = std::chrono::duration<double>(Clock::now() - started).count();
-    if (!status.ok()) {
-      committed = false;
-      // The whole group shares the failed transaction's fate: nothing of it
-      // is acknowledged, and the senders are told to retry later.
-      for (auto& r : results) std::fill(r.begin(), r.end(), WriteOutcome{false, RejectReason::kStorageUnavailable});
-      storage_available_.store(false, std::memory_order_relaxed);
-      std::lock_guard lock(mu_);
-      ++stats_.failed_commits;
-    } else {
-      storage_available_.store(true, std::memory_order_relaxed);
-      std::vector<FeedExtent> extents;
-      {
-        std::lock_guard lock(mu_);
-        extents = extents_;
-      }
-      for (size_t k = 0; k < candidates.size(); ++k) {
-        const auto [i, j] = origin[k];
-        switch (inserted[k]) {
-          case InsertOutcome::kInserted: {
-            results[i][j] = Accepted();
-            FeedExtent& e = extents[candidates[k].feed];
-            const DataTime t = candidates[k].sample.t;
-            if (e.count == 0) {
-              e.oldest = e.newest = t;
-            } else {
-              e.oldest = std::min(e.oldest, t);
-              e.newest = std::max(e.newest, t);
-            }
-            ++e.count;
-            batch.samples.push_back(std::move(candidates[k]));
-            break;
-          }
-          case InsertOutcome::kDuplicateSame:
-            results[i][j] = Accepted();
-            break;
-          case InsertOutcome::kDuplicateConflict:
-            results[i][j] = {false, RejectReason::kDuplicateTime};
-            break;
+bool SampleWriter::StoreCandidates(GroupWork& w, CommittedBatch* batch) {
+  std::vector<InsertOutcome> inserted;
+  const auto started = Clock::now();
+  const Status status = store_->InsertBatch(w.candidates, &inserted);
+  const double seconds = std::chrono::duration<double>(Clock::now() - started).count();
+  if (!status.ok()) {
+    // The whole group shares the failed transaction's fate: nothing of it
+    // is acknowledged, and the senders are told to retry later.
+    for (auto& r : w.results) std::fill(r.begin(), r.end(), WriteOutcome{false, RejectReason::kStorageUnavailable});
+    storage_available_.store(false, std::memory_order_relaxed);
+    std::lock_guard lock(mu_);
+    ++stats_.failed_commits;
+    return false;
+  }
+  storage_available_.store(true, std::memory_order_relaxed);
+  std::vector<FeedExtent> extents;
+  {
+    std::lock_guard lock(mu_);
+    extents = extents_;
+  }
+  for (size_t k = 0; k < w.candidates.size(); ++k) {
+    const auto [i, j] = w.origin[k];
+    switch (inserted[k]) {
+      case InsertOutcome::kInserted: {
+        w.results[i][j] = Accepted();
+        FeedExtent& e = extents[w.candidates[k].feed];
+        const DataTime t = w.candidates[k].sample.t;
+        if (e.count == 0) {
+          e.oldest = e.newest = t;
+        } else {
+          e.oldest = std::min(e.oldest, t);
+          e.newest = std::max(e.newest, t);
         }
+        ++e.count;
+        batch->samples.push_back(std::move(w.candidates[k]));
+        break;
       }
-      std::lock_guard lock(mu_);
-      extents_ = std::move(extents);
-      stats_.samples_committed += batch.samples.size();
-      ++stats_.transactions;
-      stats_.commit_latency.Record(seconds);
+      case InsertOutcome::kDuplicateSame:
+        w.results[i][j] = Accepted();
+        break;
+      case InsertOutcome::kDuplicateConflict:
+        w.results[i][j] = {false, RejectReason::kDuplicateTime};
+        break;
     }
   }
+  std::lock_guard lock(mu_);
+  extents_ = std::move(extents);
+  stats_.samples_committed += batch->samples.size();
+  ++stats_.transactions;
+  stats_.commit_latency.Record(seconds);
+  return true;
+}
 
+bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
+  GroupWork w;
+  ScreenGroup(group, w);
+  CommittedBatch batch;
+  const bool committed = w.candidates.empty() || StoreCandidates(w, &batch);
   // The subscribers see what is newly stored first, then the completions
   // run in submission order, only after the outcome is durable (or
   // definitely failed). Subscribers first, so an acknowledged sample has
@@ -286,7 +293,7 @@ bool SampleWriter::CommitGroup(std::vector<Submission>& group) {
     for (const auto& subscriber : subscribers_) subscriber(batch);
   }
   for (size_t i = 0; i < group.size(); ++i) {
-    if (group[i].done) group[i].done(std::move(results[i]));
+    if (group[i].done) group[i].done(std::move(w.results[i]));
   }
   return committed;
 }

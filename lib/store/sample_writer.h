@@ -120,6 +120,11 @@ class SampleWriter {
   void Run(std::stop_token stop);
   // Returns false when the commit failed (storage unavailable).
   bool CommitGroup(std::vector<Submission>& group);
+  // CommitGroup's two stages: per-sample checks that keep one bad sample
+  // from failing the transaction, then the transaction and its outcomes.
+  struct GroupWork;
+  void ScreenGroup(std::vector<Submission>& group, GroupWork& w);
+  bool StoreCandidates(GroupWork& w, CommittedBatch* batch);
   // One prune batch per feed that has rows below its cutoff; returns true
   // when some feed still has rows to prune after this step.
   bool PruneSome();

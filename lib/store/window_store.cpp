@@ -260,13 +260,15 @@ struct WindowStore::Statements {
   Stmt read_range;
 };
 
-Result<std::unique_ptr<WindowStore>> WindowStore::Open(const StoreOptions& options) {
-  const std::filesystem::path& path = options.path;
-  if (path.empty()) return Status::Invalid("storage path is empty");
-  std::unique_ptr<WindowStore> store(new WindowStore());
-  store->path_ = path;
-  store->read_only_ = options.read_only;
+namespace {
 
+// Open flags; for a writer also the store's folder. kNotFound for a
+// read-only reader without the file.
+Result<int> OpenFlags(const StoreOptions& options) {
+  const std::filesystem::path& path = options.path;
+  // FULLMUTEX (serialized) although one thread uses a connection at a time:
+  // raw_handle() lets tests and diagnostics set pragmas from another thread,
+  // and the uncontended mutex costs nothing measurable next to an fsync.
   int flags = SQLITE_OPEN_FULLMUTEX;
   if (options.read_only) {
     std::error_code ec;
@@ -275,64 +277,49 @@ Result<std::unique_ptr<WindowStore>> WindowStore::Open(const StoreOptions& optio
                                           "daemon writes)",
                                           path.string()));
     }
-    flags |= SQLITE_OPEN_READONLY;
-  } else {
-    if (path.has_parent_path()) {
-      std::error_code ec;
-      std::filesystem::create_directories(path.parent_path(), ec);
-      if (ec) {
-        return Status::Io(
-            fmt::format("cannot create the folder {} for the store: {}", path.parent_path().string(), ec.message()));
-      }
-    }
-    flags |= SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE;
+    return flags | SQLITE_OPEN_READONLY;
   }
-  // FULLMUTEX (serialized) although one thread uses a connection at a time:
-  // raw_handle() lets tests and diagnostics set pragmas from another thread,
-  // and the uncontended mutex costs nothing measurable next to an fsync.
-  const int rc = sqlite3_open_v2(path.c_str(), &store->db_, flags, nullptr);
-  if (rc != SQLITE_OK) {
-    Status s = sqlite::Error(store->db_, rc, fmt::format("opening the store {}", path.string()));
-    return Status(s.code() == StatusCode::kUnavailable ? s.code() : StatusCode::kIoError, s.message());
-  }
-  sqlite3* db = store->db_;
-  sqlite3_extended_result_codes(db, 1);
-  sqlite3_busy_timeout(db, options.busy_timeout_ms);
-
-  const auto opening = [&](const Status& s) {
-    return Status(s.code(), fmt::format("opening the store {}: {}", path.string(), s.message()));
-  };
-  if (!options.read_only) {
-    // journal_mode answers with the mode in effect; anything but "wal" (e.g.
-    // a file system without shared memory) would make readers block the
-    // writer, which the design relies on not happening.
-    auto mode = Stmt::Prepare(db, "PRAGMA journal_mode=WAL");
-    if (!mode.ok()) return opening(mode.status());
-    const int step = mode->Step();
-    if (step != SQLITE_ROW) return opening(sqlite::Error(db, step, "setting journal_mode=WAL"));
-    const std::string got = mode->ColumnText(0);
-    mode->Reset();
-    if (got != "wal") {
-      return Status::Io(fmt::format("the store {} cannot use write-ahead logging (journal_mode is '{}'); put it on "
-                                    "a local file system",
-                                    path.string(), got));
-    }
-    // FULL: a commit is on disk before ingest acknowledges it (docs/design.md "Storage").
-    if (Status s = sqlite::Exec(db, "PRAGMA synchronous=FULL", "setting synchronous=FULL"); !s.ok()) {
-      return opening(s);
+  if (path.has_parent_path()) {
+    std::error_code ec;
+    std::filesystem::create_directories(path.parent_path(), ec);
+    if (ec) {
+      return Status::Io(
+          fmt::format("cannot create the folder {} for the store: {}", path.parent_path().string(), ec.message()));
     }
   }
-  if (Status s = sqlite::Exec(db, "PRAGMA foreign_keys=ON", "enabling foreign keys"); !s.ok()) return opening(s);
+  return flags | SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE;
+}
 
-  auto version = Migrate(db, path, options.read_only);
-  if (!version.ok()) {
-    const Status s = version.status();
-    // A newer or foreign file is not an I/O problem; keep those messages as they are.
-    if (s.code() == StatusCode::kFailedPrecondition) return s;
-    return opening(s);
+Status Opening(const std::filesystem::path& path, const Status& s) {
+  return Status(s.code(), fmt::format("opening the store {}: {}", path.string(), s.message()));
+}
+
+// A writer's durability settings.
+Status SetWriterPragmas(sqlite3* db, const std::filesystem::path& path) {
+  // journal_mode answers with the mode in effect; anything but "wal" (e.g.
+  // a file system without shared memory) would make readers block the
+  // writer, which the design relies on not happening.
+  auto mode = Stmt::Prepare(db, "PRAGMA journal_mode=WAL");
+  if (!mode.ok()) return Opening(path, mode.status());
+  const int step = mode->Step();
+  if (step != SQLITE_ROW) return Opening(path, sqlite::Error(db, step, "setting journal_mode=WAL"));
+  const std::string got = mode->ColumnText(0);
+  mode->Reset();
+  if (got != "wal") {
+    return Status::Io(fmt::format("the store {} cannot use write-ahead logging (journal_mode is '{}'); put it on "
+                                  "a local file system",
+                                  path.string(), got));
   }
-  store->schema_version_ = *version;
+  // FULL: a commit is on disk before ingest acknowledges it (docs/design.md "Storage").
+  if (Status s = sqlite::Exec(db, "PRAGMA synchronous=FULL", "setting synchronous=FULL"); !s.ok()) {
+    return Opening(path, s);
+  }
+  return Status::Ok();
+}
 
+}  // namespace
+
+Status WindowStore::PrepareStatements() {
   auto stmts = std::make_unique<Statements>();
   const struct {
     Stmt* stmt;
@@ -363,11 +350,46 @@ Result<std::unique_ptr<WindowStore>> WindowStore::Open(const StoreOptions& optio
        "ORDER BY t_us LIMIT ?4"},
   };
   for (const auto& [stmt, sql] : kSql) {
-    auto prepared = Stmt::Prepare(db, sql);
-    if (!prepared.ok()) return opening(prepared.status());
+    auto prepared = Stmt::Prepare(db_, sql);
+    if (!prepared.ok()) return prepared.status();
     *stmt = std::move(prepared).value();
   }
-  store->stmts_ = std::move(stmts);
+  stmts_ = std::move(stmts);
+  return Status::Ok();
+}
+
+Result<std::unique_ptr<WindowStore>> WindowStore::Open(const StoreOptions& options) {
+  const std::filesystem::path& path = options.path;
+  if (path.empty()) return Status::Invalid("storage path is empty");
+  std::unique_ptr<WindowStore> store(new WindowStore());
+  store->path_ = path;
+  store->read_only_ = options.read_only;
+  auto flags = OpenFlags(options);
+  if (!flags.ok()) return flags.status();
+  const int rc = sqlite3_open_v2(path.c_str(), &store->db_, *flags, nullptr);
+  if (rc != SQLITE_OK) {
+    Status s = sqlite::Error(store->db_, rc, fmt::format("opening the store {}", path.string()));
+    return Status(s.code() == StatusCode::kUnavailable ? s.code() : StatusCode::kIoError, s.message());
+  }
+  sqlite3* db = store->db_;
+  sqlite3_extended_result_codes(db, 1);
+  sqlite3_busy_timeout(db, options.busy_timeout_ms);
+
+  const auto opening = [&](const Status& s) { return Opening(path, s); };
+  if (!options.read_only) {
+    if (Status s = SetWriterPragmas(db, path); !s.ok()) return s;
+  }
+  if (Status s = sqlite::Exec(db, "PRAGMA foreign_keys=ON", "enabling foreign keys"); !s.ok()) return opening(s);
+
+  auto version = Migrate(db, path, options.read_only);
+  if (!version.ok()) {
+    const Status s = version.status();
+    // A newer or foreign file is not an I/O problem; keep those messages as they are.
+    if (s.code() == StatusCode::kFailedPrecondition) return s;
+    return opening(s);
+  }
+  store->schema_version_ = *version;
+  if (Status s = store->PrepareStatements(); !s.ok()) return opening(s);
   return store;
 }
 

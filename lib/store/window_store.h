@@ -110,6 +110,7 @@ class WindowStore {
  private:
   WindowStore() = default;
   struct Statements;
+  [[nodiscard]] Status PrepareStatements();  // after the migration
   sqlite3* db_ = nullptr;  // owned; closed in the destructor
   std::unique_ptr<Statements> stmts_;
   std::vector<std::int64_t> feed_ids_;  // config index -> feeds.feed_id
