@@ -132,7 +132,7 @@ std::uint64_t FeedRuntime::drift_triggers() const {
 }
 
 Result<ServedForecast> FeedRuntime::ForecastFrom(const Sample& start, std::int64_t steps,
-                                                 std::optional<double> lambda_max_per_s) const {
+                                                 std::optional<double> lambda_max) const {
   ServedForecast out;
   out.model = scheduler_.active(index_);
   if (!out.model) return Status::Precondition(fmt::format("feed {} has no model yet", feed_.id));
@@ -143,7 +143,7 @@ Result<ServedForecast> FeedRuntime::ForecastFrom(const Sample& start, std::int64
   request.start = start.values;
   request.step = feed_.step;
   request.steps = steps;
-  request.lambda_max_per_s = lambda_max_per_s;
+  request.lambda_max = lambda_max;
   request.e0 = e0;
   request.tol = feed_.monitor.horizon_tol;
   auto made = MakeForecast(*out.model->model, request);

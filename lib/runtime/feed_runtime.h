@@ -73,7 +73,7 @@ class FeedRuntime {
   // published model. kFailedPrecondition when the feed has no model yet;
   // otherwise MakeForecast's errors.
   [[nodiscard]] Result<ServedForecast> ForecastFrom(const Sample& start, std::int64_t steps,
-                                                    std::optional<double> lambda_max_per_s) const;
+                                                    std::optional<double> lambda_max) const;
 
  private:
   struct State;

@@ -8,18 +8,18 @@
 
 namespace lyapcast {
 
-Horizon ForecastHorizon(const std::optional<double>& lambda_max_per_s, double e0, double tol) {
+Horizon ForecastHorizon(const std::optional<double>& lambda_max, double e0, double tol) {
   Horizon h;
   h.e0 = e0;
   h.tol = tol;
-  if (!lambda_max_per_s) {
+  if (!lambda_max) {
     h.reason = "no Lyapunov exponent estimate yet";
     return h;
   }
-  h.seconds = PredictabilityHorizon(*lambda_max_per_s, e0, tol, &h.reason);
+  h.seconds = PredictabilityHorizon(*lambda_max, e0, tol, &h.reason);
   if (h.seconds) {
     h.reason.clear();
-    h.lyapunov_times = *h.seconds * *lambda_max_per_s;
+    h.lyapunov_times = *h.seconds * *lambda_max;
   }
   return h;
 }
@@ -36,7 +36,7 @@ Result<Forecast> MakeForecast(const ForecastModel& model, const ForecastRequest&
   Forecast f;
   f.from = request.from;
   f.start = request.start;
-  f.horizon = ForecastHorizon(request.lambda_max_per_s, request.e0, request.tol);
+  f.horizon = ForecastHorizon(request.lambda_max, request.e0, request.tol);
   const Eigen::VectorXd start = Eigen::Map<const Eigen::VectorXd>(request.start.data(), channels);
   const FreeRun run = Rollout(model, start, request.steps);
   f.points.resize(static_cast<std::size_t>(request.steps));

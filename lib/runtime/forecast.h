@@ -30,7 +30,7 @@ struct ForecastRequest {
   // The horizon's inputs: the largest Lyapunov exponent per second of data
   // time (none: no estimate yet), the current normalized one-step error and
   // the tolerance the forecast error may grow to.
-  std::optional<double> lambda_max_per_s;
+  std::optional<double> lambda_max;
   double e0 = std::numeric_limits<double>::quiet_NaN();
   double tol = std::numeric_limits<double>::quiet_NaN();
 };
@@ -66,6 +66,6 @@ struct Forecast {
 
 // The horizon alone (what MakeForecast computes): "no Lyapunov exponent
 // estimate yet" without an exponent, else PredictabilityHorizon's answer.
-Horizon ForecastHorizon(const std::optional<double>& lambda_max_per_s, double e0, double tol);
+Horizon ForecastHorizon(const std::optional<double>& lambda_max, double e0, double tol);
 
 }  // namespace lyapcast

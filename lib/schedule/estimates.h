@@ -19,7 +19,7 @@
 namespace lyapcast {
 
 struct ExponentEstimate {
-  double per_second = 0;    // largest exponent per second of data time
+  double lambda_max = 0;    // largest exponent per second of data time
   std::string diagnostics;  // e.g. "qr, 20000 steps, converged to 0.004/s"
 };
 

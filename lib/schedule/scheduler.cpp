@@ -257,9 +257,9 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     in.lockstep = config_.training.lockstep;
     in.cancel = &cancel_;
     in.trigger = start.trigger_kind;
-    in.data_exponent = estimates.data ? std::optional<double>(estimates.data->per_second) : start.known.data;
+    in.data_exponent = estimates.data ? std::optional<double>(estimates.data->lambda_max) : start.known.data;
     in.dynamics_exponent =
-        estimates.dynamics ? std::optional<double>(estimates.dynamics->per_second) : start.known.dynamics;
+        estimates.dynamics ? std::optional<double>(estimates.dynamics->lambda_max) : start.known.dynamics;
     outcome = RunRetrain(*trainer.registry, in, [&progress](const FitProgress& p) { progress(p); });
   }
   const double seconds = progress.Elapsed();
@@ -355,11 +355,11 @@ void Scheduler::FinishJob(const JobStart& start, const JobEstimates& estimates,
     done = *j;
   }
   if (estimates.data) {
-    f.s.estimates.data = estimates.data->per_second;
+    f.s.estimates.data = estimates.data->lambda_max;
     f.s.data_diagnostics = estimates.data->diagnostics;
   }
   if (estimates.dynamics) {
-    f.s.estimates.dynamics = estimates.dynamics->per_second;
+    f.s.estimates.dynamics = estimates.dynamics->lambda_max;
     f.s.dynamics_diagnostics = estimates.dynamics->diagnostics;
   }
   bool retry_soon = false;

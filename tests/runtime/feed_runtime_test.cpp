@@ -244,7 +244,7 @@ TEST(FeedRuntime, ForecastsWithThePublishedModelAndTheMonitorsError) {
   request.start = start.values;
   request.step = config.feeds[0].step;
   request.steps = 50;
-  request.lambda_max_per_s = 0.9056;
+  request.lambda_max = 0.9056;
   request.e0 = rig.runtime().e0();
   request.tol = config.feeds[0].monitor.horizon_tol;
   auto direct = MakeForecast(*served->model->model, request);

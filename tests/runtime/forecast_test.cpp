@@ -37,7 +37,7 @@ ForecastRequest Request(std::int64_t steps) {
   r.start = {1.0, 2.0};
   r.step = kStep;
   r.steps = steps;
-  r.lambda_max_per_s = 0.5;
+  r.lambda_max = 0.5;
   r.e0 = 0.01;
   r.tol = 0.5;
   return r;
@@ -83,14 +83,14 @@ TEST(MakeForecast, HorizonAndBeyondFlags) {
 TEST(MakeForecast, NoHorizonGivesAReasonAndNoFlags) {
   const auto model = DriftModel();
   ForecastRequest r = Request(5);
-  r.lambda_max_per_s.reset();
+  r.lambda_max.reset();
   auto f = MakeForecast(*model, r);
   ASSERT_TRUE(f.ok());
   EXPECT_FALSE(f->horizon.seconds);
   EXPECT_EQ(f->horizon.reason, "no Lyapunov exponent estimate yet");
   for (const ForecastPoint& p : f->points) EXPECT_FALSE(p.beyond_horizon);
 
-  r.lambda_max_per_s = -0.1;  // errors do not grow: PredictabilityHorizon's reason
+  r.lambda_max = -0.1;  // errors do not grow: PredictabilityHorizon's reason
   f = MakeForecast(*model, r);
   ASSERT_TRUE(f.ok());
   std::string why;
