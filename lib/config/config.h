@@ -21,6 +21,7 @@
 #include <vector>
 
 #include "core/data_time.h"
+#include "core/identifiers.h"  // IsValidFeedId, IsValidChannelName: the grammars the parser checks
 #include "core/status.h"
 
 namespace lyapcast {
@@ -173,10 +174,6 @@ struct Config {
 
 // True for 127.0.0.0/8, ::1 and "localhost".
 bool IsLoopbackHost(std::string_view host);
-
-// Identifier grammars (docs/design.md "Identifiers and paths").
-bool IsValidFeedId(std::string_view id);
-bool IsValidChannelName(std::string_view name);
 
 // Multi-line human summary for the start-up banner and --check-config.
 std::string DescribeConfig(const Config& config);
