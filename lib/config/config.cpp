@@ -534,14 +534,6 @@ const char* RetrainStrategyName(RetrainStrategy s) {
   return "?";
 }
 
-const char* ActivationName(Activation a) {
-  switch (a) {
-    case Activation::kTanh: return "tanh";
-    case Activation::kSilu: return "silu";
-  }
-  return "unknown";
-}
-
 int FeedConfig::ChannelIndex(std::string_view name) const {
   for (size_t i = 0; i < channels.size(); ++i) {
     if (channels[i] == name) return static_cast<int>(i);

@@ -23,6 +23,7 @@
 #include "core/data_time.h"
 #include "core/identifiers.h"  // IsValidFeedId, IsValidChannelName: the grammars the parser checks
 #include "core/status.h"
+#include "learn/activation.h"
 
 namespace lyapcast {
 
@@ -87,9 +88,6 @@ struct DynamicsConfig {
   std::vector<std::pair<std::string, double>> constants;  // in file order
   std::vector<ConstraintConfig> constraints;
 };
-
-enum class Activation { kTanh, kSilu };
-const char* ActivationName(Activation a);  // "tanh", "silu"
 
 struct ModelConfig {
   std::vector<int> hidden = {64, 64};  // hidden layer widths
