@@ -519,14 +519,6 @@ std::string Endpoint::ToString() const {
   return fmt::format("{}:{}", host, port);
 }
 
-const char* ConstraintKindName(ConstraintKind kind) {
-  switch (kind) {
-    case ConstraintKind::kVelocity: return "velocity";
-    case ConstraintKind::kResidual: return "residual";
-  }
-  return "unknown";
-}
-
 const char* RetrainStrategyName(RetrainStrategy s) {
   switch (s) {
     case RetrainStrategy::kSupervised: return "supervised";

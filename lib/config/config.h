@@ -24,6 +24,7 @@
 #include "core/identifiers.h"  // IsValidFeedId, IsValidChannelName: the grammars the parser checks
 #include "core/status.h"
 #include "learn/activation.h"
+#include "learn/constraint_options.h"
 
 namespace lyapcast {
 
@@ -67,19 +68,9 @@ struct TrainingConfig {
   bool lockstep = false;  // ingest waits at each due retrain (replays, tests)
 };
 
-struct AnnealSchedule {
-  double mid = 0.5;     // midpoint of the sigmoid, as a fraction of the iteration budget
-  double width = 0.05;  // width of the sigmoid, as a fraction of the budget
-};
-
-enum class ConstraintKind { kVelocity, kResidual };
-const char* ConstraintKindName(ConstraintKind kind);  // "velocity", "residual"
-
-struct ConstraintConfig {
-  ConstraintKind kind = ConstraintKind::kVelocity;
-  double weight = 1.0;  // maximum weight reached by the anneal schedule
-  AnnealSchedule anneal;
-};
+// feeds[].dynamics.constraints[]: the trainer's own type, whose defaults are
+// the config's (learn/constraint_options.h).
+using ConstraintConfig = ConstraintOptions;
 
 struct DynamicsConfig {
   Micros time_unit = kSecond;  // one unit of model time in data time

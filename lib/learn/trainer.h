@@ -46,8 +46,8 @@
 #include <string>
 #include <vector>
 
-#include "config/config.h"
 #include "core/status.h"
+#include "learn/constraint_options.h"
 #include "learn/flow_map.h"
 #include "learn/pairs.h"
 #include "physics/dynamics.h"
@@ -68,7 +68,7 @@ struct FitOptions {
   // Known dynamics for constraint terms; the terms are skipped when null.
   // Fit uses it from its own thread only (Dynamics is not thread-safe).
   const Dynamics* dynamics = nullptr;
-  std::vector<ConstraintConfig> constraints;
+  std::vector<ConstraintOptions> constraints;  // one per kind (of a repeated kind the last counts)
   const std::atomic<bool>* cancel = nullptr;
 };
 
