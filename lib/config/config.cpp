@@ -526,6 +526,21 @@ const char* RetrainStrategyName(RetrainStrategy s) {
   return "?";
 }
 
+Result<DynamicsSpec> ToDynamicsSpec(const FeedConfig& feed) {
+  if (!feed.dynamics) {
+    return Status::Invalid(fmt::format("feeds '{}': no dynamics configured; give dynamics.equations to use known "
+                                       "dynamics",
+                                       feed.id));
+  }
+  DynamicsSpec spec;
+  spec.feed_id = feed.id;
+  spec.channels = feed.channels;
+  spec.equations = feed.dynamics->equations;
+  spec.constants = feed.dynamics->constants;
+  spec.time_unit = feed.dynamics->time_unit;
+  return spec;
+}
+
 int FeedConfig::ChannelIndex(std::string_view name) const {
   for (size_t i = 0; i < channels.size(); ++i) {
     if (channels[i] == name) return static_cast<int>(i);

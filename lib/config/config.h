@@ -25,6 +25,7 @@
 #include "core/status.h"
 #include "learn/activation.h"
 #include "learn/constraint_options.h"
+#include "physics/dynamics_spec.h"
 
 namespace lyapcast {
 
@@ -73,7 +74,7 @@ struct TrainingConfig {
 using ConstraintConfig = ConstraintOptions;
 
 struct DynamicsConfig {
-  Micros time_unit = kSecond;  // one unit of model time in data time
+  Micros time_unit = kDefaultModelTimeUnit;  // one unit of model time in data time (physics/dynamics_spec.h)
   // One expression per channel, in the feed's channel order: (channel, expr).
   std::vector<std::pair<std::string, std::string>> equations;
   std::vector<std::pair<std::string, double>> constants;  // in file order
@@ -160,6 +161,11 @@ struct Config {
 // Same for YAML text; `source` names it in messages and its parent folder
 // anchors relative paths (use "" to keep relative paths as they are).
 [[nodiscard]] Result<Config> ParseConfig(std::string_view yaml, const std::filesystem::path& source);
+
+// The feed's known dynamics as physics/dynamics_spec.h's DynamicsSpec (id,
+// channels, equations, constants, time unit), for Dynamics::Compile.
+// kInvalidArgument naming the feed when feed.dynamics is unset.
+[[nodiscard]] Result<DynamicsSpec> ToDynamicsSpec(const FeedConfig& feed);
 
 // True for 127.0.0.0/8, ::1 and "localhost".
 bool IsLoopbackHost(std::string_view host);

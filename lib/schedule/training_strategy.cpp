@@ -76,7 +76,9 @@ Result<Candidate> SupervisedStrategy::Train(const RetrainData& data, const Train
   FitOptions o = SupervisedFitOptions(feed.retrain, context);
   std::optional<Dynamics> dynamics;
   if (feed.dynamics && !feed.dynamics->constraints.empty()) {
-    auto d = Dynamics::Compile(feed);
+    auto spec = ToDynamicsSpec(feed);
+    if (!spec.ok()) return spec.status();
+    auto d = Dynamics::Compile(*spec);
     if (!d.ok()) return d.status();
     dynamics.emplace(std::move(d).value());
     o.dynamics = &*dynamics;

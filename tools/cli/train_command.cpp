@@ -46,7 +46,9 @@ int RunTrain(const TrainArgs& a) {
   }
   std::optional<Dynamics> dynamics;
   if (feed.dynamics && !a.no_constraints) {
-    auto d = Dynamics::Compile(feed);
+    auto spec = ToDynamicsSpec(feed);
+    if (!spec.ok()) return PrintError(kCmd, spec.status().message()), kExitUsage;
+    auto d = Dynamics::Compile(*spec);
     if (!d.ok()) return PrintError(kCmd, d.status().message()), kExitUsage;
     dynamics.emplace(std::move(d).value());
   }
