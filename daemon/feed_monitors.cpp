@@ -11,7 +11,7 @@
 namespace lyapcast {
 
 struct FeedMonitors::Feed {
-  Feed(const FeedConfig& fc, std::uint32_t i) : config(&fc), index(i), monitor(fc) {}
+  Feed(const FeedConfig& fc, std::uint32_t i) : config(&fc), index(i), monitor(ToDriftMonitorOptions(fc)) {}
   const FeedConfig* config;
   std::uint32_t index;
   mutable std::mutex mu;

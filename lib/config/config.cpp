@@ -541,6 +541,15 @@ Result<DynamicsSpec> ToDynamicsSpec(const FeedConfig& feed) {
   return spec;
 }
 
+DriftMonitorOptions ToDriftMonitorOptions(const FeedConfig& feed) {
+  DriftMonitorOptions o;
+  o.channels = static_cast<int>(feed.channels.size());
+  o.step = feed.step;
+  o.change_threshold = feed.monitor.change_threshold;
+  o.change_drift = feed.monitor.change_drift;
+  return o;
+}
+
 int FeedConfig::ChannelIndex(std::string_view name) const {
   for (size_t i = 0; i < channels.size(); ++i) {
     if (channels[i] == name) return static_cast<int>(i);

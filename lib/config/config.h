@@ -25,6 +25,8 @@
 #include "core/status.h"
 #include "learn/activation.h"
 #include "learn/constraint_options.h"
+#include "monitor/drift_monitor_options.h"
+#include "monitor/health_levels.h"
 #include "physics/dynamics_spec.h"
 
 namespace lyapcast {
@@ -110,21 +112,15 @@ struct RetrainConfig {
 };
 
 struct MonitorConfig {
-  double horizon_tol = 0.5;        // normalized error defining the predictability horizon
-  double change_threshold = 15.0;  // change-test alarm threshold, in in-control standard deviations
-  double change_drift = 0.5;       // change-test drift allowance per sample, same units
+  double horizon_tol = 0.5;  // normalized error defining the predictability horizon
+  // The drift monitor's change test (monitor/drift_monitor_options.h owns the defaults).
+  double change_threshold = DriftMonitorOptions{}.change_threshold;  // alarm threshold, in-control std devs
+  double change_drift = DriftMonitorOptions{}.change_drift;          // drift allowance per observation, same units
 };
 
-// Alert / alarm levels of the health checks (monitor/health.h).
-struct HealthConfig {
-  double drift_alert = 2.0;
-  double drift_alarm = 5.0;
-  Micros data_age_alert = 30 * kSecond;
-  Micros data_age_alarm = 5 * 60 * kSecond;
-  // Unset: derived from the retrain cadence (ModelAgeInForce in monitor/health.h).
-  std::optional<double> model_age_alert_lyapunov;
-  std::optional<double> model_age_alarm_lyapunov;
-};
+// Alert / alarm levels of the health checks: the monitor's own type, whose
+// defaults are the config's (monitor/health_levels.h).
+using HealthConfig = HealthLevels;
 
 struct FeedConfig {
   std::string id;                     // [a-z0-9][a-z0-9_-]{0,63}; required
@@ -166,6 +162,10 @@ struct Config {
 // channels, equations, constants, time unit), for Dynamics::Compile.
 // kInvalidArgument naming the feed when feed.dynamics is unset.
 [[nodiscard]] Result<DynamicsSpec> ToDynamicsSpec(const FeedConfig& feed);
+
+// The feed's drift monitor options: channel count, step and feed.monitor's
+// change test (monitor/drift_monitor_options.h).
+DriftMonitorOptions ToDriftMonitorOptions(const FeedConfig& feed);
 
 // True for 127.0.0.0/8, ::1 and "localhost".
 bool IsLoopbackHost(std::string_view host);
