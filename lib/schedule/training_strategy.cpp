@@ -54,7 +54,8 @@ Result<FlowMap<float>> StartingModel(const RetrainData& data, const TrainingCont
     return model;
   }
   if (!data.normalization) return Status::Invalid(data.normalization_error);
-  auto created = FlowMap<float>::Create(feed.model, static_cast<int>(feed.channels.size()), data.dt);
+  auto created = FlowMap<float>::Create(static_cast<int>(feed.channels.size()), feed.model.hidden,
+                                        feed.model.activation, data.dt);
   if (!created.ok()) return created.status();
   FlowMap<float> model = std::move(created).value();
   const Normalization& n = *data.normalization;

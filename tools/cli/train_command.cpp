@@ -70,7 +70,7 @@ int RunTrain(const TrainArgs& a) {
                static_cast<long long>(set.skipped_gaps));
   auto norm = ComputeNormalization(grid, set.validation_begin, dt, topt.max_gap);
   if (!norm.ok()) return PrintError(kCmd, norm.status().message()), kExitUsage;
-  auto created = FlowMap<float>::Create(feed.model, channels, dt);
+  auto created = FlowMap<float>::Create(channels, feed.model.hidden, feed.model.activation, dt);
   if (!created.ok()) return PrintError(kCmd, created.status().message()), kExitUsage;
   FlowMap<float> model = std::move(created).value();
   if (Status s = model.SetNormalization(norm->mean.cast<float>(), norm->stddev.cast<float>(),
