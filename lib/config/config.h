@@ -25,9 +25,12 @@
 #include "core/status.h"
 #include "learn/activation.h"
 #include "learn/constraint_options.h"
+#include "learn/fit_options.h"
+#include "learn/trajectory_options.h"
 #include "monitor/drift_monitor_options.h"
 #include "monitor/health_levels.h"
 #include "physics/dynamics_spec.h"
+#include "store/writer_options.h"
 
 namespace lyapcast {
 
@@ -49,8 +52,10 @@ struct LimitsConfig {
   std::uint64_t max_line = 64 * 1024;           // bytes per ingest line, excluding the newline
   int max_connections = 256;                    // concurrent ingest connections
   Micros idle_timeout = 5 * 60 * kSecond;  // close ingest connections silent this long
-  Micros commit_every{5'000};                  // group commit after this long ...
-  int commit_batch = 4096;                      // ... or this many samples, whichever first
+  // Group commit after this long ... or this many samples, whichever first
+  // (the writer's defaults, store/writer_options.h).
+  Micros commit_every = WriterOptions{}.commit_every;
+  int commit_batch = WriterOptions{}.commit_batch;
   Micros max_future_skew = 10 * kSecond;  // samples newer than wall time + this: future-time
 };
 
