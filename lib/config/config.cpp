@@ -11,6 +11,7 @@
 #include <algorithm>
 
 #include "config/yaml_reader.h"
+#include "core/sample.h"  // kMaxChannels
 
 namespace lyapcast {
 namespace {
@@ -24,7 +25,6 @@ using config_internal::RealRange;
 using config_internal::Source;
 using config_internal::Value;
 
-constexpr int kMaxChannels = 64;
 constexpr std::uint64_t kMaxLineLimit = 1ULL << 30;
 
 const char* const kEndpointAllowed =
