@@ -1,11 +1,14 @@
 // lyapcast configuration: the YAML file parsed into validated structs.
 //
 // Every key has a documented default (the member initializers below and
-// docs/configuration.md "Keys" say the same). LoadConfig() rejects unknown keys,
-// duplicate keys, wrong types, ids outside the grammar, duplicate feed or
-// channel ids, non-positive steps, unparsable durations and sizes, and
-// listening beyond loopback without tokens (unless explicitly allowed). Each
-// error names the file, line, key path and what is allowed, e.g.
+// docs/configuration.md "Keys" say the same). A default that a library's own
+// options type also needs is written there once and referred to here (e.g.
+// FitOptions{}.iterations); some structs are such types (HealthConfig).
+// LoadConfig() rejects unknown keys, duplicate keys, wrong types, ids outside
+// the grammar, duplicate feed or channel ids, non-positive steps, unparsable
+// durations and sizes, and listening beyond loopback without tokens (unless
+// explicitly allowed). Each error names the file, line, key path and what is
+// allowed, e.g.
 //   config/demo.yaml:14: feeds[0].step: must be a positive duration such as
 //   500ms or 2s; got '-1s'
 // Relative paths are resolved against the config file's folder.
@@ -61,7 +64,7 @@ struct LimitsConfig {
 
 struct StorageConfig {
   std::filesystem::path path = "var/lyapcast.db";  // resolved against the config folder
-  Micros retention = 6 * 3600 * kSecond;  // data time kept per feed
+  Micros retention = WriterOptions{}.retention;  // data time kept per feed (store/writer_options.h)
   int keep_models = 200;                           // retired/rejected versions kept per feed
 };
 
@@ -91,8 +94,10 @@ struct DynamicsConfig {
 struct ModelConfig {
   std::vector<int> hidden = {64, 64};  // hidden layer widths
   Activation activation = Activation::kTanh;
-  int rollout = 4;  // unrolled steps trained on contiguous data
-  int max_gap = 8;  // longest composition G^k trained across gaps
+  // Unrolled steps trained on contiguous data; longest composition G^k trained
+  // across gaps (learn/trajectory_options.h owns the defaults).
+  int rollout = TrajectoryOptions{}.rollout;
+  int max_gap = TrajectoryOptions{}.max_gap;
 };
 
 // How a retraining job fits its candidate (schedule/training_strategy.h).
@@ -106,12 +111,13 @@ struct RetrainConfig {
   Micros max_interval = 3600 * kSecond;
   int min_pairs = 500;       // cold start once the window holds this many pairs
   double replay = 0.3;       // fraction of older window data mixed into a chunk
-  double validation = 0.2;   // newest fraction held out for validation
-  int iterations = 2000;
-  int batch = 256;
-  double learning_rate = 1e-3;
-  double weight_decay = 0.0;
-  double clip = 1.0;         // global gradient-norm clip
+  double validation = TrajectoryOptions{}.validation;  // newest fraction held out for validation
+  // The trainer's (learn/fit_options.h owns the defaults).
+  int iterations = FitOptions{}.iterations;
+  int batch = FitOptions{}.batch;
+  double learning_rate = FitOptions{}.learning_rate;
+  double weight_decay = FitOptions{}.weight_decay;
+  double clip = FitOptions{}.clip;  // global gradient-norm clip
   Micros time_budget = 60 * kSecond;  // wall time per retrain (ignored in lockstep)
   double promote_tolerance = 0.05;
 };
