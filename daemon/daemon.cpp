@@ -67,7 +67,9 @@ std::vector<FeedLayout> Layouts(const Config& config) {
 Status CompileAllDynamics(const Config& config) {
   for (const FeedConfig& feed : config.feeds) {
     if (!feed.dynamics) continue;
-    auto compiled = Dynamics::Compile(feed);
+    auto spec = ToDynamicsSpec(feed);
+    if (!spec.ok()) return Status::Invalid(config.source.string() + ": " + spec.status().message());
+    auto compiled = Dynamics::Compile(*spec);
     if (!compiled.ok()) return Status::Invalid(config.source.string() + ": " + compiled.status().message());
   }
   return Status::Ok();

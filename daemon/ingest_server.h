@@ -26,6 +26,7 @@
 #include "core/reject_reason.h"
 #include "core/status.h"
 #include "ingest/ingest_counters.h"
+#include "ingest/line_session.h"  // LineSessionOptions: the backpressure defaults
 
 namespace boost::asio {
 class io_context;
@@ -37,13 +38,15 @@ class SampleWriter;
 
 struct IngestServerOptions {
   Endpoint endpoint;
-  std::size_t max_line = 64 * 1024;
-  int max_connections = 256;
-  Micros idle_timeout = 5 * 60 * kSecond;
-  Micros max_future_skew = 10 * kSecond;
-  std::optional<std::string> token;        // required `auth <token>` first line when set
-  std::size_t max_outstanding = 16384;     // samples per connection awaiting commit
-  std::size_t max_pending_output = 1 << 20;  // reply bytes per connection not yet sent
+  // The config's limits (config/config.h) and the session's backpressure
+  // bounds (ingest/line_session.h) unless the daemon sets them.
+  std::size_t max_line = LimitsConfig{}.max_line;
+  int max_connections = LimitsConfig{}.max_connections;
+  Micros idle_timeout = LimitsConfig{}.idle_timeout;
+  Micros max_future_skew = LimitsConfig{}.max_future_skew;
+  std::optional<std::string> token;  // required `auth <token>` first line when set
+  std::size_t max_outstanding = LineSessionOptions{}.max_outstanding;        // samples awaiting commit
+  std::size_t max_pending_output = LineSessionOptions{}.max_pending_output;  // reply bytes not yet sent
   Micros shutdown_grace = 10 * kSecond;  // then remaining sessions are closed
 };
 

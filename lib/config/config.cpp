@@ -11,6 +11,7 @@
 #include <algorithm>
 
 #include "config/yaml_reader.h"
+#include "core/sample.h"  // kMaxChannels
 
 namespace lyapcast {
 namespace {
@@ -24,7 +25,6 @@ using config_internal::RealRange;
 using config_internal::Source;
 using config_internal::Value;
 
-constexpr int kMaxChannels = 64;
 constexpr std::uint64_t kMaxLineLimit = 1ULL << 30;
 
 const char* const kEndpointAllowed =
@@ -519,14 +519,6 @@ std::string Endpoint::ToString() const {
   return fmt::format("{}:{}", host, port);
 }
 
-const char* ConstraintKindName(ConstraintKind kind) {
-  switch (kind) {
-    case ConstraintKind::kVelocity: return "velocity";
-    case ConstraintKind::kResidual: return "residual";
-  }
-  return "unknown";
-}
-
 const char* RetrainStrategyName(RetrainStrategy s) {
   switch (s) {
     case RetrainStrategy::kSupervised: return "supervised";
@@ -534,12 +526,28 @@ const char* RetrainStrategyName(RetrainStrategy s) {
   return "?";
 }
 
-const char* ActivationName(Activation a) {
-  switch (a) {
-    case Activation::kTanh: return "tanh";
-    case Activation::kSilu: return "silu";
+Result<DynamicsSpec> ToDynamicsSpec(const FeedConfig& feed) {
+  if (!feed.dynamics) {
+    return Status::Invalid(fmt::format("feeds '{}': no dynamics configured; give dynamics.equations to use known "
+                                       "dynamics",
+                                       feed.id));
   }
-  return "unknown";
+  DynamicsSpec spec;
+  spec.feed_id = feed.id;
+  spec.channels = feed.channels;
+  spec.equations = feed.dynamics->equations;
+  spec.constants = feed.dynamics->constants;
+  spec.time_unit = feed.dynamics->time_unit;
+  return spec;
+}
+
+DriftMonitorOptions ToDriftMonitorOptions(const FeedConfig& feed) {
+  DriftMonitorOptions o;
+  o.channels = static_cast<int>(feed.channels.size());
+  o.step = feed.step;
+  o.change_threshold = feed.monitor.change_threshold;
+  o.change_drift = feed.monitor.change_drift;
+  return o;
 }
 
 int FeedConfig::ChannelIndex(std::string_view name) const {
@@ -594,26 +602,6 @@ bool IsLoopbackHost(std::string_view host) {
     return IN6_IS_ADDR_V4MAPPED(&v6) && v6.s6_addr[12] == 127;
   }
   return false;
-}
-
-bool IsValidFeedId(std::string_view id) {
-  if (id.empty() || id.size() > 64) return false;
-  const auto lower_or_digit = [](char c) { return (c >= 'a' && c <= 'z') || (c >= '0' && c <= '9'); };
-  if (!lower_or_digit(id.front())) return false;
-  for (const char c : id.substr(1)) {
-    if (!lower_or_digit(c) && c != '_' && c != '-') return false;
-  }
-  return true;
-}
-
-bool IsValidChannelName(std::string_view name) {
-  if (name.empty() || name.size() > 64 || name == "t") return false;
-  const auto alpha = [](char c) { return (c >= 'a' && c <= 'z') || (c >= 'A' && c <= 'Z') || c == '_'; };
-  if (!alpha(name.front())) return false;
-  for (const char c : name.substr(1)) {
-    if (!alpha(c) && !(c >= '0' && c <= '9')) return false;
-  }
-  return true;
 }
 
 std::string DescribeConfig(const Config& c) {

@@ -1,11 +1,14 @@
 // lyapcast configuration: the YAML file parsed into validated structs.
 //
 // Every key has a documented default (the member initializers below and
-// docs/configuration.md "Keys" say the same). LoadConfig() rejects unknown keys,
-// duplicate keys, wrong types, ids outside the grammar, duplicate feed or
-// channel ids, non-positive steps, unparsable durations and sizes, and
-// listening beyond loopback without tokens (unless explicitly allowed). Each
-// error names the file, line, key path and what is allowed, e.g.
+// docs/configuration.md "Keys" say the same). A default that a library's own
+// options type also needs is written there once and referred to here (e.g.
+// FitOptions{}.iterations); some structs are such types (HealthConfig).
+// LoadConfig() rejects unknown keys, duplicate keys, wrong types, ids outside
+// the grammar, duplicate feed or channel ids, non-positive steps, unparsable
+// durations and sizes, and listening beyond loopback without tokens (unless
+// explicitly allowed). Each error names the file, line, key path and what is
+// allowed, e.g.
 //   config/demo.yaml:14: feeds[0].step: must be a positive duration such as
 //   500ms or 2s; got '-1s'
 // Relative paths are resolved against the config file's folder.
@@ -21,7 +24,16 @@
 #include <vector>
 
 #include "core/data_time.h"
+#include "core/identifiers.h"  // IsValidFeedId, IsValidChannelName: the grammars the parser checks
 #include "core/status.h"
+#include "learn/activation.h"
+#include "learn/constraint_options.h"
+#include "learn/fit_options.h"
+#include "learn/trajectory_options.h"
+#include "monitor/drift_monitor_options.h"
+#include "monitor/health_levels.h"
+#include "physics/dynamics_spec.h"
+#include "store/writer_options.h"
 
 namespace lyapcast {
 
@@ -43,14 +55,16 @@ struct LimitsConfig {
   std::uint64_t max_line = 64 * 1024;           // bytes per ingest line, excluding the newline
   int max_connections = 256;                    // concurrent ingest connections
   Micros idle_timeout = 5 * 60 * kSecond;  // close ingest connections silent this long
-  Micros commit_every{5'000};                  // group commit after this long ...
-  int commit_batch = 4096;                      // ... or this many samples, whichever first
+  // Group commit after this long ... or this many samples, whichever first
+  // (the writer's defaults, store/writer_options.h).
+  Micros commit_every = WriterOptions{}.commit_every;
+  int commit_batch = WriterOptions{}.commit_batch;
   Micros max_future_skew = 10 * kSecond;  // samples newer than wall time + this: future-time
 };
 
 struct StorageConfig {
   std::filesystem::path path = "var/lyapcast.db";  // resolved against the config folder
-  Micros retention = 6 * 3600 * kSecond;  // data time kept per feed
+  Micros retention = WriterOptions{}.retention;  // data time kept per feed (store/writer_options.h)
   int keep_models = 200;                           // retired/rejected versions kept per feed
 };
 
@@ -65,36 +79,25 @@ struct TrainingConfig {
   bool lockstep = false;  // ingest waits at each due retrain (replays, tests)
 };
 
-struct AnnealSchedule {
-  double mid = 0.5;     // midpoint of the sigmoid, as a fraction of the iteration budget
-  double width = 0.05;  // width of the sigmoid, as a fraction of the budget
-};
-
-enum class ConstraintKind { kVelocity, kResidual };
-const char* ConstraintKindName(ConstraintKind kind);  // "velocity", "residual"
-
-struct ConstraintConfig {
-  ConstraintKind kind = ConstraintKind::kVelocity;
-  double weight = 1.0;  // maximum weight reached by the anneal schedule
-  AnnealSchedule anneal;
-};
+// feeds[].dynamics.constraints[]: the trainer's own type, whose defaults are
+// the config's (learn/constraint_options.h).
+using ConstraintConfig = ConstraintOptions;
 
 struct DynamicsConfig {
-  Micros time_unit = kSecond;  // one unit of model time in data time
+  Micros time_unit = kDefaultModelTimeUnit;  // one unit of model time in data time (physics/dynamics_spec.h)
   // One expression per channel, in the feed's channel order: (channel, expr).
   std::vector<std::pair<std::string, std::string>> equations;
   std::vector<std::pair<std::string, double>> constants;  // in file order
   std::vector<ConstraintConfig> constraints;
 };
 
-enum class Activation { kTanh, kSilu };
-const char* ActivationName(Activation a);  // "tanh", "silu"
-
 struct ModelConfig {
   std::vector<int> hidden = {64, 64};  // hidden layer widths
   Activation activation = Activation::kTanh;
-  int rollout = 4;  // unrolled steps trained on contiguous data
-  int max_gap = 8;  // longest composition G^k trained across gaps
+  // Unrolled steps trained on contiguous data; longest composition G^k trained
+  // across gaps (learn/trajectory_options.h owns the defaults).
+  int rollout = TrajectoryOptions{}.rollout;
+  int max_gap = TrajectoryOptions{}.max_gap;
 };
 
 // How a retraining job fits its candidate (schedule/training_strategy.h).
@@ -108,32 +111,27 @@ struct RetrainConfig {
   Micros max_interval = 3600 * kSecond;
   int min_pairs = 500;       // cold start once the window holds this many pairs
   double replay = 0.3;       // fraction of older window data mixed into a chunk
-  double validation = 0.2;   // newest fraction held out for validation
-  int iterations = 2000;
-  int batch = 256;
-  double learning_rate = 1e-3;
-  double weight_decay = 0.0;
-  double clip = 1.0;         // global gradient-norm clip
+  double validation = TrajectoryOptions{}.validation;  // newest fraction held out for validation
+  // The trainer's (learn/fit_options.h owns the defaults).
+  int iterations = FitOptions{}.iterations;
+  int batch = FitOptions{}.batch;
+  double learning_rate = FitOptions{}.learning_rate;
+  double weight_decay = FitOptions{}.weight_decay;
+  double clip = FitOptions{}.clip;  // global gradient-norm clip
   Micros time_budget = 60 * kSecond;  // wall time per retrain (ignored in lockstep)
   double promote_tolerance = 0.05;
 };
 
 struct MonitorConfig {
-  double horizon_tol = 0.5;        // normalized error defining the predictability horizon
-  double change_threshold = 15.0;  // change-test alarm threshold, in in-control standard deviations
-  double change_drift = 0.5;       // change-test drift allowance per sample, same units
+  double horizon_tol = 0.5;  // normalized error defining the predictability horizon
+  // The drift monitor's change test (monitor/drift_monitor_options.h owns the defaults).
+  double change_threshold = DriftMonitorOptions{}.change_threshold;  // alarm threshold, in-control std devs
+  double change_drift = DriftMonitorOptions{}.change_drift;          // drift allowance per observation, same units
 };
 
-// Alert / alarm levels of the health checks (monitor/health.h).
-struct HealthConfig {
-  double drift_alert = 2.0;
-  double drift_alarm = 5.0;
-  Micros data_age_alert = 30 * kSecond;
-  Micros data_age_alarm = 5 * 60 * kSecond;
-  // Unset: derived from the retrain cadence (ModelAgeInForce in monitor/health.h).
-  std::optional<double> model_age_alert_lyapunov;
-  std::optional<double> model_age_alarm_lyapunov;
-};
+// Alert / alarm levels of the health checks: the monitor's own type, whose
+// defaults are the config's (monitor/health_levels.h).
+using HealthConfig = HealthLevels;
 
 struct FeedConfig {
   std::string id;                     // [a-z0-9][a-z0-9_-]{0,63}; required
@@ -171,12 +169,17 @@ struct Config {
 // anchors relative paths (use "" to keep relative paths as they are).
 [[nodiscard]] Result<Config> ParseConfig(std::string_view yaml, const std::filesystem::path& source);
 
+// The feed's known dynamics as physics/dynamics_spec.h's DynamicsSpec (id,
+// channels, equations, constants, time unit), for Dynamics::Compile.
+// kInvalidArgument naming the feed when feed.dynamics is unset.
+[[nodiscard]] Result<DynamicsSpec> ToDynamicsSpec(const FeedConfig& feed);
+
+// The feed's drift monitor options: channel count, step and feed.monitor's
+// change test (monitor/drift_monitor_options.h).
+DriftMonitorOptions ToDriftMonitorOptions(const FeedConfig& feed);
+
 // True for 127.0.0.0/8, ::1 and "localhost".
 bool IsLoopbackHost(std::string_view host);
-
-// Identifier grammars (docs/design.md "Identifiers and paths").
-bool IsValidFeedId(std::string_view id);
-bool IsValidChannelName(std::string_view name);
 
 // Multi-line human summary for the start-up banner and --check-config.
 std::string DescribeConfig(const Config& config);

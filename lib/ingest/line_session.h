@@ -49,8 +49,10 @@
 namespace lyapcast {
 
 struct LineSessionOptions {
-  std::size_t max_line = 64 * 1024;               // bytes, without the line ending
-  Micros max_future_skew = 10 * kSecond;  // for the parser's future-time check
+  // Bytes, without the line ending, and the parser's future-time allowance;
+  // the defaults are the config's limits (config/config.h).
+  std::size_t max_line = LimitsConfig{}.max_line;
+  Micros max_future_skew = LimitsConfig{}.max_future_skew;
   std::optional<std::string> token;               // required `auth <token>` first line when set
   std::size_t max_outstanding = 16384;            // samples awaiting their outcome before input pauses
   std::size_t max_pending_output = 1 << 20;       // unsent reply bytes before input pauses

@@ -56,11 +56,6 @@ Result<FlowMap<T>> FlowMap<T>::Create(int channels, const std::vector<int>& hidd
 }
 
 template <typename T>
-Result<FlowMap<T>> FlowMap<T>::Create(const ModelConfig& config, int channels, double dt) {
-  return Create(channels, config.hidden, config.activation, dt);
-}
-
-template <typename T>
 std::vector<int> FlowMap<T>::hidden() const {
   const auto& sizes = net_.sizes();
   return {sizes.begin() + 1, sizes.end() - 1};

@@ -21,7 +21,6 @@
 #include <cstdint>
 #include <vector>
 
-#include "config/config.h"
 #include "core/status.h"
 #include "learn/mlp.h"
 
@@ -64,7 +63,6 @@ class FlowMap {
   // and > 0. The model starts with zero weights, m = 0, s = S = 1, mu = 0.
   [[nodiscard]] static Result<FlowMap> Create(int channels, const std::vector<int>& hidden, Activation activation,
                                               double dt);
-  [[nodiscard]] static Result<FlowMap> Create(const ModelConfig& config, int channels, double dt);
 
   FlowMap() = default;  // empty; only assignment is meaningful
 

@@ -34,8 +34,8 @@
 #include <cstdint>
 #include <vector>
 
-#include "config/config.h"
 #include "core/status.h"
+#include "learn/activation.h"
 
 namespace lyapcast {
 

@@ -12,6 +12,8 @@
 #include <cstring>
 #include <set>
 
+#include "core/identifiers.h"
+
 namespace lyapcast {
 
 namespace {

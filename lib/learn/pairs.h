@@ -30,6 +30,7 @@
 
 #include "core/data_time.h"
 #include "core/sample.h"
+#include "learn/trajectory_options.h"
 
 namespace lyapcast {
 
@@ -59,11 +60,6 @@ struct GridSeries {
 // them) and options.step > 0. The grid starts at the first sample's time.
 GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const GridOptions& options);
 
-struct TrajectoryOptions {
-  int rollout = 4;          // >= 1
-  int max_gap = 8;          // >= 1
-  double validation = 0.2;  // newest fraction of the grid's time span, in [0, 1)
-};
 
 // Unroll from grid point `start` for `horizon` steps.
 struct Trajectory {

@@ -18,7 +18,7 @@ using Clock = std::chrono::steady_clock;
 
 double Sigmoid(double x) { return 1.0 / (1.0 + std::exp(-x)); }
 
-double AnnealWeight(const ConstraintConfig& c, int iteration, int iterations) {
+double AnnealWeight(const ConstraintOptions& c, int iteration, int iterations) {
   const double progress = static_cast<double>(iteration) / std::max(iterations, 1);
   return c.weight * Sigmoid((progress - c.anneal.mid) / std::max(c.anneal.width, 1e-9));
 }
@@ -182,10 +182,10 @@ Result<FitResult> Fit(FlowMap<float>& model, const GridSeries& grid, const Traje
   }
   const auto started = Clock::now();
   const int c = grid.channels;
-  const ConstraintConfig* velocity = nullptr;
-  const ConstraintConfig* residual = nullptr;
+  const ConstraintOptions* velocity = nullptr;
+  const ConstraintOptions* residual = nullptr;
   if (o.dynamics != nullptr) {
-    for (const ConstraintConfig& k : o.constraints) {
+    for (const ConstraintOptions& k : o.constraints) {
       (k.kind == ConstraintKind::kVelocity ? velocity : residual) = &k;
     }
   }

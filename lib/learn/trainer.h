@@ -46,31 +46,13 @@
 #include <string>
 #include <vector>
 
-#include "config/config.h"
 #include "core/status.h"
+#include "learn/fit_options.h"
 #include "learn/flow_map.h"
 #include "learn/pairs.h"
 #include "physics/dynamics.h"
 
 namespace lyapcast {
-
-struct FitOptions {
-  int iterations = 2000;
-  int batch = 256;
-  double learning_rate = 1e-3;
-  double lr_floor_fraction = 0.1;  // cosine decay to this fraction of learning_rate
-  double weight_decay = 0.0;
-  double clip = 1.0;               // global gradient norm
-  double time_budget_s = 0;        // wall seconds; 0 = none
-  int validate_every = 100;        // iterations between validation checks
-  int patience = 0;                // checks without improvement before stopping; 0 = off
-  std::uint64_t seed = 1;          // batch sampling (and weights on a cold start)
-  // Known dynamics for constraint terms; the terms are skipped when null.
-  // Fit uses it from its own thread only (Dynamics is not thread-safe).
-  const Dynamics* dynamics = nullptr;
-  std::vector<ConstraintConfig> constraints;
-  const std::atomic<bool>* cancel = nullptr;
-};
 
 struct FitProgress {
   int iteration = 0;  // 1-based, after the update

@@ -12,7 +12,7 @@ namespace {
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr double kAlpha = 2.0 / (DriftMonitor::kWindow + 1);  // the EWMA whose span is kWindow
 
-ChangeTestOptions ChangeOptions(const MonitorConfig& m) {
+ChangeTestOptions ChangeOptions(const DriftMonitorOptions& m) {
   ChangeTestOptions o;
   o.threshold = m.change_threshold;
   o.drift = m.change_drift;
@@ -24,10 +24,10 @@ ChangeTestOptions ChangeOptions(const MonitorConfig& m) {
 
 }  // namespace
 
-DriftMonitor::DriftMonitor(const FeedConfig& feed)
-    : channels_(static_cast<int>(feed.channels.size())),
-      step_(feed.step),
-      change_options_(ChangeOptions(feed.monitor)),
+DriftMonitor::DriftMonitor(const DriftMonitorOptions& options)
+    : channels_(options.channels),
+      step_(options.step),
+      change_options_(ChangeOptions(options)),
       change_(change_options_) {}
 
 Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::int64_t version,

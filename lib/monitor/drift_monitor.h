@@ -65,12 +65,12 @@
 #include <memory>
 #include <optional>
 
-#include "config/config.h"
 #include "core/data_time.h"
 #include "core/sample.h"
 #include "core/status.h"
 #include "learn/forecast_model.h"
 #include "monitor/change_test.h"
+#include "monitor/drift_monitor_options.h"
 
 namespace lyapcast {
 
@@ -113,9 +113,9 @@ class DriftMonitor {
     double error = std::numeric_limits<double>::quiet_NaN();  // e when scored
   };
 
-  // Copies what it needs from `feed` (channel count, step, monitor options);
-  // `feed` need not outlive the monitor. Starts without a model, unpaused.
-  explicit DriftMonitor(const FeedConfig& feed);
+  // Starts without a model, unpaused. Requires options.channels >= 1 and
+  // options.step > 0 (a feed's, from ToDriftMonitorOptions in config/config.h).
+  explicit DriftMonitor(const DriftMonitorOptions& options);
 
   // How a new model relates to the one it replaces (see the header comment).
   enum class Handover {
@@ -167,7 +167,7 @@ class DriftMonitor {
   bool Consecutive(DataTime from, DataTime to) const;
   double Score(const Sample& s);  // e; requires a model, a complete prev_, a present channel in s
 
-  // From the feed.
+  // From the options.
   int channels_;
   Micros step_;
   ChangeTestOptions change_options_;

@@ -70,7 +70,7 @@ int VerdictSeverity(Verdict v) {
 
 Verdict WorseVerdict(Verdict a, Verdict b) { return VerdictSeverity(b) > VerdictSeverity(a) ? b : a; }
 
-ModelAgeThresholds ModelAgeInForce(const HealthConfig& configured, const std::optional<RetrainCycle>& cycle) {
+ModelAgeThresholds ModelAgeInForce(const HealthLevels& configured, const std::optional<RetrainCycle>& cycle) {
   ModelAgeThresholds t;
   if (cycle) {
     t.alert = std::max(t.alert, 3 * cycle->interval_lyapunov_times + cycle->time_budget_lyapunov_times);
@@ -99,7 +99,7 @@ std::string FormatAge(double seconds) {
   return fmt::format("{}d{}h", s / 86400, s % 86400 / 3600);
 }
 
-HealthResult EvaluateHealth(const HealthConfig& t, const ModelAgeThresholds& model_age, const HealthInputs& in) {
+HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& model_age, const HealthInputs& in) {
   Judge judge;
   if (!in.storage_available) {
     judge.Add(Verdict::kAlarm, "storage unavailable: samples are not being committed");

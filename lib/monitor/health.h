@@ -42,7 +42,7 @@
 #include <string>
 #include <vector>
 
-#include "config/config.h"
+#include "monitor/health_levels.h"
 
 namespace lyapcast {
 
@@ -77,7 +77,7 @@ struct ModelAgeThresholds {
   bool alert_derived = false;  // not configured and derived from a known cycle
   bool alarm_derived = false;
 };
-ModelAgeThresholds ModelAgeInForce(const HealthConfig& configured, const std::optional<RetrainCycle>& cycle);
+ModelAgeThresholds ModelAgeInForce(const HealthLevels& configured, const std::optional<RetrainCycle>& cycle);
 
 struct HealthInputs {
   bool has_data = false;           // any sample of the feed stored
@@ -98,7 +98,7 @@ struct HealthResult {
 };
 
 // `model_age` is ModelAgeInForce's answer for this feed.
-HealthResult EvaluateHealth(const HealthConfig& thresholds, const ModelAgeThresholds& model_age,
+HealthResult EvaluateHealth(const HealthLevels& thresholds, const ModelAgeThresholds& model_age,
                             const HealthInputs& in);
 
 // A span of seconds as operators read it: "45s", "6m12s", "2h05m", "3d4h";

@@ -171,60 +171,55 @@ Dynamics::Dynamics(Dynamics&&) noexcept = default;
 Dynamics& Dynamics::operator=(Dynamics&&) noexcept = default;
 Dynamics::~Dynamics() = default;
 
-Result<Dynamics> Dynamics::Compile(const FeedConfig& feed) {
-  if (!feed.dynamics) {
-    return Status::Invalid(fmt::format("feeds '{}': no dynamics configured; give dynamics.equations to use known "
-                                       "dynamics",
-                                       feed.id));
-  }
-  const DynamicsConfig& d = *feed.dynamics;
+Result<Dynamics> Dynamics::Compile(const DynamicsSpec& spec) {
   auto s = std::make_unique<State>();
-  s->feed_id = feed.id;
-  s->channels = feed.channels;
-  s->time_unit = d.time_unit;
-  if (feed.channels.empty()) return Status::Invalid(fmt::format("feeds '{}': the feed has no channels", feed.id));
-  if (d.time_unit <= Micros{}) {
+  s->feed_id = spec.feed_id;
+  s->channels = spec.channels;
+  s->time_unit = spec.time_unit;
+  if (spec.channels.empty()) return Status::Invalid(fmt::format("feeds '{}': the feed has no channels", spec.feed_id));
+  if (spec.time_unit <= Micros{}) {
     return Status::Invalid(fmt::format("feeds '{}': dynamics.time_unit: must be a positive duration such as 1s; "
                                        "got {} us",
-                                       feed.id, d.time_unit.count()));
+                                       spec.feed_id, spec.time_unit.count()));
   }
-  // LoadConfig already guarantees the next checks; a FeedConfig built in code
+  // LoadConfig already guarantees the next checks; a spec built in code
   // (tests, tools) gets the same clear errors instead of a wrong binding.
-  if (d.equations.size() != feed.channels.size()) {
+  if (spec.equations.size() != spec.channels.size()) {
     return Status::Invalid(fmt::format("feeds '{}': dynamics.equations: has {} equations but the feed has {} "
                                        "channels; give exactly one expression per channel ({})",
-                                       feed.id, d.equations.size(), feed.channels.size(), Join(feed.channels)));
+                                       spec.feed_id, spec.equations.size(), spec.channels.size(), Join(spec.channels)));
   }
-  for (std::size_t c = 0; c < feed.channels.size(); ++c) {
-    if (d.equations[c].first != feed.channels[c]) {
+  for (std::size_t c = 0; c < spec.channels.size(); ++c) {
+    if (spec.equations[c].first != spec.channels[c]) {
       return Status::Invalid(fmt::format("feeds '{}': dynamics.equations: equation {} is for '{}' but channel {} is "
                                          "'{}'; give the equations in channel order ({})",
-                                         feed.id, c + 1, d.equations[c].first, c + 1, feed.channels[c],
-                                         Join(feed.channels)));
+                                         spec.feed_id, c + 1, spec.equations[c].first, c + 1, spec.channels[c],
+                                         Join(spec.channels)));
     }
-    s->expressions.push_back(d.equations[c].second);
+    s->expressions.push_back(spec.equations[c].second);
   }
   std::vector<double> constant_values;
-  for (const auto& [name, value] : d.constants) {
+  for (const auto& [name, value] : spec.constants) {
     const bool repeated = std::find(s->constant_names.begin(), s->constant_names.end(), name) !=
                           s->constant_names.end();
-    const bool shadows = std::find(feed.channels.begin(), feed.channels.end(), name) != feed.channels.end();
+    const bool shadows = std::find(spec.channels.begin(), spec.channels.end(), name) != spec.channels.end();
     if (repeated || shadows || name == "t") {
       return Status::Invalid(fmt::format("feeds '{}': dynamics.constants.{}: {}; constant names must be unique and "
                                          "differ from the channels ({}) and from 't'",
-                                         feed.id, name,
+                                         spec.feed_id, name,
                                          repeated ? "defined twice" : (shadows ? "is also a channel" : "is reserved"),
-                                         Join(feed.channels)));
+                                         Join(spec.channels)));
     }
     if (!std::isfinite(value)) {
-      return Status::Invalid(fmt::format("feeds '{}': dynamics.constants.{}: must be a finite number", feed.id, name));
+      return Status::Invalid(
+          fmt::format("feeds '{}': dynamics.constants.{}: must be a finite number", spec.feed_id, name));
     }
     s->constant_names.push_back(name);
     constant_values.push_back(value);
   }
-  s->vars.assign(feed.channels.size(), 0.0);
+  s->vars.assign(spec.channels.size(), 0.0);
   s->vars.insert(s->vars.end(), constant_values.begin(), constant_values.end());
-  const std::size_t n = feed.channels.size();
+  const std::size_t n = spec.channels.size();
   s->xp.resize(n);
   s->fp.resize(n);
   s->fm.resize(n);

@@ -1,5 +1,6 @@
 // Dynamics: a feed's known right-hand side dx/dt = f(x), compiled from the
-// expressions in its config (docs/design.md "Learning", config key `dynamics`).
+// expressions of a DynamicsSpec (physics/dynamics_spec.h; docs/design.md
+// "Learning", config key `dynamics`).
 //
 // One muparser expression per channel, in the feed's channel order. The
 // variables an expression may use are the feed's channels and the constants
@@ -30,24 +31,26 @@
 #include <string_view>
 #include <vector>
 
-#include "config/config.h"
 #include "core/data_time.h"
 #include "core/status.h"
+#include "physics/dynamics_spec.h"
 
 namespace lyapcast {
 
 class Dynamics {
  public:
-  // Compiles feed.dynamics (parsing every expression now, so mistakes surface
-  // at config check rather than in the trainer). Returns kInvalidArgument
-  // when feed.dynamics is unset, when the equations are not one per channel
-  // in channel order, when a constant repeats or shadows a channel or a
-  // built-in name, or when an expression does not parse. Expression errors
-  // name the feed, the channel and the position (counted from 1) e.g.
+  // Compiles `spec` (parsing every expression now, so mistakes surface at
+  // config check rather than in the trainer). Returns kInvalidArgument when
+  // there are no channels, when time_unit is not positive, when the equations
+  // are not one per channel in channel order, when a constant repeats or
+  // shadows a channel or a built-in name, or when an expression does not
+  // parse. A feed's spec comes from ToDynamicsSpec (config/config.h).
+  // Expression errors name the feed, the channel and the position (counted
+  // from 1) e.g.
   //   feeds 'loop-a': dynamics.equations.flow: unknown variable 'prr' at
   //   position 1 in "prr*(dtemp_h - flow)"; variables are the channels
   //   (flow, dtemp_h, dtemp_v) and constants (pr, ra, b)
-  [[nodiscard]] static Result<Dynamics> Compile(const FeedConfig& feed);
+  [[nodiscard]] static Result<Dynamics> Compile(const DynamicsSpec& spec);
 
   Dynamics(Dynamics&&) noexcept;
   Dynamics& operator=(Dynamics&&) noexcept;

@@ -24,7 +24,7 @@ double ValidationRms(const ModelRecord& r) {
 }  // namespace
 
 struct FeedRuntime::State {
-  explicit State(const FeedConfig& feed) : monitor(feed) {}
+  explicit State(const FeedConfig& feed) : monitor(ToDriftMonitorOptions(feed)) {}
   DriftMonitor monitor;
   std::shared_ptr<const ActiveModel> model;  // the one the monitor scores with
   std::optional<Sample> newest_complete;

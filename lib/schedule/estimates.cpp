@@ -17,7 +17,9 @@ Result<ExponentEstimate> DynamicsExponent(const FeedConfig& feed, const Eigen::V
     return Status::Invalid(fmt::format("start state has {} values, feed '{}' has {} channels", x0.size(), feed.id,
                                        feed.channels.size()));
   }
-  auto dynamics = Dynamics::Compile(feed);
+  auto spec = ToDynamicsSpec(feed);
+  if (!spec.ok()) return spec.status();
+  auto dynamics = Dynamics::Compile(*spec);
   if (!dynamics.ok()) return dynamics.status();
   const double unit_s = Seconds(feed.dynamics->time_unit);
   const double dt = Seconds(feed.step) / unit_s;

@@ -54,7 +54,8 @@ Result<FlowMap<float>> StartingModel(const RetrainData& data, const TrainingCont
     return model;
   }
   if (!data.normalization) return Status::Invalid(data.normalization_error);
-  auto created = FlowMap<float>::Create(feed.model, static_cast<int>(feed.channels.size()), data.dt);
+  auto created = FlowMap<float>::Create(static_cast<int>(feed.channels.size()), feed.model.hidden,
+                                        feed.model.activation, data.dt);
   if (!created.ok()) return created.status();
   FlowMap<float> model = std::move(created).value();
   const Normalization& n = *data.normalization;
@@ -76,7 +77,9 @@ Result<Candidate> SupervisedStrategy::Train(const RetrainData& data, const Train
   FitOptions o = SupervisedFitOptions(feed.retrain, context);
   std::optional<Dynamics> dynamics;
   if (feed.dynamics && !feed.dynamics->constraints.empty()) {
-    auto d = Dynamics::Compile(feed);
+    auto spec = ToDynamicsSpec(feed);
+    if (!spec.ok()) return spec.status();
+    auto d = Dynamics::Compile(*spec);
     if (!d.ok()) return d.status();
     dynamics.emplace(std::move(d).value());
     o.dynamics = &*dynamics;

@@ -41,18 +41,9 @@
 #include "core/sample.h"
 #include "core/write_outcome.h"
 #include "store/window_store.h"
+#include "store/writer_options.h"
 
 namespace lyapcast {
-
-struct WriterOptions {
-  Micros commit_every{5'000};  // group window after the first queued sample
-  int commit_batch = 4096;      // commit as soon as this many samples are queued
-  Micros commit_quiet{300};    // ... or when no submission arrived for this long
-  Micros retention = 6 * 3600 * kSecond;
-  int prune_batch = 1000;                       // rows per prune transaction
-  Micros prune_every = kSecond;        // wall time between prune passes
-  Micros retry_after_failure{200'000};         // wait before retrying after a failed commit
-};
 
 using WriteCompletion = std::function<void(std::vector<WriteOutcome>)>;
 

@@ -60,8 +60,7 @@ TEST(FlowMapCreate, ValidatesArguments) {
   EXPECT_EQ(FlowMap<double>::Create(3, {0}, Activation::kTanh, 0.1).status().code(), StatusCode::kInvalidArgument);
   const auto huge = FlowMap<float>::Create(3, {1'000'000'000}, Activation::kTanh, 0.1);
   EXPECT_EQ(huge.status().code(), StatusCode::kInvalidArgument);
-  ModelConfig config;  // hidden {64, 64}, tanh
-  auto map = FlowMap<float>::Create(config, 3, 0.5);
+  auto map = FlowMap<float>::Create(3, {64, 64}, Activation::kTanh, 0.5);
   ASSERT_TRUE(map.ok());
   EXPECT_EQ(map->hidden(), (std::vector<int>{64, 64}));
   EXPECT_EQ(map->activation(), Activation::kTanh);

@@ -111,7 +111,7 @@ Trained Train(const std::vector<Sample>& samples, const Dynamics& d, int iterati
 class LorenzLearning : public ::testing::Test {
  protected:
   static void SetUpTestSuite() {
-    dynamics_ = new Dynamics(Dynamics::Compile(LorenzFeed()).value());
+    dynamics_ = new Dynamics(testing::MustCompile(LorenzFeed()));
     const Rhs f = [](const double* s, double* dx) { dynamics_->Eval(s, dx); };
     Eigen::VectorXd x0(3);
     x0 << 1, 1, 1;

@@ -50,7 +50,7 @@ std::vector<Sample> LorenzSamples(const Dynamics& d, int n, double dt, int drop 
 }
 
 struct Fixture {
-  Dynamics dynamics = Dynamics::Compile(LorenzFeed()).value();
+  Dynamics dynamics = testing::MustCompile(LorenzFeed());
   GridSeries grid;
   TrajectorySet set;
   FlowMap<double> model;
@@ -328,7 +328,7 @@ TEST(Fit, VelocityConstraintActsWhenSamplesAreThreeStepsApart) {
 // ---- ComputeNormalization
 
 struct NormalizationData {
-  Dynamics dynamics = Dynamics::Compile(LorenzFeed()).value();
+  Dynamics dynamics = testing::MustCompile(LorenzFeed());
   GridSeries full, sparse;  // every sample; every 5th
   NormalizationData() {
     full = ResampleToGrid(LorenzSamples(dynamics, 3000, 0.01), 3, {Micros(10'000), Micros{}});

@@ -24,12 +24,12 @@ constexpr DataTime kT0 = DataTimeFromMicros(1'733'097'600'000'000);     // 2024-
 constexpr WallTime kWall0 = WallTimeFromMicros(1'733'100'000'000'000);  // wall clock
 const Eigen::Vector2f kStd{2.0f, 0.5f};             // the model's s_c
 
-FeedConfig Feed() {
-  FeedConfig f;
-  f.id = "loop-a";
-  f.channels = {"a", "b"};
-  f.step = kStep;
-  return f;
+// A two-channel feed with the default change test.
+DriftMonitorOptions Feed() {
+  DriftMonitorOptions o;
+  o.channels = 2;
+  o.step = kStep;
+  return o;
 }
 
 // G(x) = x + v with s = kStd.

@@ -15,7 +15,7 @@ namespace {
 
 // The config defaults: drift 2 / 5, data age 30s / 5m; model age 2 / 10
 // Lyapunov times (the floors of the derived levels, as without an exponent).
-const HealthConfig kThresholds{};
+const HealthLevels kThresholds{};
 const ModelAgeThresholds kModelAge = ModelAgeInForce(kThresholds, std::nullopt);
 
 // A healthy feed.
@@ -219,7 +219,7 @@ TEST(EvaluateHealth, WorstOfAllChecksWithEveryReasonListed) {
 
 TEST(EvaluateHealth, ThresholdsComeFromTheCaller) {
   // As `lyapcast check --drift-crit 1.5` would pass them.
-  HealthConfig strict;
+  HealthLevels strict;
   strict.drift_alert = 1.2;
   strict.drift_alarm = 1.5;
   strict.data_age_alert = Micros(500'000);
@@ -237,7 +237,7 @@ TEST(EvaluateHealth, ThresholdsComeFromTheCaller) {
 }
 
 TEST(ModelAgeInForce, ConfiguredLevelsWin) {
-  HealthConfig h;
+  HealthLevels h;
   h.model_age_alert_lyapunov = 6;
   h.model_age_alarm_lyapunov = 20;
   const ModelAgeThresholds t = ModelAgeInForce(h, RetrainCycle{30, 60});
@@ -248,7 +248,7 @@ TEST(ModelAgeInForce, ConfiguredLevelsWin) {
 }
 
 TEST(ModelAgeInForce, DerivedFromTheRetrainCycleWithFloors) {
-  const HealthConfig defaults;
+  const HealthLevels defaults;
   // A Lorenz-type feed (lambda 0.9/s) under the default cadence: retrains are
   // min_interval 30 s apart = 27 Lyapunov times, the time budget 60 s = 54.
   const ModelAgeThresholds lorenz = ModelAgeInForce(defaults, RetrainCycle{27, 54});
@@ -266,12 +266,12 @@ TEST(ModelAgeInForce, DerivedFromTheRetrainCycleWithFloors) {
 }
 
 TEST(ModelAgeInForce, OneConfiguredTheOtherDerivedStayOrdered) {
-  HealthConfig h;
+  HealthLevels h;
   h.model_age_alert_lyapunov = 500;  // above the derived alarm level
   const ModelAgeThresholds t = ModelAgeInForce(h, RetrainCycle{27, 54});
   EXPECT_DOUBLE_EQ(t.alert, 500);
   EXPECT_DOUBLE_EQ(t.alarm, 500);
-  HealthConfig g;
+  HealthLevels g;
   g.model_age_alarm_lyapunov = 1;  // below the derived alert level
   const ModelAgeThresholds u = ModelAgeInForce(g, RetrainCycle{27, 54});
   EXPECT_DOUBLE_EQ(u.alert, 1);
@@ -283,20 +283,20 @@ TEST(EvaluateHealth, DefaultConfigFeedRetrainedOnCadenceReadsNormal) {
   // healthy model, and the data since training as large as it gets just
   // before a retrain is promoted (one interval plus a job at the time
   // budget), and after one rejected candidate (two intervals).
-  const ModelAgeThresholds t = ModelAgeInForce(HealthConfig{}, RetrainCycle{27, 54});
+  const ModelAgeThresholds t = ModelAgeInForce(HealthLevels{}, RetrainCycle{27, 54});
   HealthInputs in = Healthy();
   in.since_training_lyapunov_times = 27 + 54;
-  EXPECT_EQ(EvaluateHealth(HealthConfig{}, t, in).verdict, Verdict::kNormal);
+  EXPECT_EQ(EvaluateHealth(HealthLevels{}, t, in).verdict, Verdict::kNormal);
   in.since_training_lyapunov_times = 2 * 27 + 54;
-  EXPECT_EQ(EvaluateHealth(HealthConfig{}, t, in).verdict, Verdict::kNormal);
+  EXPECT_EQ(EvaluateHealth(HealthLevels{}, t, in).verdict, Verdict::kNormal);
   // Retraining stopped: alert, then alarm, and the reason says the level was derived.
   in.since_training_lyapunov_times = 3 * 27 + 54;
-  HealthResult r = EvaluateHealth(HealthConfig{}, t, in);
+  HealthResult r = EvaluateHealth(HealthLevels{}, t, in);
   EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"135 Lyapunov times of data since the model's training chunk >= "
                                                 "model_age_alert_lyapunov 135 (derived from the retrain cadence)"});
   in.since_training_lyapunov_times = 400;
-  EXPECT_EQ(EvaluateHealth(HealthConfig{}, t, in).verdict, Verdict::kAlarm);
+  EXPECT_EQ(EvaluateHealth(HealthLevels{}, t, in).verdict, Verdict::kAlarm);
 }
 
 }  // namespace

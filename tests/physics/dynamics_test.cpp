@@ -120,7 +120,7 @@ TEST(DynamicsTest, CarriesTimeUnitChannelsAndFeed) {
 // --- compile errors: each names the feed, the channel and the position -----
 
 Status CompileError(const FeedConfig& feed) {
-  const Result<Dynamics> r = Dynamics::Compile(feed);
+  const Result<Dynamics> r = testing::CompileFeed(feed);
   EXPECT_FALSE(r.ok()) << "compiled";
   EXPECT_EQ(r.status().code(), StatusCode::kInvalidArgument);
   return r.status();
@@ -178,7 +178,7 @@ TEST(DynamicsTest, EmptyAssignmentListTimeAndUnknownFunctionAreRejected) {
   }
   // Comparisons are not assignments.
   feed.dynamics->equations[2].second = "(x >= 0) * (y != 1) * (z <= 2) * (x == y) - beta*z";
-  EXPECT_TRUE(Dynamics::Compile(feed).ok());
+  EXPECT_TRUE(testing::CompileFeed(feed).ok());
 }
 
 TEST(DynamicsTest, StructuralMistakesAreRejected) {

@@ -62,13 +62,12 @@ void RunReference(std::vector<RefPoint>* points, std::string* skip, std::string*
 }
 
 Dynamics Lorenz() {
-  FeedConfig feed;
-  feed.id = "lorenz";
-  feed.channels = {"x", "y", "z"};
-  feed.dynamics = DynamicsConfig{};
-  feed.dynamics->equations = {{"x", "sigma*(y - x)"}, {"y", "x*(rho - z) - y"}, {"z", "x*y - beta*z"}};
-  feed.dynamics->constants = {{"sigma", 10.0}, {"rho", 28.0}, {"beta", 8.0 / 3.0}};
-  Result<Dynamics> d = Dynamics::Compile(feed);
+  DynamicsSpec spec;
+  spec.feed_id = "lorenz";
+  spec.channels = {"x", "y", "z"};
+  spec.equations = {{"x", "sigma*(y - x)"}, {"y", "x*(rho - z) - y"}, {"z", "x*y - beta*z"}};
+  spec.constants = {{"sigma", 10.0}, {"rho", 28.0}, {"beta", 8.0 / 3.0}};
+  Result<Dynamics> d = Dynamics::Compile(spec);
   EXPECT_TRUE(d.ok()) << d.status().ToString();
   return std::move(d).value();
 }

@@ -40,9 +40,17 @@ inline FeedConfig LorenzFeed(double rho = kLorenzRho, Micros step = Micros(10'00
   return f;
 }
 
+// The feed's dynamics compiled as the daemon does: ToDynamicsSpec, then
+// Dynamics::Compile (either error is returned).
+inline Result<Dynamics> CompileFeed(const FeedConfig& feed) {
+  Result<DynamicsSpec> spec = ToDynamicsSpec(feed);
+  if (!spec.ok()) return spec.status();
+  return Dynamics::Compile(*spec);
+}
+
 // Compiles or fails the test at once (nothing after it could run).
 inline Dynamics MustCompile(const FeedConfig& feed) {
-  Result<Dynamics> r = Dynamics::Compile(feed);
+  Result<Dynamics> r = CompileFeed(feed);
   if (!r.ok()) {
     ADD_FAILURE() << r.status().ToString();
     std::abort();

@@ -198,7 +198,7 @@ struct Truth {
 };
 
 Truth Simulate(std::size_t n, std::size_t change, double rho_after) {
-  Dynamics d = Must(Dynamics::Compile(LorenzFeed()), "compiling Lorenz-63");
+  Dynamics d = Must(Dynamics::Compile(ToDynamicsSpec(LorenzFeed()).value()), "compiling Lorenz-63");
   const Rhs f = [&d](const double* s, double* dx) { d.Eval(s, dx); };
   Eigen::VectorXd x(3);
   x << 1, 1, 1;
@@ -221,7 +221,7 @@ double TrueLambda(double rho, long steps) {
   for (auto& [name, value] : feed.dynamics->constants) {
     if (name == "rho") value = rho;
   }
-  const Dynamics d = Must(Dynamics::Compile(feed), "compiling Lorenz-63");
+  const Dynamics d = Must(Dynamics::Compile(ToDynamicsSpec(feed).value()), "compiling Lorenz-63");
   Eigen::VectorXd x0(3);
   x0 << 1, 1, 1;
   SpectrumOptions o;

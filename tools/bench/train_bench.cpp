@@ -130,15 +130,13 @@ std::vector<double> TorchRates(const std::string& python, const std::string& scr
 }
 
 // Trainer iterations per second on Lorenz-63 data with the given constraints.
-double TrainerIterations(const std::vector<ConstraintConfig>& constraints, int iterations) {
-  FeedConfig feed;
-  feed.id = "lorenz";
-  feed.channels = {"x", "y", "z"};
-  DynamicsConfig d;
-  d.equations = {{"x", "s*(y - x)"}, {"y", "x*(r - z) - y"}, {"z", "x*y - b*z"}};
-  d.constants = {{"s", 10.0}, {"r", 28.0}, {"b", 8.0 / 3.0}};
-  feed.dynamics = d;
-  Dynamics dyn = Dynamics::Compile(feed).value();
+double TrainerIterations(const std::vector<ConstraintOptions>& constraints, int iterations) {
+  DynamicsSpec spec;
+  spec.feed_id = "lorenz";
+  spec.channels = {"x", "y", "z"};
+  spec.equations = {{"x", "s*(y - x)"}, {"y", "x*(r - z) - y"}, {"z", "x*y - b*z"}};
+  spec.constants = {{"s", 10.0}, {"r", 28.0}, {"b", 8.0 / 3.0}};
+  Dynamics dyn = Dynamics::Compile(spec).value();
   const Rhs f = [&dyn](const double* s, double* dx) { dyn.Eval(s, dx); };
   Eigen::VectorXd x(3);
   x << 1, 1, 1;

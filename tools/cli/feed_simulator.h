@@ -57,7 +57,7 @@ class FeedSimulator {
     std::string line;   // the ingest line without a newline, when kept
   };
 
-  // `dynamics` must be compiled from `feed` (Dynamics::Compile(feed)); the
+  // `dynamics` must be compiled from `feed` (Dynamics::Compile(ToDynamicsSpec(feed))); the
   // simulator takes it over (and changes its constants as scheduled).
   // Integrates the transient before returning. kInvalidArgument when an
   // option is out of its range above (from or noise not one per channel, a

@@ -96,7 +96,9 @@ int RunLyapunov(const LyapunovArgs& a) {
 
   if (feed && feed->feed().dynamics) {
     const FeedConfig& f = feed->feed();
-    auto dynamics = Dynamics::Compile(f);
+    auto spec = ToDynamicsSpec(f);
+    if (!spec.ok()) return PrintError(kCmd, spec.status().message()), kExitUsage;
+    auto dynamics = Dynamics::Compile(*spec);
     if (!dynamics.ok()) return PrintError(kCmd, dynamics.status().message()), kExitUsage;
     const double unit_s = Seconds(f.dynamics->time_unit);
     const double dt = Seconds(f.step) / unit_s;

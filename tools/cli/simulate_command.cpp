@@ -135,7 +135,9 @@ int RunSingleFeed(const SimulateArgs& a) {
   if (!feed.dynamics) {
     return PrintError(kCmd, fmt::format("feed '{}' has no dynamics section to simulate", feed.id)), kExitUsage;
   }
-  auto compiled = Dynamics::Compile(feed);
+  auto spec = ToDynamicsSpec(feed);
+  if (!spec.ok()) return PrintError(kCmd, spec.status().message()), kExitUsage;
+  auto compiled = Dynamics::Compile(*spec);
   if (!compiled.ok()) return PrintError(kCmd, compiled.status().message()), kExitUsage;
   const std::size_t dim = feed.channels.size();
 
@@ -328,7 +330,9 @@ int RunScenario(const SimulateArgs& a) {
                                           a.config)),
              kExitUsage;
     }
-    auto compiled = Dynamics::Compile(feed);
+    auto spec = ToDynamicsSpec(feed);
+    if (!spec.ok()) return PrintError(kCmd, where + ": " + spec.status().message()), kExitUsage;
+    auto compiled = Dynamics::Compile(*spec);
     if (!compiled.ok()) return PrintError(kCmd, where + ": " + compiled.status().message()), kExitUsage;
     auto options = ScenarioOptions(*scenario, i, feed, *compiled);
     if (!options.ok()) return PrintError(kCmd, options.status().message()), kExitUsage;

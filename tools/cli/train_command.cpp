@@ -46,7 +46,9 @@ int RunTrain(const TrainArgs& a) {
   }
   std::optional<Dynamics> dynamics;
   if (feed.dynamics && !a.no_constraints) {
-    auto d = Dynamics::Compile(feed);
+    auto spec = ToDynamicsSpec(feed);
+    if (!spec.ok()) return PrintError(kCmd, spec.status().message()), kExitUsage;
+    auto d = Dynamics::Compile(*spec);
     if (!d.ok()) return PrintError(kCmd, d.status().message()), kExitUsage;
     dynamics.emplace(std::move(d).value());
   }
@@ -68,7 +70,7 @@ int RunTrain(const TrainArgs& a) {
                static_cast<long long>(set.skipped_gaps));
   auto norm = ComputeNormalization(grid, set.validation_begin, dt, topt.max_gap);
   if (!norm.ok()) return PrintError(kCmd, norm.status().message()), kExitUsage;
-  auto created = FlowMap<float>::Create(feed.model, channels, dt);
+  auto created = FlowMap<float>::Create(channels, feed.model.hidden, feed.model.activation, dt);
   if (!created.ok()) return PrintError(kCmd, created.status().message()), kExitUsage;
   FlowMap<float> model = std::move(created).value();
   if (Status s = model.SetNormalization(norm->mean.cast<float>(), norm->stddev.cast<float>(),
