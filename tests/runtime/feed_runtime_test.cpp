@@ -9,13 +9,13 @@
 
 #include <gtest/gtest.h>
 
-#include <future>
 #include <random>
 
 #include "core/wall_clock.h"
 #include "schedule/retrain_details.h"
 #include "support/feeds.h"
 #include "support/temp_dir.h"
+#include "support/writer_feed.h"
 
 namespace lyapcast {
 namespace {
@@ -75,21 +75,10 @@ class Rig {
     writer_->Stop();
   }
   void Send(const std::vector<FeedSample>& samples, std::size_t chunk) {
-    for (std::size_t i = 0; i < samples.size(); i += chunk) {
-      std::vector<FeedSample> part(samples.begin() + static_cast<std::ptrdiff_t>(i),
-                                   samples.begin() + static_cast<std::ptrdiff_t>(std::min(samples.size(), i + chunk)));
-      ASSERT_TRUE(writer_->Submit(std::move(part), [](std::vector<WriteOutcome>) {}));
-    }
+    testing::SubmitInChunks(*writer_, samples, chunk);
   }
-  // Everything submitted is committed and seen by the runtimes (two empty
-  // submissions: the second lands in a later group than the first).
-  void Drain() {
-    for (int round = 0; round < 2; ++round) {
-      std::promise<void> done;
-      ASSERT_TRUE(writer_->Submit({}, [&done](std::vector<WriteOutcome>) { done.set_value(); }));
-      done.get_future().wait();
-    }
-  }
+  void Drain() { testing::Drain(*writer_); }
+
   Scheduler& scheduler() { return *scheduler_; }
   FeedRuntime& runtime() { return runtimes_->at(0); }
 

@@ -9,13 +9,13 @@
 
 #include <gtest/gtest.h>
 
-#include <future>
 #include <mutex>
 #include <optional>
 #include <thread>
 
 #include "support/feeds.h"
 #include "support/temp_dir.h"
+#include "support/writer_feed.h"
 
 namespace lyapcast {
 namespace {
@@ -67,25 +67,11 @@ class Rig {
   }
   ~Rig() { Stop(); }
 
-  // Submits in chunks of `chunk` samples without waiting (the writer groups them).
   void Send(const std::vector<FeedSample>& samples, std::size_t chunk) {
-    for (std::size_t i = 0; i < samples.size(); i += chunk) {
-      std::vector<FeedSample> part(samples.begin() + static_cast<std::ptrdiff_t>(i),
-                                   samples.begin() + static_cast<std::ptrdiff_t>(std::min(samples.size(), i + chunk)));
-      ASSERT_TRUE(writer_->Submit(std::move(part), [](std::vector<WriteOutcome>) {}));
-    }
+    testing::SubmitInChunks(*writer_, samples, chunk);
   }
-  // Waits until everything submitted is committed and handed to the
-  // scheduler (in lockstep: and every due job ran). Completions run before
-  // the subscribers of the same group, so the second empty submission,
-  // queued after the first completed, is in a later group.
-  void Drain() {
-    for (int round = 0; round < 2; ++round) {
-      std::promise<void> done;
-      ASSERT_TRUE(writer_->Submit({}, [&done](std::vector<WriteOutcome>) { done.set_value(); }));
-      done.get_future().wait();
-    }
-  }
+  void Drain() { testing::Drain(*writer_); }
+
   void Stop() {
     if (scheduler_) scheduler_->Stop();
     if (writer_) writer_->Stop();
