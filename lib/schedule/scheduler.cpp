@@ -244,8 +244,8 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
   const Micros recent_span = 20000 * fc.step;
   auto window = ReadWindow(*trainer.reader, feed, start.until - std::max(retention, recent_span), start.until);
   JobEstimates estimates;
-  Result<RetrainOutcome> outcome = window.status();
-  if (window.ok()) {
+  const auto retrain = [&]() -> Result<RetrainOutcome> {
+    if (!window.ok()) return window.status();
     estimates = EstimateExponents(fc, Since(*window, start.until - recent_span), start.estimate_dynamics);
     RetrainInput in;
     in.feed = &fc;
@@ -260,8 +260,9 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     in.data_exponent = estimates.data ? std::optional<double>(estimates.data->lambda_max) : start.known.data;
     in.dynamics_exponent =
         estimates.dynamics ? std::optional<double>(estimates.dynamics->lambda_max) : start.known.dynamics;
-    outcome = RunRetrain(*trainer.registry, in, [&progress](const FitProgress& p) { progress(p); });
-  }
+    return RunRetrain(*trainer.registry, in, [&progress](const FitProgress& p) { progress(p); });
+  };
+  const Result<RetrainOutcome> outcome = retrain();
   const double seconds = progress.Elapsed();
   PublishAndPrune(trainer, start, outcome);
   FinishJob(start, estimates, outcome, seconds);
