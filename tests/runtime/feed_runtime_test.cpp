@@ -25,16 +25,7 @@ namespace fs = std::filesystem;
 const DataTime kT0 = DataTimeFromMicros(1'000'000'000'000'000);
 
 Config LorenzConfig() {
-  Config c;
-  FeedConfig f = testing::LorenzFeed();
-  f.model.hidden = {16, 16};
-  f.retrain.iterations = 60;
-  f.retrain.batch = 64;
-  f.retrain.min_pairs = 400;
-  f.retrain.learning_rate = 3e-3;
-  f.retrain.min_interval = 2 * kSecond;
-  f.retrain.max_interval = 4 * kSecond;
-  c.feeds.push_back(f);
+  Config c = testing::SmallLorenzConfig();
   c.training.lockstep = true;
   return c;
 }

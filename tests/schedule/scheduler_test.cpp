@@ -22,19 +22,7 @@ namespace {
 
 namespace fs = std::filesystem;
 
-Config LorenzConfig() {
-  Config c;
-  FeedConfig f = testing::LorenzFeed();
-  f.model.hidden = {16, 16};
-  f.retrain.iterations = 60;
-  f.retrain.batch = 64;
-  f.retrain.min_pairs = 400;
-  f.retrain.learning_rate = 3e-3;
-  f.retrain.min_interval = 2 * kSecond;
-  f.retrain.max_interval = 4 * kSecond;
-  c.feeds.push_back(f);
-  return c;
-}
+Config LorenzConfig() { return testing::SmallLorenzConfig(); }
 
 // A store, its writer and a scheduler subscribed to it, as the daemon wires them.
 class Rig {

@@ -48,6 +48,23 @@ inline Result<Dynamics> CompileFeed(const FeedConfig& feed) {
   return Dynamics::Compile(*spec);
 }
 
+// A one-feed Lorenz config small enough for scheduler and runtime tests: a
+// 3-16-16-3 network, 60 iterations per retrain, first model at 400 pairs,
+// retrains every 2..4 s of data (invented sizes, chosen for test speed).
+inline Config SmallLorenzConfig() {
+  Config c;
+  FeedConfig f = LorenzFeed();
+  f.model.hidden = {16, 16};
+  f.retrain.iterations = 60;
+  f.retrain.batch = 64;
+  f.retrain.min_pairs = 400;
+  f.retrain.learning_rate = 3e-3;
+  f.retrain.min_interval = 2 * kSecond;
+  f.retrain.max_interval = 4 * kSecond;
+  c.feeds.push_back(f);
+  return c;
+}
+
 // Compiles or fails the test at once (nothing after it could run).
 inline Dynamics MustCompile(const FeedConfig& feed) {
   Result<Dynamics> r = CompileFeed(feed);
