@@ -37,6 +37,14 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
   in.drift_ratio = v.drift.drift_ratio;
   in.drift_flag = v.drift.drift_flag;
   in.since_training_lyapunov_times = v.since_training_lyapunov_times;
+  if (v.drift.unscored_s) {
+    in.unscored_steps = *v.drift.unscored_s / Seconds(v.config->step);
+    if (v.exponent && v.exponent->lambda_max > 0) {
+      in.unscored_lyapunov_times = *v.drift.unscored_s * v.exponent->lambda_max;
+    }
+    in.unscored_cause = v.drift.unscored_cause;
+  }
+  if (v.schedule.last_job && v.schedule.last_job->blocked) in.training_blocked = v.schedule.last_job->outcome;
   v.health = EvaluateHealth(v.config->health, v.model_age, in);
   return v;
 }
@@ -67,6 +75,7 @@ json JobJson(const Config& config, const JobInfo& j) {
           {"verdict", j.verdict ? json(RetrainVerdictName(*j.verdict)) : json(nullptr)},
           {"version", j.version ? json(*j.version) : json(nullptr)},
           {"outcome", j.outcome},
+          {"blocked", j.blocked},
           {"iterations", j.iterations},
           {"seconds", j.seconds}};
 }
@@ -123,6 +132,10 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
                 {"rmse_ewma", OptionalNumber(d.rmse_ewma)},
                 {"validation_error", OptionalNumber(d.validation_error)},
                 {"scored", d.scored},
+                {"scored_late", d.scored_late},
+                {"scored_multi_step", d.scored_multi},
+                {"unscored_s", OptionalNumber(d.unscored_s)},
+                {"unscored_cause", d.unscored_cause.empty() ? json(nullptr) : json(d.unscored_cause)},
                 {"last_error", OptionalNumber(d.last_error)},
                 {"change_statistic", d.change_statistic},
                 {"warming_up", d.warming_up},

@@ -545,6 +545,7 @@ DriftMonitorOptions ToDriftMonitorOptions(const FeedConfig& feed) {
   DriftMonitorOptions o;
   o.channels = static_cast<int>(feed.channels.size());
   o.step = feed.step;
+  o.max_gap = feed.model.max_gap;
   o.change_threshold = feed.monitor.change_threshold;
   o.change_drift = feed.monitor.change_drift;
   return o;

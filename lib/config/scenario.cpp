@@ -24,7 +24,7 @@ using config_internal::Source;
 using config_internal::Value;
 
 const char* const kFeedKeys[] = {"feed",  "seed",     "transient",    "from",   "step",
-                                 "noise", "gap_rate", "missing_rate", "changes"};
+                                 "noise", "gap_rate", "missing_rate", "jitter", "changes"};
 
 std::vector<std::string> FeedKeys() { return {std::begin(kFeedKeys), std::end(kFeedKeys)}; }
 
@@ -71,6 +71,7 @@ ScenarioFeed ReadFeed(const Value& v) {
   }
   if (auto x = m.Get("gap_rate")) f.gap_rate = x->Real(RealRange::Between(0, 1, false, true));
   if (auto x = m.Get("missing_rate")) f.missing_rate = x->Real(RealRange::Between(0, 1, false, false));
+  if (auto x = m.Get("jitter")) f.jitter = x->Real(RealRange::Between(0, 0.4, false, false));
   if (auto x = m.Get("changes")) {
     const char* const allowed = "a list of changes such as [\"ra=35@10m\", \"ra=28..35@5m..15m\"]";
     for (const Value& item : x->List(allowed)) {

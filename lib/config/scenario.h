@@ -15,6 +15,7 @@
 //       noise: [0.05, 0.05, 0.05]   # sensor noise std: one number, or one per channel
 //       gap_rate: 0.02      # probability that a sample is dropped, [0, 1)
 //       missing_rate: 0.01  # probability that one random channel is missing, [0, 1]
+//       jitter: 0.02        # timestamp jitter std as a fraction of the step, [0, 0.4]
 //       changes: ["ra=28..30@0s..15m", "ra=38@15m"]   # see ParseParameterChange
 //
 // Times in changes are offsets from the first sample. The reader is as strict
@@ -74,6 +75,7 @@ struct ScenarioFeed {
   std::vector<double> noise;             // each >= 0; empty = none, one = every channel, else one per channel
   double gap_rate = 0;                   // [0, 1)
   double missing_rate = 0;               // [0, 1]
+  double jitter = 0;                     // [0, 0.4]
   std::vector<ParameterChange> changes;  // in file order
 
   // Lines of the file (1-based; 0 when the key is absent), for messages

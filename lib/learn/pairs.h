@@ -1,19 +1,28 @@
 // Training pairs from a stored series: resampling onto the model-step grid,
 // gap-aware multi-step trajectories, and the split by time.
 //
-// A feed's samples arrive with jitter, gaps and missing channels. The trainer
-// needs states on the grid t0 + i*dt. ResampleToGrid puts each sample on its
-// nearest grid point when it lies within `tolerance` of it (others are
-// counted as off-grid and dropped); grid points without a sample are gaps.
+// A feed's samples arrive with jitter, gaps, missing channels, at another
+// rate than the model step, and with a new sampling phase after an outage.
+// The trainer needs states one model step apart. ResampleToGrid lays a grid
+// of model steps over the samples in SEGMENTS: a segment's grid is anchored
+// at its first sample and runs on in whole steps; a new segment starts when
+// a sample comes after a pause (more than the alignment's max_span after the
+// previous sample) and lands farther than the tolerance from the running
+// grid, so a phase shift never leaves the later data off the grid. Dense
+// data never start a segment (their grid runs on and is read between
+// samples). Each grid point's channels are formed by the rule of
+// learn/alignment.h (exact, interpolated, nearest within tolerance, or
+// missing), the same rule the drift monitor uses.
 //
 // BuildTrajectories turns the grid into trajectories: from every complete
 // grid state x_i (all channels present; inputs must be complete) the model is
 // unrolled for `horizon` steps and the loss is taken at every grid point in
 // (i, i + horizon] that holds a sample, channel by channel (a missing channel
 // is masked out of the loss for that channel only). With j the next grid
-// point after i that holds a sample:
-//   - j - i > max_gap: no trajectory from i (too long a gap to bridge);
-//   - otherwise horizon = max(rollout, j - i), cut at the end of the grid.
+// point after i in i's segment that holds a sample:
+//   - none, or j - i > max_gap: no trajectory from i (too long a gap to bridge);
+//   - otherwise horizon = max(rollout, j - i), cut at the end of the segment
+//     (and of the training or validation span).
 // So a gap of k-1 missing steps gives a k-step pair trained through G^k, and
 // contiguous data gives rollouts of length `rollout`; one rule covers both.
 //
@@ -30,34 +39,40 @@
 
 #include "core/data_time.h"
 #include "core/sample.h"
+#include "learn/alignment.h"
 #include "learn/trajectory_options.h"
 
 namespace lyapcast {
 
-struct GridOptions {
-  Micros step = kSecond;  // dt in data time; > 0
-  Micros tolerance{};            // 0 means step / 4
-};
+using GridOptions = AlignmentOptions;
 
-// Samples on the grid t0 + i * step. Absent grid points have present[i] == 0.
+// States on model-step grids, one after another by segment. Within a
+// segment, point i + 1 is one step after point i; trajectories and
+// increments never cross a segment boundary.
 struct GridSeries {
-  DataTime t0{};
+  DataTime t0{};  // time of the first grid point
   Micros step{};
   int channels = 0;
-  std::vector<double> values;        // size() * channels, row i = grid point i; NaN where missing
-  std::vector<std::uint64_t> mask;   // missing-channel mask per grid point (all bits set if absent)
-  std::vector<std::uint8_t> present; // 1 if a sample landed on the grid point
-  std::int64_t off_grid = 0;         // samples farther than tolerance from every grid point
-  std::int64_t collisions = 0;       // samples that lost their grid point to a nearer one
+  std::vector<DataTime> times;        // time of each grid point
+  std::vector<double> values;         // size() * channels, row i = grid point i; NaN where missing
+  std::vector<std::uint64_t> mask;    // missing-channel mask per grid point (all bits set if absent)
+  std::vector<std::uint8_t> present;  // 1 if any channel could be formed at the grid point
+  std::vector<std::size_t> segment_begins;  // first grid index of each segment, increasing; [0] == 0
+  std::int64_t unused = 0;          // samples that formed no grid value (off the grid, or lost to a nearer one)
+  std::int64_t interpolated = 0;    // grid values formed between two samples
+  std::int64_t nearest = 0;         // grid values taken from a sample within tolerance but not on time
 
   std::size_t size() const { return present.size(); }
-  DataTime time(std::size_t i) const { return t0 + static_cast<std::int64_t>(i) * step; }
+  DataTime time(std::size_t i) const { return times[i]; }
   const double* row(std::size_t i) const { return values.data() + i * static_cast<std::size_t>(channels); }
   bool complete(std::size_t i) const { return present[i] && mask[i] == 0; }
+  // One past the last grid index of the segment holding i (i < size()).
+  std::size_t segment_end(std::size_t i) const;
+  std::size_t segments() const { return segment_begins.size(); }
 };
 
-// Requires samples in increasing time order (as WindowStore::ReadRange gives
-// them) and options.step > 0. The grid starts at the first sample's time.
+// Requires samples in strictly increasing time order (as
+// WindowStore::ReadRange gives them) and options.step > 0.
 GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const GridOptions& options);
 
 

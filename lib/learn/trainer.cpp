@@ -79,9 +79,10 @@ Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t e
     sum2 += x.cwiseAbs2();
     n += 1;
     // The next complete state, k <= max_gap steps on; its increment per step.
+    const std::size_t stop = std::min(end, grid.segment_end(i));
     std::size_t j = i + 1;
-    while (j < end && j - i < reach && !grid.complete(j)) ++j;
-    if (j < end && grid.complete(j)) {
+    while (j < stop && j - i < reach && !grid.complete(j)) ++j;
+    if (j < stop && grid.complete(j)) {
       const double k = static_cast<double>(j - i);  // 1 on consecutive states: the division is exact
       const Eigen::VectorXd inc = (Eigen::Map<const Eigen::VectorXd>(grid.row(j), c) - x) / k;
       isum += inc;

@@ -27,7 +27,11 @@ ChangeTestOptions ChangeOptions(const DriftMonitorOptions& m) {
 DriftMonitor::DriftMonitor(const DriftMonitorOptions& options)
     : channels_(options.channels),
       step_(options.step),
+      max_gap_(std::max(options.max_gap, 1)),
+      keep_(options.reorder_window + (std::max(options.max_gap, 1) + 1) * options.step),
+      alignment_{options.step, Micros{}, Micros{}},
       change_options_(ChangeOptions(options)),
+      history_(kHistory),
       change_(change_options_) {}
 
 Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::int64_t version,
@@ -43,6 +47,10 @@ Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::i
   validation_error_ = validation_error;
   trained_to_ = trained_to;
   promoted_wall_ = promoted_wall;
+  // Samples that arrived before this model were not its to score.
+  scorable_from_ = newest_ ? std::max(*newest_, trained_to) : trained_to;
+  unscored_ = Unscored::kNone;
+  for (std::int64_t i = 0; i < size_; ++i) slot(i).scored = true;
   const bool carry = handover == Handover::kSuccessor && model_ != nullptr && alarms_ == 0;
   if (carry) {
     ResetScores();
@@ -50,6 +58,11 @@ Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::i
     Reset();
   }
   return Status::Ok();
+}
+
+void DriftMonitor::SetPaused(bool paused) {
+  if (paused_ && !paused && newest_) scorable_from_ = std::max(scorable_from_.value_or(*newest_), *newest_);
+  paused_ = paused;
 }
 
 void DriftMonitor::Reset() {
@@ -69,70 +82,200 @@ void DriftMonitor::ResetScores() {
   alarms_ = 0;
 }
 
-bool DriftMonitor::Consecutive(DataTime from, DataTime to) const {
-  const Micros gap = to - from;
-  return std::chrono::abs(gap - step_) * 100 <= step_;
+std::int64_t DriftMonitor::Insert(const Sample& s) {
+  // Position: after every sample older than s (usually the end).
+  std::int64_t pos = size_;
+  while (pos > 0 && slot(pos - 1).sample.t > s.t) --pos;
+  if (pos > 0 && slot(pos - 1).sample.t == s.t) {
+    // The same row from another source: fill the channels it lacks.
+    Sample& row = slot(pos - 1).sample;
+    for (int c = 0; c < channels_; ++c) {
+      if (row.missing(c) && !s.missing(c)) {
+        row.values[static_cast<std::size_t>(c)] = s.values[static_cast<std::size_t>(c)];
+        row.missing_mask &= ~(std::uint64_t{1} << c);
+      }
+    }
+    return pos - 1;
+  }
+  if (size_ == kHistory) {
+    if (pos == 0) return -1;  // older than everything kept
+    head_ = (head_ + 1) % kHistory;  // drop the oldest
+    --size_;
+    --pos;
+  }
+  ++size_;
+  Slot& end = slot(size_ - 1);
+  end.sample = s;  // copy-assigns into the slot's storage
+  end.scored = false;
+  for (std::int64_t i = size_ - 1; i > pos; --i) std::swap(slot(i), slot(i - 1));
+  return pos;
 }
 
-double DriftMonitor::Score(const Sample& s) {
+void DriftMonitor::Prune() {
+  if (!newest_) return;
+  while (size_ > 1 && slot(0).sample.t < *newest_ - keep_) {
+    head_ = (head_ + 1) % kHistory;
+    --size_;
+  }
+}
+
+double DriftMonitor::Score(std::int64_t i, bool* multi) {
+  const Sample& target = slot(i).sample;
+  const HistoryView before{this, i};  // strictly older samples: the target never forms its own input
+  state_.resize(static_cast<std::size_t>(channels_));
   const auto c = static_cast<Eigen::Index>(channels_);
+  int k = 1;
+  for (; k <= max_gap_; ++k) {
+    if (StateAt(before, target.t - k * step_, channels_, alignment_, state_.data()) == 0) break;
+  }
+  if (k > max_gap_) {
+    unscored_ = Unscored::kNoState;
+    return kNaN;
+  }
+  *multi = k > 1;
   x_.resize(c);
-  for (Eigen::Index k = 0; k < c; ++k) x_[k] = prev_->values[static_cast<std::size_t>(k)];
-  model_->Step(x_, &y_, *scratch_);
+  for (Eigen::Index j = 0; j < c; ++j) x_[j] = state_[static_cast<std::size_t>(j)];
+  for (int step = 0; step < k; ++step) {
+    model_->Step(x_, &y_, *scratch_);
+    if (step + 1 < k) x_ = y_;
+  }
   const Eigen::VectorXd& scale = model_->error_scale();
   double sum = 0;
   int present = 0;
-  for (int k = 0; k < channels_; ++k) {
-    if (s.missing(k)) continue;
-    const double z = (y_[k] - s.values[static_cast<std::size_t>(k)]) / scale[k];
+  for (int j = 0; j < channels_; ++j) {
+    if (target.missing(j)) continue;
+    const double z = (y_[j] - target.values[static_cast<std::size_t>(j)]) / scale[j];
     sum += z * z;
     ++present;
   }
-  return std::sqrt(sum / present);
+  const double e = std::sqrt(sum / present);
+  if (!std::isfinite(e)) unscored_ = Unscored::kNotFinite;
+  return e;
+}
+
+bool DriftMonitor::TryScore(std::int64_t i, Observation* out) {
+  Slot& s = slot(i);
+  if (s.scored || model_ == nullptr) return false;
+  if (paused_) {
+    s.scored = true;  // a paused stretch is never scored, not even later
+    return false;
+  }
+  if (s.sample.t <= trained_to_) {
+    unscored_ = Unscored::kTrainedOn;
+    return false;
+  }
+  bool any_present = false;
+  for (int k = 0; k < channels_ && !any_present; ++k) any_present = !s.sample.missing(k);
+  if (!any_present) {
+    unscored_ = Unscored::kNoChannel;
+    return false;
+  }
+  bool multi = false;
+  // A non-finite e (a value beyond float range) would poison the rolling
+  // figures until the next model; such a sample is not scored.
+  const double e = Score(i, &multi);
+  if (!std::isfinite(e)) return false;
+  s.scored = true;
+  if (multi) ++scored_multi_;
+  if (newest_ && s.sample.t < *newest_) ++scored_late_;
+  unscored_ = Unscored::kNone;
+  if (!last_scored_ || s.sample.t > *last_scored_) last_scored_ = s.sample.t;
+  const bool alarm_before = out->alarm_raised;
+  Record(e, s.sample.t, out);
+  return out->alarm_raised && !alarm_before;
+}
+
+void DriftMonitor::Record(double e, DataTime t, Observation* out) {
+  out->scored = true;
+  out->error = e;
+  last_error_ = e;
+  const double e2 = e * e;
+  ewma_sq_ = scored_ == 0 ? e2 : ewma_sq_ + kAlpha * (e2 - ewma_sq_);  // start at the first value, not 0
+  window_sq_[static_cast<std::size_t>(scored_ % kWindow)] = e2;
+  ++scored_;
+  block_sum_ += std::log(e);
+  if (++block_count_ < kBlock) return;
+  const double block_mean = block_sum_ / kBlock;
+  block_sum_ = 0;
+  block_count_ = 0;
+  if (change_.Add(block_mean)) {
+    out->alarm_raised = true;
+    if (!drift_flag_) flagged_at_ = t;
+    drift_flag_ = true;
+    ++alarms_;
+    ++alarms_total_;
+    change_.Restart();
+  }
 }
 
 DriftMonitor::Observation DriftMonitor::Observe(const Sample& s, WallTime arrived_wall) {
   Observation out;
   last_arrival_ = arrived_wall;
-  const bool in_order = !newest_ || s.t > *newest_;
-  if (!in_order) return out;  // late: data age only; prev_ stays the newest sample
-  newest_ = s.t;
-  if (s.values.size() != static_cast<std::size_t>(channels_)) return out;  // not this feed's shape
+  if (s.values.size() != static_cast<std::size_t>(channels_)) {  // not this feed's shape: data age only
+    if (!newest_ || s.t > *newest_) newest_ = s.t;
+    return out;
+  }
+  if (newest_ && s.t < *newest_ - keep_) return out;  // too late to matter: data age only
+  const std::int64_t i = Insert(s);
+  if (!newest_ || s.t > *newest_) newest_ = s.t;
+  if (i < 0) return out;
+  // The sample itself, then newer ones it may have made scorable (it can be
+  // the state before them), in time order.
+  TryScore(i, &out);
+  const DataTime reach = slot(i).sample.t + (max_gap_ + 1) * step_;
+  for (std::int64_t j = i + 1; j < size_ && slot(j).sample.t <= reach; ++j) {
+    Observation later;
+    TryScore(j, &later);
+    if (later.alarm_raised) out.alarm_raised = true;
+  }
+  Prune();
+  return out;
+}
 
-  bool any_present = false;
-  for (int k = 0; k < channels_ && !any_present; ++k) any_present = !s.missing(k);
-  const bool scorable = model_ != nullptr && !paused_ && s.t > trained_to_ && prev_ && prev_->complete() &&
-                        Consecutive(prev_->t, s.t) && any_present;
-  // A non-finite e (a value beyond float range) would poison the rolling
-  // figures until the next model; such a sample is not scored.
-  const double e = scorable ? Score(s) : kNaN;
-  if (std::isfinite(e)) {
-    out.scored = true;
-    out.error = e;
-    last_error_ = e;
-    const double e2 = e * e;
-    ewma_sq_ = scored_ == 0 ? e2 : ewma_sq_ + kAlpha * (e2 - ewma_sq_);  // start at the first value, not 0
-    window_sq_[static_cast<std::size_t>(scored_ % kWindow)] = e2;
-    ++scored_;
-    block_sum_ += std::log(e);
-    if (++block_count_ < kBlock) {
-      prev_ = s;
-      return out;
-    }
-    const double block_mean = block_sum_ / kBlock;
-    block_sum_ = 0;
-    block_count_ = 0;
-    if (change_.Add(block_mean)) {
-      out.alarm_raised = true;
-      if (!drift_flag_) flagged_at_ = s.t;
-      drift_flag_ = true;
-      ++alarms_;
-      ++alarms_total_;
-      change_.Restart();
+std::string DriftMonitor::DescribeUnscored() const {
+  switch (unscored_) {
+    case Unscored::kNone: return "";
+    case Unscored::kTrainedOn: return "the newest samples are inside the model's training data";
+    case Unscored::kNoChannel: return "the newest samples have no channel present";
+    case Unscored::kNotFinite: return "the model's prediction or the sample is not finite";
+    case Unscored::kNoState: break;
+  }
+  // Why no earlier state: too sparse, or channels missing.
+  if (size_ == 0) return "no sample kept";
+  const DataTime newest = slot(size_ - 1).sample.t;
+  const DataTime reach = newest - max_gap_ * step_ - alignment_.tolerance_or_default();
+  std::vector<Micros> gaps;
+  std::uint64_t missing_before = 0;
+  int before = 0;
+  for (std::int64_t i = 0; i < size_; ++i) {
+    const Sample& s = slot(i).sample;
+    if (i > 0) gaps.push_back(s.t - slot(i - 1).sample.t);
+    if (s.t >= reach && s.t < newest) {
+      ++before;
+      missing_before |= s.missing_mask;
     }
   }
-  prev_ = s;
-  return out;
+  if (before == 0) {
+    if (!gaps.empty()) {
+      std::nth_element(gaps.begin(), gaps.begin() + static_cast<std::ptrdiff_t>(gaps.size() / 2), gaps.end());
+      const Micros median = gaps[gaps.size() / 2];
+      if (median > max_gap_ * step_ + alignment_.tolerance_or_default()) {
+        return fmt::format("samples are about {} apart, more than model.max_gap {} steps of {}",
+                           FormatDuration(median), max_gap_, FormatDuration(step_));
+      }
+    }
+    return fmt::format("no sample in the {} steps of {} before the newest one", max_gap_, FormatDuration(step_));
+  }
+  std::string channels;
+  for (int c = 0; c < channels_; ++c) {
+    if ((missing_before >> c) & 1U) channels += fmt::format("{}{}", channels.empty() ? "" : ", ", c);
+  }
+  if (!channels.empty()) {
+    return fmt::format("no complete state in the {} steps before the newest sample: channel(s) {} missing",
+                       max_gap_, channels);
+  }
+  return fmt::format("no state could be formed in the {} steps of {} before the newest sample", max_gap_,
+                     FormatDuration(step_));
 }
 
 double DriftMonitor::RmseWindow() const {
@@ -173,6 +316,14 @@ DriftSnapshot DriftMonitor::Snapshot(WallTime wall_now) const {
   d.alarms_total = alarms_total_;
   d.paused = paused_;
   d.newest_data_time = newest_;
+  d.scored_late = scored_late_;
+  d.scored_multi = scored_multi_;
+  if (model_ != nullptr && !paused_ && newest_) {
+    DataTime from = scorable_from_.value_or(trained_to_);
+    if (last_scored_) from = std::max(from, *last_scored_);
+    d.unscored_s = std::max(0.0, Seconds(*newest_ - from));
+    d.unscored_cause = DescribeUnscored();
+  }
   d.last_arrival_wall = last_arrival_;
   if (last_arrival_) d.data_age_s = Seconds(wall_now - *last_arrival_);
   return d;

@@ -2,21 +2,32 @@
 // drift flag and the staleness figures (docs/design.md "Monitoring").
 //
 // Every arriving sample is recorded (newest data time, wall time of the last
-// arrival). A sample is SCORED when all of these hold:
+// arrival) and kept in a short history (the samples within the reorder
+// window plus max_gap steps of the newest; at most kHistory of them). A
+// sample is SCORED, once, when all of these hold:
 //   - a model is set and the monitor is not paused;
-//   - it is newer than every sample seen before (late and out-of-order
-//     samples are recorded for data age only);
 //   - its data time is after the model's trained_to: the model never saw it,
 //     so the score is out of sample by construction;
-//   - the previous in-order sample is exactly one model step earlier
-//     (|dt - step| <= step / 100) and complete (the prediction needs every
-//     channel), and this sample has at least one channel present;
+//   - it has at least one channel present;
+//   - a complete state can be formed k model steps before it, for the
+//     smallest k in 1..max_gap, from the OLDER samples of the history by the
+//     alignment rule of learn/alignment.h (the rule training uses:
+//     interpolation between close neighbours, else the nearest sample
+//     within a quarter step). Dense, jittered or oversampled data are
+//     scored with k = 1 at nearly every sample; data sparser than the step
+//     through G^k, the way training pairs them;
 //   - the error below is finite (it is not for values beyond float range).
-// Its normalized one-step error is
+// A sample that arrives late (within the reorder window, in any order) is
+// scored when its earlier neighbours are there, and may make a newer,
+// not yet scored sample scorable. A second sample at the same data time
+// (another source writing other channels of the same row) fills the
+// missing channels of the first.
+// Its normalized error is
 //
-//     e = sqrt( mean over present channels c of ((G(prev)_c - x_c) / s_c)^2 )
+//     e = sqrt( mean over present channels c of ((G^k(prev)_c - x_c) / s_c)^2 )
 //
-// with G the model's one-step map (ForecastModel::Step) and s_c its
+// with prev the state formed k steps earlier, G the model's one-step map
+// (ForecastModel::Step) and s_c its
 // per-channel error_scale() (a flow map's stddev()). From e:
 //   - rmse_ewma: sqrt of an EWMA of e^2, alpha = 2 / (kWindow + 1);
 //   - rmse_window: RMSE over the last kWindow scored samples;
@@ -56,7 +67,8 @@
 // always restart with a new model.
 //
 // Not thread-safe: the daemon serializes calls (e.g. one mutex per feed).
-// Allocation: none per Observe after the first scored sample.
+// Allocation: none per Observe once the history's slots have held a sample
+// of the feed's size.
 #pragma once
 
 #include <array>
@@ -64,10 +76,13 @@
 #include <limits>
 #include <memory>
 #include <optional>
+#include <string>
+#include <vector>
 
 #include "core/data_time.h"
 #include "core/sample.h"
 #include "core/status.h"
+#include "learn/alignment.h"
 #include "learn/forecast_model.h"
 #include "monitor/change_test.h"
 #include "monitor/drift_monitor_options.h"
@@ -98,6 +113,14 @@ struct DriftSnapshot {
   // Newest data time - the model's trained_to (data time); multiply by the
   // largest Lyapunov exponent for health's since_training_lyapunov_times.
   std::optional<double> since_training_s;
+  // Data time since a sample was last scored (or since scoring became
+  // possible: the model's trained_to, its activation, the end of a pause),
+  // while a model is set and the monitor runs; with why the newest samples
+  // could not be scored, in words. Health turns a long stretch into a reason.
+  std::optional<double> unscored_s;
+  std::string unscored_cause;
+  std::int64_t scored_late = 0;   // samples scored after a newer one arrived
+  std::int64_t scored_multi = 0;  // samples scored through G^k, k > 1
 };
 
 class DriftMonitor {
@@ -106,6 +129,7 @@ class DriftMonitor {
   static constexpr int kMinScored = 10;  // scored samples before drift_ratio and e0 use live errors
   static constexpr int kBlock = 10;      // scored samples per change-test observation
   static constexpr int kWarmupBlocks = 30;  // blocks that estimate the in-control level
+  static constexpr int kHistory = 1024;     // samples kept for forming earlier states
 
   struct Observation {
     bool scored = false;
@@ -126,7 +150,7 @@ class DriftMonitor {
   // A new active model (null: none). Resets the scores, the drift flag and
   // the per-model alarm count, and the change test unless `handover` is
   // kSuccessor and the outgoing model raised no alarm; keeps the arrival
-  // record and the previous sample. The monitor shares ownership of the model
+  // record and the sample history. The monitor shares ownership of the model
   // (the daemon passes its published ActiveModel's) and scores through its
   // Step with a scratch of its own.
   // validation_error: the model's one-step error at promotion, normalized
@@ -146,7 +170,7 @@ class DriftMonitor {
 
   // While paused (plant shutdown) samples are recorded for data age but
   // neither scored nor fed to the change test, so no alarm is raised.
-  void SetPaused(bool paused) { paused_ = paused; }
+  void SetPaused(bool paused);
   bool paused() const { return paused_; }
   bool has_model() const { return model_ != nullptr; }
 
@@ -162,14 +186,42 @@ class DriftMonitor {
   double e0() const;
 
  private:
+  // Why the newest unscored sample was not scored.
+  enum class Unscored { kNone, kNoState, kTrainedOn, kNoChannel, kNotFinite };
+  struct Slot {
+    Sample sample;
+    bool scored = false;
+  };
+  // The history as a sequence sorted by time, limited to its first `size`
+  // slots (alignment's StateAt reads it).
+  struct HistoryView {
+    const DriftMonitor* m;
+    std::int64_t n;
+    std::int64_t size() const { return n; }
+    const Sample& operator[](std::int64_t i) const { return m->slot(i).sample; }
+  };
+  Slot& slot(std::int64_t i) { return history_[static_cast<std::size_t>((head_ + i) % kHistory)]; }
+  const Slot& slot(std::int64_t i) const { return history_[static_cast<std::size_t>((head_ + i) % kHistory)]; }
+
   double RmseWindow() const;
   void ResetScores();
-  bool Consecutive(DataTime from, DataTime to) const;
-  double Score(const Sample& s);  // e; requires a model, a complete prev_, a present channel in s
+  // Inserts s in time order (merging a sample at the same time); returns its
+  // index, or -1 when it is older than everything kept and the history is full.
+  std::int64_t Insert(const Sample& s);
+  void Prune();
+  // Scores slot i if the rules allow; returns whether it raised an alarm.
+  bool TryScore(std::int64_t i, Observation* out);
+  // e through G^k from the state before slot i; NaN when none can be formed.
+  double Score(std::int64_t i, bool* multi);
+  void Record(double e, DataTime t, Observation* out);
+  std::string DescribeUnscored() const;
 
   // From the options.
   int channels_;
   Micros step_;
+  int max_gap_;
+  Micros keep_;  // history span kept behind the newest sample
+  AlignmentOptions alignment_;
   ChangeTestOptions change_options_;
 
   // The model.
@@ -183,7 +235,8 @@ class DriftMonitor {
   bool paused_ = false;
   std::optional<DataTime> newest_;
   std::optional<WallTime> last_arrival_;
-  std::optional<Sample> prev_;  // the newest in-order sample
+  std::vector<Slot> history_;  // ring buffer of kHistory slots
+  std::int64_t head_ = 0, size_ = 0;
 
   // Scores (since SetModel/Reset).
   std::int64_t scored_ = 0;
@@ -197,9 +250,16 @@ class DriftMonitor {
   std::optional<DataTime> flagged_at_;
   std::int64_t alarms_ = 0;
   std::int64_t alarms_total_ = 0;
+  std::int64_t scored_late_ = 0, scored_multi_ = 0;
+  // Scoring coverage: data time from which samples could have been scored,
+  // the newest scored sample's, and why the newest sample was not.
+  std::optional<DataTime> scorable_from_;
+  std::optional<DataTime> last_scored_;
+  Unscored unscored_ = Unscored::kNone;
 
   // Step's buffers, reused (the scratch is the model's, made by SetModel).
   Eigen::VectorXd x_, y_;
+  std::vector<double> state_;
   std::unique_ptr<ModelScratch> scratch_;
 };
 

@@ -14,7 +14,13 @@ namespace lyapcast {
 
 struct DriftMonitorOptions {
   int channels = 0;   // the feed's channel count; a sample or model of another size is not scored
-  Micros step{};      // the feed's model step: two samples this far apart (within 1 %) are consecutive
+  Micros step{};      // the feed's model step
+  // Longest composition G^k a sample is scored through when no state one
+  // step before it can be formed (sparse data); the feed's model.max_gap.
+  int max_gap = 8;
+  // How late (data time behind the newest sample) a sample may arrive and
+  // still be scored, and still serve as the state before a later sample.
+  Micros reorder_window = Micros(10'000'000);
   // The change test behind the drift flag (monitor/change_test.h), in in-control
   // standard deviations of the block scores; its warm-up is DriftMonitor::kWarmupBlocks.
   double change_threshold = ChangeTestOptions{}.threshold;

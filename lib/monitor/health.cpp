@@ -120,6 +120,9 @@ HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& mod
                                FormatDuration(alarm ? t.data_age_alarm : t.data_age_alert)));
     }
   }
+  if (in.training_blocked) {
+    judge.Add(Verdict::kAlert, "retraining finds no usable training pairs: " + *in.training_blocked);
+  }
   if (!in.has_model) return judge.Take();
   if (in.drift_ratio) {
     const Verdict v = Level(*in.drift_ratio, t.drift_alert, t.drift_alarm);
@@ -130,6 +133,15 @@ HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& mod
     }
   }
   if (in.drift_flag) judge.Add(Verdict::kAlert, "drift flag raised by the change test");
+  const bool unscored_long = in.unscored_lyapunov_times ? *in.unscored_lyapunov_times >= kUnscoredAlertLyapunovTimes
+                                                        : in.unscored_steps && *in.unscored_steps >= kUnscoredAlertSteps;
+  if (unscored_long) {
+    const std::string span = in.unscored_lyapunov_times
+                                 ? fmt::format("{} Lyapunov times", Shown(*in.unscored_lyapunov_times))
+                                 : fmt::format("{} model steps", Shown(*in.unscored_steps));
+    judge.Add(Verdict::kAlert, fmt::format("drift cannot be judged: no sample scored for {} of data{}{}", span,
+                                           in.unscored_cause.empty() ? "" : ": ", in.unscored_cause));
+  }
   if (in.since_training_lyapunov_times) {
     const double lt = *in.since_training_lyapunov_times;
     const Verdict v = Level(lt, model_age.alert, model_age.alarm);

@@ -20,6 +20,11 @@
 //   - data_age_s vs data_age_alert / data_age_alarm  -> alert / alarm
 //   - drift_ratio vs drift_alert / drift_alarm       -> alert / alarm
 //   - drift flag raised by the change test           -> alert
+//   - no sample scored for kUnscoredAlertLyapunovTimes Lyapunov times of
+//     data (kUnscoredAlertSteps model steps without a positive exponent)
+//     while a model is active: drift cannot be judged -> alert, with why
+//   - the last retrain found no usable training pairs while data arrive
+//     (training_blocked)                             -> alert, with why
 //   - since_training_lyapunov_times vs the model-age thresholds in force
 //     (ModelAgeInForce)                              -> alert / alarm
 // While paused (plant shutdown) only storage and the no-data / no-model
@@ -79,6 +84,12 @@ struct ModelAgeThresholds {
 };
 ModelAgeThresholds ModelAgeInForce(const HealthLevels& configured, const std::optional<RetrainCycle>& cycle);
 
+// Drift that cannot be judged is not "normal": a stretch this long without
+// a scored sample is an alert (common practice: a monitor that has not
+// seen its signal for several correlation times reports itself).
+inline constexpr double kUnscoredAlertLyapunovTimes = 5;
+inline constexpr double kUnscoredAlertSteps = 100;
+
 struct HealthInputs {
   bool has_data = false;           // any sample of the feed stored
   bool has_model = false;          // an active model
@@ -90,6 +101,14 @@ struct HealthInputs {
   // Data time since the model's training chunk, in Lyapunov times
   // (since_training_s * lambda_max); absent without a positive exponent.
   std::optional<double> since_training_lyapunov_times;
+  // Data time without a scored sample (DriftSnapshot::unscored_s), in
+  // Lyapunov times when the exponent is positive and in model steps; and why.
+  std::optional<double> unscored_lyapunov_times;
+  std::optional<double> unscored_steps;
+  std::string unscored_cause;
+  // The last retrain could not train for want of usable pairs while data
+  // arrive: why, in words; absent otherwise.
+  std::optional<std::string> training_blocked;
 };
 
 struct HealthResult {

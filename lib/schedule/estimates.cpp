@@ -7,6 +7,7 @@
 
 #include "chaos/lyapunov.h"
 #include "chaos/rosenstein.h"
+#include "learn/pairs.h"
 #include "physics/dynamics.h"
 
 namespace lyapcast {
@@ -41,19 +42,52 @@ Result<ExponentEstimate> DataExponent(const FeedConfig& feed, std::span<const Sa
   if (channel < 0 || channel >= static_cast<int>(feed.channels.size())) {
     return Status::Invalid(fmt::format("feed '{}' has no channel {}", feed.id, channel));
   }
-  std::vector<double> series;
-  series.reserve(samples.size());
-  for (const Sample& s : samples) {
-    if (!s.missing(channel)) series.push_back(s.values[static_cast<std::size_t>(channel)]);
+  // The estimator needs evenly spaced values: put the channel on a grid by
+  // the alignment rule training uses, spaced at the model step or, for data
+  // sparser than the step, at the whole number of steps nearest the median
+  // sample spacing, so the exponent is per second of real time whatever
+  // the sampling.
+  std::vector<Micros> gaps;
+  for (std::size_t i = 1; i < samples.size(); ++i) gaps.push_back(samples[i].t - samples[i - 1].t);
+  Micros spacing = feed.step;
+  if (!gaps.empty()) {
+    std::nth_element(gaps.begin(), gaps.begin() + static_cast<std::ptrdiff_t>(gaps.size() / 2), gaps.end());
+    const double ratio = static_cast<double>(gaps[gaps.size() / 2].count()) / static_cast<double>(feed.step.count());
+    spacing = std::max<std::int64_t>(1, std::llround(ratio)) * feed.step;
   }
+  const int channels = static_cast<int>(feed.channels.size());
+  const GridSeries grid = ResampleToGrid(samples, channels, {spacing, Micros{}, Micros{}});
+  // The newest run of grid values without a gap that is long enough for a
+  // steady estimate (kEnough values), else the longest run.
+  constexpr std::size_t kEnough = 1000;
+  const auto present = [&](std::size_t i) { return grid.present[i] && !((grid.mask[i] >> channel) & 1U); };
+  std::size_t best_begin = 0, best_end = 0;
+  for (std::size_t i = 0; i < grid.size();) {
+    if (!present(i)) {
+      ++i;
+      continue;
+    }
+    const std::size_t stop = grid.segment_end(i);
+    std::size_t j = i;
+    while (j < stop && present(j)) ++j;
+    if (j - i >= kEnough || j - i > best_end - best_begin) {
+      best_begin = i;
+      best_end = j;
+    }
+    i = j;
+  }
+  std::vector<double> series;
+  series.reserve(best_end - best_begin);
+  for (std::size_t i = best_begin; i < best_end; ++i) series.push_back(grid.row(i)[channel]);
   RosensteinOptions o;
   o.max_samples = max_samples;
   o.max_references = 1000;
-  auto r = RosensteinLargest(series, Seconds(feed.step), o);
+  auto r = RosensteinLargest(series, Seconds(spacing), o);
   if (!r.ok()) return r.status();
-  return ExponentEstimate{r->lambda, fmt::format("rosenstein on {}, lag {}, Theiler {}, fit [{}, {}), R^2 {:.3f}",
-                                                 feed.channels[static_cast<std::size_t>(channel)], r->lag, r->theiler,
-                                                 r->fit_begin, r->fit_end, r->r_squared)};
+  return ExponentEstimate{r->lambda,
+                          fmt::format("rosenstein on {} every {}, {} values, lag {}, Theiler {}, fit [{}, {}), R^2 {:.3f}",
+                                      feed.channels[static_cast<std::size_t>(channel)], FormatDuration(spacing),
+                                      series.size(), r->lag, r->theiler, r->fit_begin, r->fit_end, r->r_squared)};
 }
 
 }  // namespace lyapcast

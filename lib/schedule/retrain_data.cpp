@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 #include <random>
 
 namespace lyapcast {
@@ -38,6 +39,58 @@ void SplitHeldOut(const std::vector<Trajectory>& heldout, RetrainData* d) {
 
 }  // namespace
 
+std::string DiagnoseNoPairs(std::span<const Sample> window, const GridSeries& grid, const FeedConfig& feed) {
+  if (window.size() < 2) return "";
+  std::vector<Micros> gaps;
+  gaps.reserve(window.size() - 1);
+  for (std::size_t i = 1; i < window.size(); ++i) gaps.push_back(window[i].t - window[i - 1].t);
+  std::nth_element(gaps.begin(), gaps.begin() + static_cast<std::ptrdiff_t>(gaps.size() / 2), gaps.end());
+  const Micros median = gaps[gaps.size() / 2];
+  const double steps = static_cast<double>(median.count()) / static_cast<double>(feed.step.count());
+  if (std::llround(steps) > feed.model.max_gap) {
+    return fmt::format("samples are about {} apart ({} model steps of {}), more than model.max_gap {}: raise "
+                       "model.max_gap to at least {} or set the step to the sample period",
+                       FormatDuration(median), std::llround(steps), FormatDuration(feed.step), feed.model.max_gap,
+                       std::llround(steps));
+  }
+  // A channel absent from most grid states.
+  const int channels = static_cast<int>(feed.channels.size());
+  std::size_t present = 0, complete = 0;
+  std::vector<std::size_t> missing(static_cast<std::size_t>(channels), 0);
+  for (std::size_t i = 0; i < grid.size(); ++i) {
+    if (!grid.present[i]) continue;
+    ++present;
+    if (grid.mask[i] == 0) ++complete;
+    for (int c = 0; c < channels; ++c) missing[static_cast<std::size_t>(c)] += (grid.mask[i] >> c) & 1U;
+  }
+  if (present > 0 && complete * 10 < present) {
+    const auto worst = static_cast<std::size_t>(std::max_element(missing.begin(), missing.end()) - missing.begin());
+    return fmt::format("only {} of {} grid states have every channel; channel '{}' is missing from {} of them",
+                       complete, present, feed.channels[worst], missing[worst]);
+  }
+  // A channel that never moves.
+  for (int c = 0; c < channels; ++c) {
+    double first = std::numeric_limits<double>::quiet_NaN();
+    bool moves = false, seen = false;
+    for (const Sample& s : window) {
+      if (s.missing(c)) continue;
+      const double v = s.values[static_cast<std::size_t>(c)];
+      if (!seen) {
+        first = v;
+        seen = true;
+      } else if (v != first) {
+        moves = true;
+        break;
+      }
+    }
+    if (seen && !moves) {
+      return fmt::format("channel '{}' is constant ({:g}) over the window; it cannot be learned until it moves",
+                         feed.channels[static_cast<std::size_t>(c)], first);
+    }
+  }
+  return "";
+}
+
 RetrainData PrepareRetrainData(std::span<const Sample> window, const FeedConfig& feed,
                                const RetrainDataOptions& options) {
   const RetrainConfig& rc = feed.retrain;
@@ -70,8 +123,20 @@ RetrainData PrepareRetrainData(std::span<const Sample> window, const FeedConfig&
     if (static_cast<int>(set.train.size()) < rc.min_pairs) {
       d.not_enough = fmt::format("cold start waits for {} training pairs; the window holds {}", rc.min_pairs,
                                  set.train.size());
+      // Plenty of samples and still (almost) no pairs: something other
+      // than time is missing.
+      if (window.size() >= static_cast<std::size_t>(2 * rc.min_pairs) &&
+          static_cast<int>(set.train.size()) * 10 < rc.min_pairs) {
+        const std::string cause = DiagnoseNoPairs(window, d.grid, feed);
+        if (!cause.empty()) {
+          d.not_enough = fmt::format("{} samples give {} training pairs: {}", window.size(), set.train.size(), cause);
+          d.blocked = true;
+        }
+      }
     } else if (!d.normalization) {
-      d.not_enough = d.normalization_error;
+      const std::string cause = DiagnoseNoPairs(window, d.grid, feed);
+      d.not_enough = cause.empty() ? d.normalization_error : cause;
+      d.blocked = true;
     }
     d.train = std::move(set.train);
     return d;
@@ -80,6 +145,17 @@ RetrainData PrepareRetrainData(std::span<const Sample> window, const FeedConfig&
   if (d.train.empty()) {
     d.not_enough = fmt::format("no new training pairs since version {} (trained to {})", options.active_version,
                                FormatRfc3339(*options.active_trained_to));
+    // New samples that form no pair are a problem; no or few new samples
+    // (an outage, the first moments after one) are not. 50 fresh samples
+    // leave some 40 after the held-out share: pairs unless something is wrong.
+    constexpr std::ptrdiff_t kFreshEnough = 50;
+    const auto fresh = std::count_if(window.begin(), window.end(),
+                                     [&](const Sample& s) { return s.t > *options.active_trained_to; });
+    if (fresh >= kFreshEnough) {
+      const std::string cause = DiagnoseNoPairs(window, d.grid, feed);
+      d.not_enough += fmt::format(" although {} samples arrived since{}{}", fresh, cause.empty() ? "" : ": ", cause);
+      d.blocked = true;
+    }
   }
   return d;
 }

@@ -49,6 +49,10 @@ struct RetrainData {
   double dt = 1;  // model step in model time units
   // Empty when the job can train; otherwise why not (not enough data).
   std::string not_enough;
+  // Set with not_enough when the window holds data that yield no usable
+  // pairs (as opposed to a cold start still filling its window): a health
+  // reason at once, with the cause in not_enough.
+  bool blocked = false;
 };
 
 struct RetrainDataOptions {
@@ -57,6 +61,11 @@ struct RetrainDataOptions {
   std::int64_t active_version = 0;            // for messages
   std::uint64_t seed = 1;                  // the replay draw
 };
+
+// Why a window yields no usable training pairs, in words an operator can act
+// on: samples too sparse for model.max_gap, a channel missing from (nearly)
+// every state, a constant channel; empty when none of these explains it.
+std::string DiagnoseNoPairs(std::span<const Sample> window, const GridSeries& grid, const FeedConfig& feed);
 
 // `window`: the feed's samples before options.until, oldest first.
 RetrainData PrepareRetrainData(std::span<const Sample> window, const FeedConfig& feed,

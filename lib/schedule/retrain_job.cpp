@@ -113,6 +113,7 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
   const RetrainData data = PrepareRetrainData(in.window, feed, data_options);
   if (!data.not_enough.empty()) {
     out.reason = data.not_enough;
+    out.blocked = data.blocked;
     return out;
   }
 

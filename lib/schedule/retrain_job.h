@@ -57,6 +57,7 @@ struct RetrainOutcome {
   RetrainVerdict verdict = RetrainVerdict::kNotEnoughData;
   std::optional<std::int64_t> version;  // registry version (promoted or rejected)
   std::string reason;                   // in words, for logs and the API
+  bool blocked = false;                 // kNotEnoughData although data arrive (RetrainData::blocked)
   double candidate_error = std::numeric_limits<double>::quiet_NaN();
   double active_error = std::numeric_limits<double>::quiet_NaN();
   std::optional<double> lambda_max;     // the candidate's largest exponent, per second

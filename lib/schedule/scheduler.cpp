@@ -393,7 +393,9 @@ void Scheduler::FinishJob(const JobStart& start, const JobEstimates& estimates,
       case RetrainVerdict::kNotEnoughData:
         ++f.s.not_enough_data;
         retry_soon = true;
-        Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: job {}: {}", fc.id, job_id, o.reason));
+        done.blocked = o.blocked;
+        Log(o.blocked ? SchedulerLogLevel::kWarning : SchedulerLogLevel::kInfo,
+            fmt::format("feed {}: job {}: {}", fc.id, job_id, o.reason));
         break;
       case RetrainVerdict::kCancelled:
         Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: job {} cancelled (shutting down)", fc.id, job_id));
@@ -448,7 +450,10 @@ void Scheduler::ScheduleNextLocked(Feed& f, std::uint32_t, DataTime since, bool 
   if (!has_model && retry_soon) {
     const Micros interval = std::max(rc.min_interval, fc.step);
     f.s.next_due = since + interval;
-    f.s.next_reason = fmt::format("no model yet and too few pairs: retry after {}", FormatDuration(interval));
+    const bool blocked = f.s.last_job && f.s.last_job->blocked;
+    f.s.next_reason = blocked ? fmt::format("no model yet ({}): retry after {}", f.s.last_job->outcome,
+                                            FormatDuration(interval))
+                              : fmt::format("no model yet and too few pairs: retry after {}", FormatDuration(interval));
     return;
   }
   const CadenceDecision d = NextRetrain(rc, f.s.estimates, has_model, since);

@@ -91,6 +91,7 @@ struct JobInfo {
   std::optional<RetrainVerdict> verdict;  // when done without an error
   std::optional<std::int64_t> version;    // recorded version (promoted or rejected)
   std::string outcome;  // the verdict's reason, or the error
+  bool blocked = false;  // not_enough_data although data arrive: health says so (RetrainOutcome::blocked)
   int iterations = 0;
   double seconds = 0;  // wall time of the job
 };

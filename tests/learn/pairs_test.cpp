@@ -26,27 +26,113 @@ std::vector<Sample> Regular(int n, Micros t0 = Micros(1'000'000)) {
   return out;
 }
 
-TEST(ResampleToGrid, PutsJitteredSamplesOnTheirNearestGridPoint) {
-  // Jitter of 20 ms is within the default tolerance step/4 = 25 ms; 40 ms is not.
-  std::vector<Sample> s = {At(Micros{}, 0), At(kStep + Micros(20'000), 1), At(2 * kStep - Micros(20'000), 2), At(3 * kStep + Micros(40'000), 3),
-                           At(4 * kStep, 4)};
+TEST(ResampleToGrid, ReadsJitteredSamplesBetweenTheirNeighbours) {
+  // Samples at 0, 120, 180, 400 ms; step 100 ms, so interpolation spans up
+  // to 150 ms and the nearest-sample tolerance is 25 ms. Grid 0..400 ms:
+  //   0: exact 0;
+  //   100: between 0 (v 0) and 120 (v 1), span 120 -> 1 * 100/120 = 0.8333;
+  //   200: between 180 (v 2) and 400 (v 3), span 220 > 150; nearest 180 is
+  //        20 ms away -> 2;
+  //   300: same bracket, nearest is 120 ms away -> missing;
+  //   400: exact 3.
+  std::vector<Sample> s = {At(Micros{}, 0), At(kStep + Micros(20'000), 1), At(2 * kStep - Micros(20'000), 2),
+                           At(4 * kStep, 3)};
   const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});
   ASSERT_EQ(g.size(), 5u);
   EXPECT_EQ(g.t0, DataTime{});
+  EXPECT_EQ(g.segments(), 1u);
   EXPECT_EQ(g.present, (std::vector<std::uint8_t>{1, 1, 1, 0, 1}));
-  EXPECT_EQ(g.off_grid, 1);
+  EXPECT_NEAR(g.row(1)[0], 100.0 / 120.0, 1e-12);
+  EXPECT_NEAR(g.row(1)[1], -100.0 / 120.0, 1e-12);
   EXPECT_EQ(g.row(2)[0], 2.0);
-  EXPECT_EQ(g.row(2)[1], -2.0);
   EXPECT_TRUE(std::isnan(g.row(3)[0]));
+  EXPECT_EQ(g.mask[3], ~std::uint64_t{0});
+  EXPECT_EQ(g.row(4)[0], 3.0);
   EXPECT_EQ(g.time(4), DataTime{} + 4 * kStep);
+  EXPECT_EQ(g.interpolated, 2);  // two channels at 100 ms
+  EXPECT_EQ(g.nearest, 2);       // two channels at 200 ms
+  EXPECT_EQ(g.unused, 0);
 }
 
-TEST(ResampleToGrid, KeepsTheNearerOfTwoSamplesForOneGridPoint) {
-  std::vector<Sample> s = {At(Micros{}, 0), At(kStep - Micros(10'000), 1), At(kStep + Micros(5'000), 2)};
+TEST(ResampleToGrid, ASampleOffTheGridAfterAPauseReanchors) {
+  // 0, 100, then 340 ms: 240 ms after the previous sample (a pause longer
+  // than 150 ms) and 40 ms off the running grid (> 25 ms): a new segment.
+  std::vector<Sample> s = {At(Micros{}, 0), At(kStep, 1), At(Micros(340'000), 2), At(Micros(440'000), 3)};
   const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});
-  ASSERT_EQ(g.size(), 2u);
-  EXPECT_EQ(g.collisions, 1);
-  EXPECT_EQ(g.row(1)[0], 2.0);
+  ASSERT_EQ(g.size(), 4u);
+  EXPECT_EQ(g.segment_begins, (std::vector<std::size_t>{0, 2}));
+  EXPECT_EQ(g.time(2), DataTime{} + Micros(340'000));
+  EXPECT_EQ(g.row(3)[0], 3.0);
+}
+
+TEST(ResampleToGrid, OversampledDataAreReadAtEveryStep) {
+  // Five samples per step (every 20 ms, value = time in ms), offset by 7 ms
+  // from the first one's grid... the grid anchors at the first sample, so
+  // grid points fall 100 ms apart from 7 ms and each is read between the
+  // two samples bracketing it: the value equals the time exactly.
+  std::vector<Sample> s;
+  for (int k = 0; k < 51; ++k) s.push_back(At(Micros(7'000 + 20'000 * k), 7.0 + 20.0 * k));
+  const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});
+  ASSERT_EQ(g.size(), 11u);  // 7 ms .. 1007 ms
+  EXPECT_EQ(g.segments(), 1u);
+  for (std::size_t i = 0; i < g.size(); ++i) {
+    EXPECT_TRUE(g.complete(i));
+    EXPECT_NEAR(g.row(i)[0], 7.0 + 100.0 * static_cast<double>(i), 1e-9);
+  }
+}
+
+TEST(ResampleToGrid, APhaseShiftAfterAnOutageStartsANewSegment) {
+  // 0..4 steps, an outage, then samples resume half a step off the old grid
+  // (at 20.5 steps). The old grid would put every later sample 50 ms from a
+  // grid point (off the grid); a new segment anchored at 20.5 steps keeps
+  // them all.
+  std::vector<Sample> s;
+  for (int i = 0; i < 5; ++i) s.push_back(At(i * kStep, i));
+  for (int i = 0; i < 10; ++i) s.push_back(At(20 * kStep + kStep / 2 + i * kStep, 100 + i));
+  const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});
+  ASSERT_EQ(g.segments(), 2u);
+  EXPECT_EQ(g.segment_begins[1], 5u);
+  ASSERT_EQ(g.size(), 15u);
+  EXPECT_EQ(g.time(5), DataTime{} + 20 * kStep + kStep / 2);
+  EXPECT_EQ(g.segment_end(0), 5u);
+  EXPECT_EQ(g.segment_end(7), 15u);
+  for (std::size_t i = 0; i < g.size(); ++i) EXPECT_TRUE(g.complete(i)) << i;
+  EXPECT_EQ(g.unused, 0);
+  // Trajectories never cross the boundary: 4 (last of the first segment) has none.
+  const TrajectorySet t = BuildTrajectories(g, {1, 8, 0.0});
+  ASSERT_EQ(t.train.size(), 13u);  // 0..3 and 5..13
+  for (const Trajectory& tr : t.train) EXPECT_NE(tr.start, 4);
+}
+
+TEST(ResampleToGrid, SparseDataLandOnEveryFifthStep) {
+  // One sample every 5 steps with +-10 ms jitter: nothing to interpolate
+  // (brackets span 500 ms), each sample is the nearest to its grid point,
+  // and the four steps between are gaps trained through G^5.
+  std::vector<Sample> s;
+  for (int i = 0; i < 6; ++i) s.push_back(At(5 * i * kStep + Micros(i % 2 == 0 ? 10'000 : -10'000), i));
+  const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});
+  EXPECT_EQ(g.segments(), 1u);
+  ASSERT_EQ(g.size(), 26u);
+  for (std::size_t i = 0; i < g.size(); ++i) EXPECT_EQ(g.present[i] != 0, i % 5 == 0) << i;
+  const TrajectorySet t = BuildTrajectories(g, {1, 8, 0.0});
+  ASSERT_EQ(t.train.size(), 5u);
+  EXPECT_EQ(t.train[0].horizon, 5);
+  EXPECT_EQ(t.gap_pairs, 5);
+}
+
+TEST(ResampleToGrid, ASlowlyDriftingClockNeverLosesDenseData) {
+  // A logger whose clock runs 1 % slow: samples every 101 ms. After 25
+  // samples they are a quarter step off the grid laid at the first one;
+  // dense data are read between samples, so every grid point is formed.
+  std::vector<Sample> s;
+  for (int k = 0; k < 200; ++k) s.push_back(At(Micros(101'000 * k), k));
+  const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});
+  EXPECT_EQ(g.segments(), 1u);
+  ASSERT_EQ(g.size(), 202u);  // 0 .. 20.1 s; the last point is 1 ms past the last sample
+  for (std::size_t i = 0; i + 1 < g.size(); ++i) {
+    ASSERT_TRUE(g.complete(i)) << i;
+    EXPECT_NEAR(g.row(i)[0], static_cast<double>(i) * 100.0 / 101.0, 1e-9);
+  }
 }
 
 TEST(ResampleToGrid, CarriesMissingChannelMasks) {

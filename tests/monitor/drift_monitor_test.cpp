@@ -89,21 +89,77 @@ TEST(DriftMonitor, NormalizedErrorsByHand) {
   EXPECT_TRUE(d.warming_up);
 }
 
-TEST(DriftMonitor, OnlyConsecutiveSamplesAfterACompleteOneAreScored) {
+TEST(DriftMonitor, ScoresFromTheStateFormedOneOrMoreStepsBefore) {
+  // Step 0.5 s: states are formed by interpolation across up to 0.75 s,
+  // else from the nearest sample within 0.125 s (learn/alignment.h).
   DriftMonitor m(Feed());
   ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 1, 0.1, kT0 - 10 * kStep, kWall0).ok());
-  Observe(m, At(0, {1.0, 1.0}));
-  EXPECT_FALSE(Observe(m, At(2, {1.0, 1.0})).scored) << "a gap of one missing step";
-  EXPECT_TRUE(Observe(m, At(3.01, {1.0, 1.0})).scored) << "1 % jitter is one step";
-  EXPECT_FALSE(Observe(m, At(4.03, {1.0, 1.0})).scored) << "2 % is not";
-  EXPECT_FALSE(Observe(m, At(4.53, {1.0, 1.0})).scored) << "half a step";
-  EXPECT_TRUE(Observe(m, At(5.53, {1.0, kNaN})).scored) << "consecutive, one channel present";
-  EXPECT_FALSE(Observe(m, At(6.53, {1.0, 1.0})).scored) << "after an incomplete sample";
-  EXPECT_FALSE(Observe(m, At(7.53, {kNaN, kNaN})).scored) << "nothing present";
-  EXPECT_FALSE(Observe(m, At(8.53, {1.0, 1.0})).scored) << "after an empty sample";
-  EXPECT_TRUE(Observe(m, At(9.53, {1.0, 1.0})).scored);
-  EXPECT_EQ(m.Snapshot(kWall0).scored, 3);
-  EXPECT_EQ(*m.Snapshot(kWall0).last_error, 0.0) << "G(x) = x on a constant series";
+  EXPECT_FALSE(Observe(m, At(0, {1.0, 1.0})).scored) << "nothing before it";
+  EXPECT_TRUE(Observe(m, At(2, {1.0, 1.0})).scored) << "a missing step: from sample 0 through G^2";
+  EXPECT_TRUE(Observe(m, At(3.1, {1.0, 1.0})).scored) << "10 % late: the state at 2.1 is sample 2 (50 ms away)";
+  EXPECT_TRUE(Observe(m, At(3.6, {1.0, 1.0})).scored) << "half a step on: the state at 2.6 is read between 2 and 3.1";
+  EXPECT_TRUE(Observe(m, At(4.6, {1.0, kNaN})).scored) << "one channel present";
+  EXPECT_TRUE(Observe(m, At(5.6, {1.0, 1.0})).scored) << "the state at 4.6 lacks b: from 3.6 through G^2";
+  EXPECT_FALSE(Observe(m, At(6.6, {kNaN, kNaN})).scored) << "nothing present";
+  EXPECT_TRUE(Observe(m, At(7.6, {1.0, 1.0})).scored) << "from 5.6 through G^2";
+  DriftSnapshot d = m.Snapshot(kWall0);
+  EXPECT_EQ(d.scored, 6);
+  EXPECT_EQ(d.scored_multi, 3);
+  EXPECT_EQ(*d.last_error, 0.0) << "G(x) = x on a constant series";
+  EXPECT_DOUBLE_EQ(*d.unscored_s, 0.0);
+  // 22.4 steps later: nothing within max_gap (8) steps before it.
+  EXPECT_FALSE(Observe(m, At(30, {1.0, 1.0})).scored);
+  d = m.Snapshot(kWall0);
+  EXPECT_NEAR(*d.unscored_s, 22.4 * 0.5, 1e-9);
+  EXPECT_EQ(d.unscored_cause, "no sample in the 8 steps of 500ms before the newest one") << d.unscored_cause;
+}
+
+TEST(DriftMonitor, SparseDataAreScoredThroughTheirStepCountAndSaidWhenTooSparse) {
+  // One sample every 5 steps: scored through G^5, every time.
+  DriftMonitor m(Feed());
+  ASSERT_TRUE(m.SetModel(ShiftModel({0.1f, 0.0f}), 1, 0.1, kT0 - kStep, kWall0).ok());
+  for (int k = 0; k < 10; ++k) {
+    // G^5 adds 0.5 to channel a; the samples do too, so e = 0 once scored.
+    const auto o = Observe(m, At(5 * k, {0.5 * k, 1.0}));
+    EXPECT_EQ(o.scored, k > 0) << k;
+    if (o.scored) {
+      EXPECT_NEAR(o.error, 0.0, 1e-6);
+    }
+  }
+  EXPECT_EQ(m.Snapshot(kWall0).scored_multi, 9);
+  // Every 10 steps with max_gap 8: never scored, and the snapshot says why.
+  DriftMonitor sparse(Feed());
+  ASSERT_TRUE(sparse.SetModel(ShiftModel({0.0f, 0.0f}), 1, 0.1, kT0 - kStep, kWall0).ok());
+  for (int k = 0; k < 10; ++k) EXPECT_FALSE(Observe(sparse, At(10 * k, {1.0, 1.0})).scored);
+  const DriftSnapshot d = sparse.Snapshot(kWall0);
+  EXPECT_NEAR(*d.unscored_s, 91 * 0.5, 1e-9) << "from trained_to, one step before the first sample";
+  EXPECT_EQ(d.unscored_cause, "samples are about 5s apart, more than model.max_gap 8 steps of 500ms") << d.unscored_cause;
+}
+
+TEST(DriftMonitor, ShuffledArrivalsAreScoredOnceTheirPastIsThere) {
+  DriftMonitor m(Feed());
+  ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 1, 0.1, kT0 - kStep, kWall0).ok());
+  // Arrival order 0, 2, 1, 4, 3, 5: every sample but the first gets a score
+  // (2 first through G^2 from 0; 1 when it comes; 4 through G^2 from 2; 3
+  // when it comes; 5 from 4).
+  int scored = 0;
+  for (int k : {0, 2, 1, 4, 3, 5}) scored += Observe(m, At(k, {1.0, 1.0})).scored ? 1 : 0;
+  EXPECT_EQ(scored, 5);
+  const DriftSnapshot d = m.Snapshot(kWall0);
+  EXPECT_EQ(d.scored, 5);
+  EXPECT_EQ(d.scored_late, 2);
+}
+
+TEST(DriftMonitor, ALateSampleMakesAWaitingNewerOneScorable) {
+  DriftMonitor m(Feed());
+  ASSERT_TRUE(m.SetModel(ShiftModel({0.0f, 0.0f}), 1, 0.1, kT0 - kStep, kWall0).ok());
+  EXPECT_FALSE(Observe(m, At(0, {1.0, kNaN})).scored);
+  EXPECT_FALSE(Observe(m, At(1, {1.0, 1.0})).scored) << "the state before it is incomplete";
+  // The other channel of the row at 0 arrives from a second source: the
+  // row is merged, and the sample at 1 is scored now.
+  const auto merged = Observe(m, At(0, {kNaN, 1.0}));
+  EXPECT_FALSE(merged.scored) << "the merged row itself has nothing before it";
+  EXPECT_EQ(m.Snapshot(kWall0).scored, 1) << "the sample at 1 was scored";
 }
 
 TEST(DriftMonitor, ValuesBeyondFloatRangeDoNotPoisonTheFigures) {

@@ -93,6 +93,10 @@ Result<FeedSimulator> FeedSimulator::Create(const FeedConfig& feed, Dynamics dyn
     return Status::Invalid(fmt::format("feed '{}': the gap rate must be in [0, 1) and the missing rate in [0, 1]",
                                        feed.id));
   }
+  if (!(o.jitter >= 0 && o.jitter <= 0.4)) {
+    return Status::Invalid(fmt::format("feed '{}': the jitter must be in [0, 0.4] (a fraction of the step); got {}",
+                                       feed.id, o.jitter));
+  }
   for (const ParameterChange& c : o.changes) {
     if (!dynamics.constant(c.name)) {
       return Status::Invalid(fmt::format("feed '{}': '{}' is not a constant of its dynamics", feed.id, c.name));
@@ -139,11 +143,21 @@ Result<FeedSimulator::Step> FeedSimulator::Next() {
   }
   const std::size_t dim = s.reading.size();
   if (s.rng.Uniform() >= o.gap_rate) {
-    for (std::size_t c = 0; c < dim; ++c) s.reading[c] = s.x[static_cast<Eigen::Index>(c)] + o.noise[c] * s.rng.Normal();
+    // Jitter draws come only when asked for, so jitter-free runs stay as they were.
+    const double jitter = o.jitter > 0 ? std::clamp(o.jitter * s.rng.Normal(), -0.45, 0.45) : 0.0;
+    const Micros shift(std::llround(jitter * static_cast<double>(step_.count())));
+    Eigen::VectorXd at = s.x;
+    if (shift != Micros{}) {
+      // Whole RK4 substeps of at most h toward the stamped time; Rk4Step takes negative steps too.
+      const double span = s.model_step * static_cast<double>(shift.count()) / static_cast<double>(step_.count());
+      const auto n = static_cast<int>(std::ceil(std::abs(span) / s.h));
+      for (int k = 0; k < n; ++k) Rk4Step(s.f, at, span / n);
+    }
+    for (std::size_t c = 0; c < dim; ++c) s.reading[c] = at[static_cast<Eigen::Index>(c)] + o.noise[c] * s.rng.Normal();
     std::uint64_t missing = 0;
     if (o.missing_rate > 0 && s.rng.Uniform() < o.missing_rate && dim > 1) missing = std::uint64_t{1} << s.rng.Below(dim);
     out.kept = true;
-    out.line = FormatLine(o.format, feed_id_, s.channels, o.start + out.offset, s.reading, missing);
+    out.line = FormatLine(o.format, feed_id_, s.channels, o.start + out.offset + shift, s.reading, missing);
     ++kept_;
   }
   s.x = IntegrateRk4(s.f, s.x, s.model_step, s.h);

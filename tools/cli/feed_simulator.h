@@ -43,6 +43,11 @@ struct FeedSimulatorOptions {
   std::vector<double> noise;  // noise std per channel, in channel units; empty = none
   double gap_rate = 0;        // [0, 1): probability that a step's sample is dropped
   double missing_rate = 0;    // [0, 1]: probability that one random channel is missing (needs >= 2 channels)
+  // [0, 0.4]: timestamp jitter, the std of each sample's offset from its
+  // step as a fraction of the step (normal, cut at +-0.45 so order holds);
+  // the reading is the true state at the stamped time, as when a logger
+  // samples a little early or late and stamps the moment it sampled.
+  double jitter = 0;
   std::vector<ParameterChange> changes;  // each names a constant of the dynamics; applied in this order
   std::uint64_t seed = 1;   // seed of noise, gaps and missing channels
   SampleFormat format = SampleFormat::kCsv;

@@ -162,10 +162,10 @@ int RunScore(const ScoreArgs& a) {
     }
   }
   std::fprintf(stderr,
-               "feed %s: %zu samples in %s on a %zu-point grid of step %s (%lld off the grid, %lld collisions), "
+               "feed %s: %zu samples in %s on a %zu-point grid of step %s in %zu segment(s) (%lld samples unused, %lld values interpolated), "
                "%lld one-step pairs, %lld complete states without a sample one step on\n",
                feed.id.c_str(), all.size(), range.c_str(), grid.size(), FormatDuration(grid.step).c_str(),
-               static_cast<long long>(grid.off_grid), static_cast<long long>(grid.collisions),
+               grid.segments(), static_cast<long long>(grid.unused), static_cast<long long>(grid.interpolated),
                static_cast<long long>(pairs), static_cast<long long>(set.skipped_gaps));
   if (samples->other_feeds > 0) {
     std::fprintf(stderr, "skipped %lld lines of other feeds\n", static_cast<long long>(samples->other_feeds));

@@ -28,7 +28,7 @@ struct SimulateArgs {
   std::string config, feed, from, step, duration, start, transient = "0s", out = "-", format = "csv", send, token_file;
   std::string noise, scenario;
   std::vector<std::string> changes;
-  double gap_rate = 0, missing_rate = 0, speed = 0;
+  double gap_rate = 0, missing_rate = 0, jitter = 0, speed = 0;
   std::uint64_t seed = 1;
   std::vector<std::string> single_feed_flags;  // those given, e.g. {"--feed", "--seed"}
 };
@@ -146,6 +146,7 @@ int RunSingleFeed(const SimulateArgs& a) {
   o.seed = a.seed;
   o.gap_rate = a.gap_rate;
   o.missing_rate = a.missing_rate;
+  o.jitter = a.jitter;
   if (!a.from.empty()) {
     auto v = ParseNumberList(a.from, dim, "--from");
     if (!v.ok()) return PrintError(kCmd, v.status().message()), kExitUsage;
@@ -181,6 +182,10 @@ int RunSingleFeed(const SimulateArgs& a) {
   }
   if (a.gap_rate < 0 || a.gap_rate >= 1 || a.missing_rate < 0 || a.missing_rate > 1) {
     return PrintError(kCmd, "--gap-rate must be in [0, 1) and --missing-rate in [0, 1]"), kExitUsage;
+  }
+  if (!(a.jitter >= 0 && a.jitter <= 0.4)) {
+    return PrintError(kCmd, fmt::format("--jitter must be in [0, 0.4] (a fraction of the step); got {}", a.jitter)),
+           kExitUsage;
   }
 
   Sink sink;
@@ -240,6 +245,7 @@ Result<FeedSimulatorOptions> ScenarioOptions(const Scenario& scenario, std::size
   o.step = sf.step.value_or(Micros{});
   o.gap_rate = sf.gap_rate;
   o.missing_rate = sf.missing_rate;
+  o.jitter = sf.jitter;
   if (!sf.from.empty() && sf.from.size() != dim) {
     return Status::Invalid(fmt::format("{}: feed '{}' has {} channels ({}); give one number per channel, got {}",
                                        scenario.Where(i, "from", sf.lines.from), feed.id, dim, channels(),
@@ -403,7 +409,7 @@ void AddSimulateCommand(CLI::App& app, int* exit_code) {
       "CSV or NDJSON lines in the ingest format, to a file, stdout, or a daemon's ingest port.\n"
       "With --scenario, one process simulates every feed of a scenario file over the same data time (same start)\n"
       "and merges their samples in time order; the file sets each feed's seed, transient, from, step, noise,\n"
-      "gap_rate, missing_rate and changes (see config/demo-scenario.yaml), so those flags and --feed are refused.\n"
+      "gap_rate, missing_rate, jitter and changes (see config/demo-scenario.yaml), so those flags and --feed are refused.\n"
       "Examples:\n"
       "  lyapcast simulate --config config/demo.yaml --feed loop-a --duration 30m --noise 0.02 > loop.csv\n"
       "  lyapcast simulate -c config/demo.yaml --feed loop-a --duration 1h --change ra=35@20m --gap-rate 0.05 \\\n"
@@ -413,7 +419,7 @@ void AddSimulateCommand(CLI::App& app, int* exit_code) {
   cmd->add_option("--config,-c", args->config, "config file defining the feeds")->required();
   cmd->add_option("--scenario", args->scenario,
                   "scenario file: simulate every feed it lists, merged in time order; it replaces --feed, --from, "
-                  "--transient, --step, --noise, --gap-rate, --missing-rate, --change and --seed");
+                  "--transient, --step, --noise, --gap-rate, --missing-rate, --jitter, --change and --seed");
   std::vector<CLI::Option*> single;
   single.push_back(cmd->add_option("--feed", args->feed, "feed id (may be left out when the config has one feed)"));
   single.push_back(cmd->add_option("--from", args->from, "initial state, one number per channel (default all 1)"));
@@ -428,6 +434,9 @@ void AddSimulateCommand(CLI::App& app, int* exit_code) {
   single.push_back(cmd->add_option("--gap-rate", args->gap_rate, "probability that a sample is dropped (default 0)"));
   single.push_back(cmd->add_option("--missing-rate", args->missing_rate,
                                    "probability that one random channel is missing (default 0)"));
+  single.push_back(cmd->add_option("--jitter", args->jitter,
+                                   "timestamp jitter: std of each sample's offset from its step, as a fraction of the "
+                                   "step, in [0, 0.4]; the reading is the state at the stamped time (default 0)"));
   single.push_back(cmd->add_option(
       "--change", args->changes,
       "parameter change, repeatable: NAME=VALUE@T (step) or NAME=A..B@T1..T2 (ramp); T from the start"));

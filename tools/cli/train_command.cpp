@@ -63,9 +63,9 @@ int RunTrain(const TrainArgs& a) {
   topt.validation = a.validation.value_or(feed.retrain.validation);
   const TrajectorySet set = BuildTrajectories(grid, topt);
   std::fprintf(stderr,
-               "feed %s: %zu samples on a %zu-point grid (%lld off the grid), %zu training and %zu validation "
+               "feed %s: %zu samples on a %zu-point grid in %zu segment(s) (%lld samples unused), %zu training and %zu validation "
                "trajectories (%lld across gaps, %lld gaps too long to bridge)\n",
-               feed.id.c_str(), file->samples.size(), grid.size(), static_cast<long long>(grid.off_grid),
+               feed.id.c_str(), file->samples.size(), grid.size(), grid.segments(), static_cast<long long>(grid.unused),
                set.train.size(), set.validation.size(), static_cast<long long>(set.gap_pairs),
                static_cast<long long>(set.skipped_gaps));
   auto norm = ComputeNormalization(grid, set.validation_begin, dt, topt.max_gap);

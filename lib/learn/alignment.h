@@ -1,0 +1,128 @@
+// Alignment: how a channel's value at a chosen time is formed from samples
+// that arrive with jitter, at another rate than the model step, or with a
+// different sampling phase after an outage. Training (ResampleToGrid in
+// learn/pairs.h) and the drift monitor (monitor/drift_monitor.h) both use
+// this one rule, so what the model is trained on and what it is scored on
+// are the same kind of state.
+//
+// The rule, per channel, for a time `at`, with a the newest sample at or
+// before `at` holding the channel and b the oldest at or after it:
+//   1. a.t == at or b.t == at: that sample's value (an on-grid sample is
+//      taken as it is);
+//   2. else, when both exist and b.t - a.t <= max_span: the linear
+//      interpolation between them. Dense data (sampled at or faster than
+//      the step, jittered or not, any phase) are read between their
+//      neighbours; interpolation error is about (b.t - a.t)^2 / 8 times the
+//      second derivative, far below what a jitter of a few per cent of the
+//      step costs when the value is taken as if it were on time;
+//   3. else the nearer of a and b when within `tolerance` of `at` (sparse
+//      data: samples several steps apart are taken at the nearest step, not
+//      blended across a span the model has to predict);
+//   4. else missing.
+//
+// Pure functions; thread-safe.
+#pragma once
+
+#include <algorithm>
+#include <cstdint>
+#include <limits>
+
+#include "core/data_time.h"
+#include "core/sample.h"
+
+namespace lyapcast {
+
+struct AlignmentOptions {
+  Micros step{};       // the model step; > 0
+  Micros tolerance{};  // nearest-sample tolerance; 0 means step / 4
+  Micros max_span{};   // widest bracket interpolated across; 0 means 3 * step / 2
+
+  Micros tolerance_or_default() const { return tolerance > Micros{} ? tolerance : step / 4; }
+  Micros max_span_or_default() const { return max_span > Micros{} ? max_span : step * 3 / 2; }
+};
+
+// One observation of one channel.
+struct ChannelPoint {
+  DataTime t{};
+  double value = 0;
+};
+
+// How a value was formed (for counts and for saying so in a response).
+enum class Formed { kMissing, kExact, kInterpolated, kNearest };
+
+struct FormedValue {
+  Formed how = Formed::kMissing;
+  double value = 0;  // meaningful unless how == kMissing
+};
+
+// The rule above for one channel; `a` and `b` are its bracketing
+// observations (a->t <= at <= b->t), either may be null.
+FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, const AlignmentOptions& options);
+
+// The state at `at` from `samples`, a sequence sorted by strictly increasing
+// time with operator[] and size() (a std::vector<Sample>, a span, or a ring
+// buffer's view), each sample's values sized `channels`. Writes one value per
+// channel to out[0..channels) (NaN where missing) and returns the missing
+// mask (bit c set: channel c could not be formed). Looks no further from
+// `at` than max(max_span, tolerance). O(log n + samples within that reach).
+template <typename Sorted>
+std::uint64_t StateAt(const Sorted& samples, DataTime at, int channels, const AlignmentOptions& options,
+                      double* out);
+
+// ---- implementation of the template ----
+
+namespace alignment_detail {
+std::int64_t UpperBoundByTime(std::int64_t n, DataTime at, const auto& time_of) {
+  std::int64_t lo = 0, hi = n;  // first index with time > at
+  while (lo < hi) {
+    const std::int64_t mid = lo + (hi - lo) / 2;
+    if (time_of(mid) <= at) {
+      lo = mid + 1;
+    } else {
+      hi = mid;
+    }
+  }
+  return lo;
+}
+}  // namespace alignment_detail
+
+template <typename Sorted>
+std::uint64_t StateAt(const Sorted& samples, DataTime at, int channels, const AlignmentOptions& options,
+                      double* out) {
+  const auto n = static_cast<std::int64_t>(samples.size());
+  const Micros reach = std::max(options.max_span_or_default(), options.tolerance_or_default());
+  const std::int64_t first_after =
+      alignment_detail::UpperBoundByTime(n, at, [&](std::int64_t i) { return samples[i].t; });
+  std::uint64_t missing = 0;
+  for (int c = 0; c < channels; ++c) {
+    ChannelPoint a, b;
+    bool has_a = false, has_b = false;
+    for (std::int64_t i = first_after - 1; i >= 0 && at - samples[i].t <= reach; --i) {
+      const Sample& s = samples[i];
+      if (s.missing(c) || static_cast<int>(s.values.size()) <= c) continue;
+      a = {s.t, s.values[static_cast<std::size_t>(c)]};
+      has_a = true;
+      break;
+    }
+    // An exact hit is the sample just before first_after; b is only needed otherwise.
+    if (!(has_a && a.t == at)) {
+      for (std::int64_t i = first_after; i < n && samples[i].t - at <= reach; ++i) {
+        const Sample& s = samples[i];
+        if (s.missing(c) || static_cast<int>(s.values.size()) <= c) continue;
+        b = {s.t, s.values[static_cast<std::size_t>(c)]};
+        has_b = true;
+        break;
+      }
+    }
+    const FormedValue v = ValueAt(has_a ? &a : nullptr, has_b ? &b : nullptr, at, options);
+    if (v.how == Formed::kMissing) {
+      missing |= std::uint64_t{1} << c;
+      out[c] = std::numeric_limits<double>::quiet_NaN();
+    } else {
+      out[c] = v.value;
+    }
+  }
+  return missing;
+}
+
+}  // namespace lyapcast
