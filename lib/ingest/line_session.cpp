@@ -22,7 +22,7 @@ LineSessionOptions WithDefaults(LineSessionOptions o) {
 std::string_view DescribeWriteReject(RejectReason reason) {
   switch (reason) {
     case RejectReason::kTooOld: return "sample is older than the feed's newest sample minus storage.retention";
-    case RejectReason::kDuplicateTime: return "a different sample of this feed is already stored at this time";
+    case RejectReason::kDuplicateTime: return "a channel of this feed is already stored at this time with a different value";
     case RejectReason::kStorageUnavailable:
       return "the store cannot commit right now (disk full or I/O error); resend later";
     case RejectReason::kShuttingDown: return "the daemon is shutting down; resend after it restarts";

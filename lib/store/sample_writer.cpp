@@ -227,8 +227,9 @@ void SampleWriter::ScreenGroup(std::vector<Submission>& group, GroupWork& w) {
 
 bool SampleWriter::StoreCandidates(GroupWork& w, CommittedBatch* batch) {
   std::vector<InsertOutcome> inserted;
+  std::vector<Sample> merged;
   const auto started = Clock::now();
-  const Status status = store_->InsertBatch(w.candidates, &inserted);
+  const Status status = store_->InsertBatch(w.candidates, &inserted, &merged);
   const double seconds = std::chrono::duration<double>(Clock::now() - started).count();
   if (!status.ok()) {
     // The whole group shares the failed transaction's fate: nothing of it
@@ -262,6 +263,13 @@ bool SampleWriter::StoreCandidates(GroupWork& w, CommittedBatch* batch) {
         batch->samples.push_back(std::move(w.candidates[k]));
         break;
       }
+      case InsertOutcome::kMerged:
+        // Subscribers see the whole row as stored now (the channels it
+        // had plus this sample's), so a row completed by a second source
+        // is a complete state for them.
+        w.results[i][j] = Accepted();
+        batch->samples.push_back({w.candidates[k].feed, std::move(merged[k])});
+        break;
       case InsertOutcome::kDuplicateSame:
         w.results[i][j] = Accepted();
         break;

@@ -253,6 +253,7 @@ struct WindowStore::Statements {
   Stmt insert_feed;
   Stmt insert_sample;
   Stmt select_sample;
+  Stmt update_sample;
   Stmt prune_find;
   Stmt prune_delete_before;
   Stmt prune_delete_through;
@@ -335,6 +336,7 @@ Status WindowStore::PrepareStatements() {
        "INSERT INTO samples(feed_id, t_us, mask, vals) VALUES(?1, ?2, ?3, ?4) "
        "ON CONFLICT(feed_id, t_us) DO NOTHING"},
       {&stmts->select_sample, "SELECT mask, vals FROM samples WHERE feed_id = ?1 AND t_us = ?2"},
+      {&stmts->update_sample, "UPDATE samples SET mask = ?3, vals = ?4 WHERE feed_id = ?1 AND t_us = ?2"},
       {&stmts->prune_find,
        "SELECT t_us FROM samples WHERE feed_id = ?1 AND t_us < ?2 ORDER BY t_us LIMIT 1 OFFSET ?3"},
       {&stmts->prune_delete_before, "DELETE FROM samples WHERE feed_id = ?1 AND t_us < ?2"},
@@ -481,8 +483,10 @@ Status WindowStore::RegisterFeeds(const std::vector<FeedLayout>& feeds) {
   return Status::Ok();
 }
 
-Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes) {
+Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes,
+                                std::vector<Sample>* merged) {
   if (outcomes != nullptr) outcomes->clear();
+  if (merged != nullptr) merged->assign(samples.size(), Sample{});
   // Validate everything before writing so a bad sample cannot half-store a batch.
   for (size_t i = 0; i < samples.size(); ++i) {
     const FeedSample& fs = samples[i];
@@ -521,19 +525,53 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
       result.push_back(InsertOutcome::kInserted);
       continue;
     }
-    // DO NOTHING fired: compare with the row already stored at that time.
-    sqlite::ResetOnExit reset(st.select_sample);
-    st.select_sample.BindInt(1, feed_id);
-    st.select_sample.BindTime(2, fs.sample.t);
-    const int rc = st.select_sample.Step();
-    if (rc != SQLITE_ROW) {
-      if (rc == SQLITE_DONE) return Status::Internal(fmt::format("{}: insert ignored but no row stored", what));
-      return sqlite::Error(db_, rc, what);
+    // DO NOTHING fired: merge with the row already stored at that time.
+    const int channels = channel_counts_[fs.feed];
+    Sample row;
+    row.t = fs.sample.t;
+    {
+      sqlite::ResetOnExit reset(st.select_sample);
+      st.select_sample.BindInt(1, feed_id);
+      st.select_sample.BindTime(2, fs.sample.t);
+      const int rc = st.select_sample.Step();
+      if (rc != SQLITE_ROW) {
+        if (rc == SQLITE_DONE) return Status::Internal(fmt::format("{}: insert ignored but no row stored", what));
+        return sqlite::Error(db_, rc, what);
+      }
+      if (!DecodeValues(st.select_sample.ColumnBlob(1), static_cast<std::uint64_t>(st.select_sample.ColumnInt(0)),
+                        channels, &row)) {
+        return Status::Internal(fmt::format("{}: the row stored at {} does not decode", what, FormatRfc3339(row.t)));
+      }
     }
-    const std::span<const unsigned char> stored = st.select_sample.ColumnBlob(1);
-    const bool same = st.select_sample.ColumnInt(0) == mask && stored.size() == vals.size() &&
-                      (vals.empty() || std::memcmp(stored.data(), vals.data(), vals.size()) == 0);
-    result.push_back(same ? InsertOutcome::kDuplicateSame : InsertOutcome::kDuplicateConflict);
+    bool conflict = false, adds = false;
+    for (int c = 0; c < channels; ++c) {
+      if (fs.sample.missing(c)) continue;
+      const double v = fs.sample.values[static_cast<std::size_t>(c)];
+      if (row.missing(c)) {
+        adds = true;
+        row.values[static_cast<std::size_t>(c)] = v;
+        row.missing_mask &= ~(std::uint64_t{1} << c);
+      } else if (std::bit_cast<std::uint64_t>(row.values[static_cast<std::size_t>(c)]) !=
+                 std::bit_cast<std::uint64_t>(v)) {
+        conflict = true;
+      }
+    }
+    if (conflict || !adds) {
+      result.push_back(conflict ? InsertOutcome::kDuplicateConflict : InsertOutcome::kDuplicateSame);
+      continue;
+    }
+    EncodeValues(row, channels, &vals);
+    {
+      sqlite::ResetOnExit update_reset(st.update_sample);
+      st.update_sample.BindInt(1, feed_id);
+      st.update_sample.BindTime(2, row.t);
+      st.update_sample.BindInt(3, static_cast<std::int64_t>(row.missing_mask));
+      st.update_sample.BindBlob(4, vals);
+      const int urc = st.update_sample.Step();
+      if (urc != SQLITE_DONE) return sqlite::Error(db_, urc, what);
+    }
+    result.push_back(InsertOutcome::kMerged);
+    if (merged != nullptr) (*merged)[result.size() - 1] = std::move(row);
   }
   if (Status s = txn.Commit(st.commit, what); !s.ok()) return s;
   if (outcomes != nullptr) *outcomes = std::move(result);

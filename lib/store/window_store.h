@@ -50,8 +50,9 @@ struct FeedExtent {
 
 enum class InsertOutcome {
   kInserted,           // new row
-  kDuplicateSame,      // identical row already stored: accepted, stored once
-  kDuplicateConflict,  // a different row is stored at that time: rejected
+  kDuplicateSame,      // its channels are already stored with these values: accepted, stored once
+  kMerged,             // a partial row at that time gained this sample's other channels
+  kDuplicateConflict,  // a channel is stored at that time with another value: rejected
 };
 
 struct StoreOptions {
@@ -81,9 +82,17 @@ class WindowStore {
   int schema_version() const;
 
   // Inserts all samples in one transaction and fills outcomes[i] per sample.
+  // A sample at a time where the feed already has a row merges into it
+  // channel by channel (channels at different rates, or two sources writing
+  // one feed): channels it adds are stored (kMerged; when `merged` is given,
+  // (*merged)[i] is the whole row as stored now), channels already stored
+  // with the same value are fine (kDuplicateSame when it adds none), and a
+  // channel stored with a different value rejects the sample
+  // (kDuplicateConflict; nothing of it is stored). Values compare bit for bit.
   // On a non-ok Status (disk full: kUnavailable; other failures: kIoError)
   // the transaction is rolled back and nothing of the batch is stored.
-  [[nodiscard]] Status InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes);
+  [[nodiscard]] Status InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes,
+                                   std::vector<Sample>* merged = nullptr);
 
   // Deletes at most max_rows of the feed's oldest samples with t < cutoff,
   // in one short transaction. Returns the number of rows deleted.

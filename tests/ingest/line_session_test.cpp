@@ -388,7 +388,7 @@ TEST_F(LineSessionTest, StoreOutcomesMapToTheirCodes) {
                                "(disk full or I/O error); resend later",
                                "error 3 field-count *",
                                "error 4 too-old sample is older than the feed's newest sample minus storage.retention",
-                               "error 5 duplicate-time a different sample of this feed is already stored at this time",
+                               "error 5 duplicate-time a channel of this feed is already stored at this time with a different value",
                                "ok 2"}));
   EXPECT_EQ(counters_.rejected[static_cast<int>(R::kStorageUnavailable)].load(), 1u);
   EXPECT_EQ(counters_.rejected[static_cast<int>(R::kTooOld)].load(), 1u);

@@ -399,9 +399,12 @@ TEST(WindowStoreData, IdenticalResendIsStoredOnceAndAConflictIsRefused) {
   EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kDuplicateSame, InsertOutcome::kInserted}));
   EXPECT_EQ(store->Extent(0)->count, 2);
 
-  outcomes = InsertOk(*store, {Make(0, Sec(1), {1, 2, 3.5}), Make(0, Sec(2), {4, 5, 6.0000001}),
+  // A channel stored with another value is a conflict, whatever else the
+  // sample carries; the same values on fewer channels are a duplicate.
+  outcomes = InsertOk(*store, {Make(0, Sec(1), {1.5, 2, 3.5}), Make(0, Sec(2), {4, 5, 6.0000001}),
                                Make(0, Sec(2), {4, 5, 6}, 0b001)});
-  EXPECT_EQ(outcomes, std::vector<InsertOutcome>(3, InsertOutcome::kDuplicateConflict));
+  EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kDuplicateConflict,
+                                                  InsertOutcome::kDuplicateConflict, InsertOutcome::kDuplicateSame}));
   const auto rows = ReadAll(*store, 0);
   ASSERT_EQ(rows.size(), 2U);
   EXPECT_EQ(rows[0], Make(0, Sec(1), {1, 2, 0}, 0b100).sample);  // unchanged
@@ -412,6 +415,32 @@ TEST(WindowStoreData, IdenticalResendIsStoredOnceAndAConflictIsRefused) {
   EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kInserted, InsertOutcome::kDuplicateSame,
                                                   InsertOutcome::kDuplicateConflict}));
   EXPECT_EQ(store->Extent(0)->count, 3);
+}
+
+TEST(WindowStoreData, PartialRowsAtOneTimeMergeChannelByChannel) {
+  TempDir dir;
+  auto store = OpenOrDie(dir.path() / "w.db");
+  ASSERT_NE(store, nullptr);
+  ASSERT_TRUE(store->RegisterFeeds({LoopA()}).ok());
+  // A fast source writes channels 0 and 1; a slow one (a lab assay) writes
+  // channel 2 at the same time, in the same batch and in a later one.
+  std::vector<InsertOutcome> outcomes;
+  std::vector<Sample> merged;
+  ASSERT_TRUE(store
+                  ->InsertBatch(std::vector<FeedSample>{Make(0, Sec(1), {1, 2, 0}, 0b100),
+                                                        Make(0, Sec(1), {0, 0, 3}, 0b011)},
+                                &outcomes, &merged)
+                  .ok());
+  EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kInserted, InsertOutcome::kMerged}));
+  EXPECT_EQ(merged[1], Make(0, Sec(1), {1, 2, 3}).sample) << "the whole row as stored now";
+  InsertOk(*store, {Make(0, Sec(2), {4, 0, 0}, 0b110)});
+  outcomes = InsertOk(*store, {Make(0, Sec(2), {0, 5, 0}, 0b101), Make(0, Sec(2), {4, 0, 6}, 0b010)});
+  EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kMerged, InsertOutcome::kMerged}));
+  const auto rows = ReadAll(*store, 0);
+  ASSERT_EQ(rows.size(), 2U);
+  EXPECT_EQ(rows[0], Make(0, Sec(1), {1, 2, 3}).sample);
+  EXPECT_EQ(rows[1], Make(0, Sec(2), {4, 5, 6}).sample);
+  EXPECT_EQ(store->Extent(0)->count, 2) << "merging adds no row";
 }
 
 TEST(WindowStoreData, RejectsMalformedBatchesWithoutStoringAnything) {
