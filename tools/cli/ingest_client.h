@@ -1,6 +1,6 @@
 // IngestClient: a TCP client for the daemon's ingest port that keeps up to
 // `window` lines in flight and tallies the replies (`ok <n>` / `error <line>
-// <code> <text>`). Used by `lyapcast simulate --send` and `replay`.
+// <code> <text>`). Used by `lyapcast simulate --send`, `replay` and `import`.
 // Single-threaded: Send() reads replies whenever the window is full.
 #pragma once
 
