@@ -24,5 +24,7 @@ void AddRetrainCommand(CLI::App& app, int* exit_code);
 void AddCheckCommand(CLI::App& app, int* exit_code);
 void AddReplayCommand(CLI::App& app, int* exit_code);
 void AddExportCommand(CLI::App& app, int* exit_code);
+// A historian-style CSV file into a feed (channels from the HTTP API, samples through the ingest port).
+void AddImportCommand(CLI::App& app, int* exit_code);
 
 }  // namespace lyapcast::cli

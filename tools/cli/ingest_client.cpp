@@ -48,9 +48,11 @@ Status IngestClient::Connect(const std::string& endpoint, const std::string& tok
   window_ = window > 0 ? window : 1;
   if (!token.empty()) {
     out_ = "auth " + token + "\n";
+    authenticating_ = true;
     while (replies_ == 0) {
       if (Status s = Pump(true); !s.ok()) return s;
     }
+    authenticating_ = false;
     if (accepted_ != 0 || rejected_ != 0) return Status::Invalid("the daemon refused the ingest token");
     replies_ = 0;
   }
@@ -120,6 +122,7 @@ Status IngestClient::Pump(bool wait_for_reply) {
 
 void IngestClient::OnReply(const std::string& reply) {
   ++replies_;
+  if (on_reply_ && !authenticating_) on_reply_(reply);
   if (reply.rfind("ok", 0) == 0) {
     if (reply != "ok auth") ++accepted_;
     return;

@@ -1,10 +1,11 @@
 // IngestClient: a TCP client for the daemon's ingest port that keeps up to
 // `window` lines in flight and tallies the replies (`ok <n>` / `error <line>
-// <code> <text>`). Used by `lyapcast simulate --send` (and replay later).
+// <code> <text>`). Used by `lyapcast simulate --send`, `replay` and `import`.
 // Single-threaded: Send() reads replies whenever the window is full.
 #pragma once
 
 #include <cstdint>
+#include <functional>
 #include <map>
 #include <string>
 #include <vector>
@@ -19,6 +20,12 @@ class IngestClient {
   ~IngestClient();
   IngestClient(const IngestClient&) = delete;
   IngestClient& operator=(const IngestClient&) = delete;
+
+  // Called with each reply to a sent line, in the order the lines were sent
+  // (the daemon answers every line once, in order), on the caller's thread
+  // from inside Send(), Flush() or Finish(). Set it before Connect().
+  using ReplyHandler = std::function<void(const std::string& reply)>;
+  void set_reply_handler(ReplyHandler handler) { on_reply_ = std::move(handler); }
 
   // host:port, e.g. "127.0.0.1:7301". With a token, sends `auth <token>` first.
   [[nodiscard]] Status Connect(const std::string& endpoint, const std::string& token = {}, int window = 1000);
@@ -49,6 +56,8 @@ class IngestClient {
   std::int64_t sent_ = 0, replies_ = 0, accepted_ = 0, rejected_ = 0;
   std::map<std::string, std::int64_t> by_code_;
   std::vector<std::string> first_errors_;
+  ReplyHandler on_reply_;
+  bool authenticating_ = false;
 };
 
 }  // namespace lyapcast::cli

@@ -2,7 +2,7 @@
 // train, forecast --model, lyapunov, score) or on the daemon's database file
 // (backup); the others talk to a running daemon over its HTTP API (status,
 // models, retrain, forecast --feed, check, export) or its ingest port (replay,
-// simulate --send).
+// simulate --send; import uses both).
 #include <CLI/CLI.hpp>
 
 #include <cstdio>
@@ -18,7 +18,8 @@ int main(int argc, char** argv) {
   app.require_subcommand(1);
   app.footer(
       "Talk to a running daemon: status, models, retrain, forecast --feed, check, export (HTTP API; --url,\n"
-      "--token-file), replay (ingest port). Offline, on files: simulate, train, forecast --model, lyapunov, score.\n"
+      "--token-file), replay (ingest port), import (a historian CSV file into a feed; both).\n"
+      "Offline, on files: simulate, train, forecast --model, lyapunov, score.\n"
       "On the daemon's database file (safe while it runs): backup.\n"
       "`lyapcast <command> --help` explains each command with examples.");
   int exit_code = 0;
@@ -29,6 +30,7 @@ int main(int argc, char** argv) {
   lyapcast::cli::AddCheckCommand(app, &exit_code);
   lyapcast::cli::AddExportCommand(app, &exit_code);
   lyapcast::cli::AddReplayCommand(app, &exit_code);
+  lyapcast::cli::AddImportCommand(app, &exit_code);
   lyapcast::cli::AddSimulateCommand(app, &exit_code);
   lyapcast::cli::AddTrainCommand(app, &exit_code);
   lyapcast::cli::AddLyapunovCommand(app, &exit_code);
