@@ -111,7 +111,7 @@ std::optional<HttpResponse> ParseParams(const FeedConfig& fc, const HttpRequest&
 // newest complete one (after a restart, before anything arrived: the newest
 // stored). An error response when there is none.
 std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed, const std::optional<DataTime>& from,
-                                        Sample* start) {
+                                        Sample* start, json* estimated) {
   const FeedConfig& fc = c.config->feeds[feed];
   if (from) {
     auto found = c.store->CompleteSampleAt(feed, *from, kFromLookbackSteps * fc.step);
@@ -123,7 +123,20 @@ std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed,
     *start = **found;
     return std::nullopt;
   }
-  if (auto newest = c.runtimes->at(feed).NewestComplete()) {
+  // The newest sample, slow channels carried within their hold, when that
+  // is newer than the newest complete row.
+  auto newest = c.runtimes->at(feed).NewestComplete();
+  if (auto estimate = c.runtimes->at(feed).EstimateStart();
+      estimate && (!newest || estimate->start.t > newest->t)) {
+    *start = std::move(estimate->start);
+    for (const FeedRuntime::EstimatedChannel& e : estimate->estimated) {
+      estimated->push_back({{"channel", fc.channels[static_cast<std::size_t>(e.channel)]},
+                            {"how", "carried"},
+                            {"age_s", e.age_s}});
+    }
+    return std::nullopt;
+  }
+  if (newest) {
     *start = *newest;
     return std::nullopt;
   }
@@ -140,7 +153,7 @@ std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed,
 }
 
 // Everything of the JSON body but the points, in the document's order.
-json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& served) {
+json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& served, json estimated) {
   json lyapunov = nullptr;
   if (view.exponent) {
     lyapunov = {{"per_s", view.exponent->lambda_max},
@@ -163,6 +176,7 @@ json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& 
               {"step_s", Seconds(fc.step)},
               {"from", TimeJson(f.from)},
               {"start", std::move(start_values)},
+              {"estimated", std::move(estimated)},
               {"lyapunov", std::move(lyapunov)},
               {"horizon", std::move(horizon)},
               {"staleness", StalenessJson(view)},
@@ -182,7 +196,8 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
                                                          : "; it needs data first"));
   }
   Sample start;
-  if (auto none = StartSample(c, feed, params.from, &start)) return *none;
+  json estimated = json::array();
+  if (auto none = StartSample(c, feed, params.from, &start, &estimated)) return *none;
 
   const FeedView view = ViewFeed(c, feed, WallNow());
   // Predictability horizon from the exponent the cadence paces by.
@@ -197,7 +212,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     return r;
   }
   r.status = 200;
-  r.body = JsonBody(HeadJson(fc, view, *served), served->forecast);
+  r.body = JsonBody(HeadJson(fc, view, *served, std::move(estimated)), served->forecast);
   return r;
 }
 

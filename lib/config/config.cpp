@@ -413,9 +413,24 @@ HealthConfig ReadHealth(const Value& v) {
   return c;
 }
 
+// hold: {channel: duration}, each channel of the feed at most once.
+void ReadHold(const Value& v, const std::vector<std::string>& channels, std::vector<Micros>* hold) {
+  const MapReader m = v.MapAnyKeys();
+  for (const MapReader::Entry& e : m.entries()) {
+    const auto it = std::find(channels.begin(), channels.end(), e.key);
+    if (it == channels.end()) {
+      e.value.source()->Fail(e.key_line, e.value.path(),
+                             fmt::format("'{}' is not a channel of this feed; hold names channels ({})", e.key,
+                                         Join(channels)));
+    }
+    (*hold)[static_cast<std::size_t>(it - channels.begin())] = e.value.Duration(DurationRule::Positive());
+  }
+}
+
 // `earlier` are the feeds before this one in `list_path`, for duplicate ids.
 FeedConfig ReadFeed(const Value& v, const std::vector<FeedConfig>& earlier, const std::string& list_path) {
-  const MapReader m = v.Map({"id", "channels", "units", "step", "dynamics", "model", "retrain", "monitor", "health"});
+  const MapReader m =
+      v.Map({"id", "channels", "units", "step", "hold", "dynamics", "model", "retrain", "monitor", "health"});
   FeedConfig f;
   const Value id = m.Require("id", "every feed needs an id such as loop-a");
   f.id = id.Text(FeedIdAllowed());
@@ -428,6 +443,8 @@ FeedConfig ReadFeed(const Value& v, const std::vector<FeedConfig>& earlier, cons
   f.channels = ReadChannels(m.Require("channels", "list the feed's channels, e.g. [flow, dtemp_h, dtemp_v]"));
   if (auto x = m.Get("units")) f.units = ReadUnits(*x, f.channels.size());
   if (auto x = m.Get("step")) f.step = x->Duration(DurationRule::Positive());
+  f.hold.assign(f.channels.size(), Micros{});
+  if (auto x = m.Get("hold")) ReadHold(*x, f.channels, &f.hold);
   // "dynamics:" left empty reads as no known dynamics, like a missing key.
   if (auto x = m.Get("dynamics"); x && !x->IsNull()) f.dynamics = ReadDynamics(*x, f.channels);
   if (auto x = m.Get("model")) f.model = ReadModel(*x);
@@ -546,6 +563,7 @@ DriftMonitorOptions ToDriftMonitorOptions(const FeedConfig& feed) {
   o.channels = static_cast<int>(feed.channels.size());
   o.step = feed.step;
   o.max_gap = feed.model.max_gap;
+  o.hold = feed.hold;
   o.change_threshold = feed.monitor.change_threshold;
   o.change_drift = feed.monitor.change_drift;
   return o;

@@ -138,6 +138,10 @@ struct FeedConfig {
   std::vector<std::string> channels;  // [A-Za-z_][A-Za-z0-9_]{0,63}, not "t"; 1..64; required
   std::vector<std::string> units;     // empty, or one per channel
   Micros step = kSecond;     // model step dt in data time; > 0
+  // Per channel (feed order): how long its last value may be carried into
+  // a state when the channel has no sample near the time (a slow channel
+  // such as a lab assay); 0 = never carried. From `hold: {channel: 60s}`.
+  std::vector<Micros> hold;
   std::optional<DynamicsConfig> dynamics;
   ModelConfig model;
   RetrainConfig retrain;

@@ -4,7 +4,8 @@
 
 namespace lyapcast {
 
-FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, const AlignmentOptions& options) {
+FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, const AlignmentOptions& options,
+                    Micros hold) {
   if (a != nullptr && a->t == at) return {Formed::kExact, a->value};
   if (b != nullptr && b->t == at) return {Formed::kExact, b->value};
   if (a != nullptr && b != nullptr && b->t - a->t <= options.max_span_or_default()) {
@@ -16,6 +17,7 @@ FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, c
   const Micros db = b != nullptr ? b->t - at : Micros::max();
   if (da <= db && da <= tolerance) return {Formed::kNearest, a->value};
   if (db < da && db <= tolerance) return {Formed::kNearest, b->value};
+  if (a != nullptr && hold > Micros{} && da <= hold) return {Formed::kCarried, a->value};
   return {};
 }
 

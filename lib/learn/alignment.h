@@ -18,7 +18,12 @@
 //   3. else the nearer of a and b when within `tolerance` of `at` (sparse
 //      data: samples several steps apart are taken at the nearest step, not
 //      blended across a span the model has to predict);
-//   4. else missing.
+//   4. else, when the channel may be carried (hold > 0) and a is at most
+//      `hold` old: a's value, CARRIED (a slow channel such as a lab assay
+//      next to fast sensors);
+//   5. else missing.
+// A carried value may complete a state (an input); it is never a training
+// or scoring target, since it is the old reading, not the value now.
 //
 // Pure functions; thread-safe.
 #pragma once
@@ -26,6 +31,8 @@
 #include <algorithm>
 #include <cstdint>
 #include <limits>
+#include <utility>
+#include <vector>
 
 #include "core/data_time.h"
 #include "core/sample.h"
@@ -33,12 +40,26 @@
 namespace lyapcast {
 
 struct AlignmentOptions {
+  AlignmentOptions() = default;
+  AlignmentOptions(Micros step_in, Micros tolerance_in = {}, Micros max_span_in = {},  // NOLINT: brace-init
+                   std::vector<Micros> hold_in = {})
+      : step(step_in), tolerance(tolerance_in), max_span(max_span_in), hold(std::move(hold_in)) {}
+
   Micros step{};       // the model step; > 0
   Micros tolerance{};  // nearest-sample tolerance; 0 means step / 4
   Micros max_span{};   // widest bracket interpolated across; 0 means 3 * step / 2
+  std::vector<Micros> hold;  // per channel, how long a value may be carried; empty or 0 = never
 
   Micros tolerance_or_default() const { return tolerance > Micros{} ? tolerance : step / 4; }
   Micros max_span_or_default() const { return max_span > Micros{} ? max_span : step * 3 / 2; }
+  Micros hold_for(int channel) const {
+    return channel < static_cast<int>(hold.size()) ? hold[static_cast<std::size_t>(channel)] : Micros{};
+  }
+  Micros longest_hold() const {
+    Micros m{};
+    for (Micros h : hold) m = std::max(m, h);
+    return m;
+  }
 };
 
 // One observation of one channel.
@@ -48,7 +69,7 @@ struct ChannelPoint {
 };
 
 // How a value was formed (for counts and for saying so in a response).
-enum class Formed { kMissing, kExact, kInterpolated, kNearest };
+enum class Formed { kMissing, kExact, kInterpolated, kNearest, kCarried };
 
 struct FormedValue {
   Formed how = Formed::kMissing;
@@ -56,18 +77,21 @@ struct FormedValue {
 };
 
 // The rule above for one channel; `a` and `b` are its bracketing
-// observations (a->t <= at <= b->t), either may be null.
-FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, const AlignmentOptions& options);
+// observations (a->t <= at <= b->t), either may be null; `hold` the
+// channel's (options.hold_for(channel)).
+FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, const AlignmentOptions& options,
+                    Micros hold = Micros{});
 
 // The state at `at` from `samples`, a sequence sorted by strictly increasing
 // time with operator[] and size() (a std::vector<Sample>, a span, or a ring
 // buffer's view), each sample's values sized `channels`. Writes one value per
 // channel to out[0..channels) (NaN where missing) and returns the missing
-// mask (bit c set: channel c could not be formed). Looks no further from
-// `at` than max(max_span, tolerance). O(log n + samples within that reach).
+// mask (bit c set: channel c could not be formed); `carried`, when given,
+// gets the mask of channels whose value was carried. Looks no further from
+// `at` than max(max_span, tolerance, the channel's hold).
 template <typename Sorted>
 std::uint64_t StateAt(const Sorted& samples, DataTime at, int channels, const AlignmentOptions& options,
-                      double* out);
+                      double* out, std::uint64_t* carried = nullptr);
 
 // ---- implementation of the template ----
 
@@ -88,15 +112,18 @@ std::int64_t UpperBoundByTime(std::int64_t n, DataTime at, const auto& time_of) 
 
 template <typename Sorted>
 std::uint64_t StateAt(const Sorted& samples, DataTime at, int channels, const AlignmentOptions& options,
-                      double* out) {
+                      double* out, std::uint64_t* carried) {
   const auto n = static_cast<std::int64_t>(samples.size());
-  const Micros reach = std::max(options.max_span_or_default(), options.tolerance_or_default());
+  const Micros near = std::max(options.max_span_or_default(), options.tolerance_or_default());
+  if (carried != nullptr) *carried = 0;
   const std::int64_t first_after =
       alignment_detail::UpperBoundByTime(n, at, [&](std::int64_t i) { return samples[i].t; });
   std::uint64_t missing = 0;
   for (int c = 0; c < channels; ++c) {
     ChannelPoint a, b;
     bool has_a = false, has_b = false;
+    const Micros hold = options.hold_for(c);
+    const Micros reach = std::max(near, hold);
     for (std::int64_t i = first_after - 1; i >= 0 && at - samples[i].t <= reach; --i) {
       const Sample& s = samples[i];
       if (s.missing(c) || static_cast<int>(s.values.size()) <= c) continue;
@@ -106,7 +133,7 @@ std::uint64_t StateAt(const Sorted& samples, DataTime at, int channels, const Al
     }
     // An exact hit is the sample just before first_after; b is only needed otherwise.
     if (!(has_a && a.t == at)) {
-      for (std::int64_t i = first_after; i < n && samples[i].t - at <= reach; ++i) {
+      for (std::int64_t i = first_after; i < n && samples[i].t - at <= near; ++i) {
         const Sample& s = samples[i];
         if (s.missing(c) || static_cast<int>(s.values.size()) <= c) continue;
         b = {s.t, s.values[static_cast<std::size_t>(c)]};
@@ -114,7 +141,8 @@ std::uint64_t StateAt(const Sorted& samples, DataTime at, int channels, const Al
         break;
       }
     }
-    const FormedValue v = ValueAt(has_a ? &a : nullptr, has_b ? &b : nullptr, at, options);
+    const FormedValue v = ValueAt(has_a ? &a : nullptr, has_b ? &b : nullptr, at, options, hold);
+    if (v.how == Formed::kCarried && carried != nullptr) *carried |= std::uint64_t{1} << c;
     if (v.how == Formed::kMissing) {
       missing |= std::uint64_t{1} << c;
       out[c] = std::numeric_limits<double>::quiet_NaN();

@@ -65,6 +65,7 @@ GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const G
   g.values.assign(n * c, std::numeric_limits<double>::quiet_NaN());
   g.mask.assign(n, ~std::uint64_t{0});
   g.present.assign(n, 0);
+  g.carried.assign(n, 0);
   for (std::size_t i = 0; i < n; ++i) g.mask[i] = channels >= 64 ? ~std::uint64_t{0} : (std::uint64_t{1} << c) - 1;
 
   // Pass 2, channel by channel: walk the grid and the channel's
@@ -79,6 +80,7 @@ GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const G
       const Sample& s = samples[k];
       if (ch < s.values.size() && !s.missing(static_cast<int>(ch))) index.push_back(k);
     }
+    const Micros hold = options.hold_for(static_cast<int>(ch));
     std::size_t p = 0;  // index[p] is the first observation after the grid time
     for (std::size_t i = 0; i < n; ++i) {
       const DataTime at = g.times[i];
@@ -86,10 +88,15 @@ GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const G
       const bool has_a = p > 0, has_b = p < index.size();
       const ChannelPoint a = has_a ? ChannelPoint{samples[index[p - 1]].t, samples[index[p - 1]].values[ch]} : ChannelPoint{};
       const ChannelPoint b = has_b ? ChannelPoint{samples[index[p]].t, samples[index[p]].values[ch]} : ChannelPoint{};
-      const FormedValue v = ValueAt(has_a ? &a : nullptr, has_b ? &b : nullptr, at, options);
+      const FormedValue v = ValueAt(has_a ? &a : nullptr, has_b ? &b : nullptr, at, options, hold);
       if (v.how == Formed::kMissing) continue;
       g.values[i * c + ch] = v.value;
       g.mask[i] &= ~(std::uint64_t{1} << ch);
+      if (v.how == Formed::kCarried) {
+        g.carried[i] |= std::uint64_t{1} << ch;
+        ++g.carried_values;
+        continue;
+      }
       g.present[i] = 1;
       switch (v.how) {
         case Formed::kExact:
@@ -103,7 +110,8 @@ GridSeries ResampleToGrid(std::span<const Sample> samples, int channels, const G
           ++g.nearest;
           used[index[has_a && at - a.t <= (has_b ? b.t - at : Micros::max()) ? p - 1 : p]] = 1;
           break;
-        case Formed::kMissing: break;
+        case Formed::kMissing:
+        case Formed::kCarried: break;
       }
     }
   }

@@ -55,17 +55,21 @@ struct GridSeries {
   int channels = 0;
   std::vector<DataTime> times;        // time of each grid point
   std::vector<double> values;         // size() * channels, row i = grid point i; NaN where missing
-  std::vector<std::uint64_t> mask;    // missing-channel mask per grid point (all bits set if absent)
-  std::vector<std::uint8_t> present;  // 1 if any channel could be formed at the grid point
+  std::vector<std::uint64_t> mask;    // channels that could not be formed, per grid point (all bits set if absent)
+  std::vector<std::uint64_t> carried; // channels whose value was carried (alignment's hold): inputs, never targets
+  std::vector<std::uint8_t> present;  // 1 if a channel was formed from samples near the grid point (not carried)
   std::vector<std::size_t> segment_begins;  // first grid index of each segment, increasing; [0] == 0
   std::int64_t unused = 0;          // samples that formed no grid value (off the grid, or lost to a nearer one)
   std::int64_t interpolated = 0;    // grid values formed between two samples
   std::int64_t nearest = 0;         // grid values taken from a sample within tolerance but not on time
+  std::int64_t carried_values = 0;  // grid values carried from an older sample (hold)
 
   std::size_t size() const { return present.size(); }
   DataTime time(std::size_t i) const { return times[i]; }
   const double* row(std::size_t i) const { return values.data() + i * static_cast<std::size_t>(channels); }
   bool complete(std::size_t i) const { return present[i] && mask[i] == 0; }
+  // Channels that are no target at grid point i: missing or carried.
+  std::uint64_t target_missing(std::size_t i) const { return mask[i] | carried[i]; }
   // One past the last grid index of the segment holding i (i < size()).
   std::size_t segment_end(std::size_t i) const;
   std::size_t segments() const { return segment_begins.size(); }

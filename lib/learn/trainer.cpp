@@ -123,7 +123,7 @@ std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& 
   const auto score = [&](Eigen::Index col, std::size_t target) {
     const double* y = grid.row(target);
     for (int k = 0; k < c; ++k) {
-      if ((grid.mask[target] >> k) & 1U) continue;
+      if ((grid.target_missing(target) >> k) & 1U) continue;
       const double e = (Y(k, col) - y[k]) / model.stddev()[k];
       sum[static_cast<std::size_t>(k)] += e * e;
       count[static_cast<std::size_t>(k)] += 1;

@@ -59,7 +59,7 @@ LossTerms TrajectoryLoss<T>::Evaluate(const FlowMap<T>& model, const GridSeries&
   for (const Trajectory& t : batch) {
     for (int k = 1; k <= t.horizon; ++k) {
       const auto i = static_cast<std::size_t>(t.start + k);
-      if (grid.present[i]) count += c - std::popcount(grid.mask[i]);
+      if (grid.present[i]) count += c - std::popcount(grid.target_missing(i));
     }
   }
   count = std::max(count, 1.0);
@@ -74,7 +74,8 @@ LossTerms TrajectoryLoss<T>::Evaluate(const FlowMap<T>& model, const GridSeries&
     for (int k = 1; k <= t.horizon; ++k) {
       if (grid.present[static_cast<std::size_t>(t.start + k)]) {
         first_target_[b] = k;
-        if (grid.complete(static_cast<std::size_t>(t.start + k))) velocity_at_[static_cast<std::size_t>(k)] = 1;
+        const auto i = static_cast<std::size_t>(t.start + k);
+        if (grid.complete(i) && grid.carried[i] == 0) velocity_at_[static_cast<std::size_t>(k)] = 1;
         break;
       }
     }
@@ -93,7 +94,7 @@ LossTerms TrajectoryLoss<T>::Evaluate(const FlowMap<T>& model, const GridSeries&
       if (!grid.present[i]) continue;
       const double* y = grid.row(i);
       for (int ch = 0; ch < c; ++ch) {
-        if ((grid.mask[i] >> ch) & 1U) continue;
+        if ((grid.target_missing(i) >> ch) & 1U) continue;
         const double e = (static_cast<double>(P(ch, b)) - y[ch]) * inv_s[ch];
         terms.data += e * e / count;
         dy_(ch, b) += static_cast<T>(2.0 * e * inv_s[ch] / count);

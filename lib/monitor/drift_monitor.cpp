@@ -29,9 +29,10 @@ DriftMonitor::DriftMonitor(const DriftMonitorOptions& options)
       step_(options.step),
       max_gap_(std::max(options.max_gap, 1)),
       keep_(options.reorder_window + (std::max(options.max_gap, 1) + 1) * options.step),
-      alignment_{options.step, Micros{}, Micros{}},
+      alignment_{options.step, Micros{}, Micros{}, options.hold},
       change_options_(ChangeOptions(options)),
       history_(kHistory),
+      last_seen_(static_cast<std::size_t>(std::max(options.channels, 0))),
       change_(change_options_) {}
 
 Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::int64_t version,
@@ -126,7 +127,23 @@ double DriftMonitor::Score(std::int64_t i, bool* multi) {
   const auto c = static_cast<Eigen::Index>(channels_);
   int k = 1;
   for (; k <= max_gap_; ++k) {
-    if (StateAt(before, target.t - k * step_, channels_, alignment_, state_.data()) == 0) break;
+    const DataTime at = target.t - k * step_;
+    std::uint64_t missing = StateAt(before, at, channels_, alignment_, state_.data());
+    // A slow channel's last value may be older than the history: carry it
+    // from the channel's own record of its newest observations.
+    for (int c = 0; c < channels_ && missing != 0; ++c) {
+      if (!((missing >> c) & 1U)) continue;
+      const Micros hold = alignment_.hold_for(c);
+      if (hold <= Micros{}) continue;
+      for (const ChannelPoint& p : last_seen_[static_cast<std::size_t>(c)]) {
+        if (p.t <= at && at - p.t <= hold && p.t > DataTime{}) {
+          state_[static_cast<std::size_t>(c)] = p.value;
+          missing &= ~(std::uint64_t{1} << c);
+          break;
+        }
+      }
+    }
+    if (missing == 0) break;
   }
   if (k > max_gap_) {
     unscored_ = Unscored::kNoState;
@@ -218,6 +235,17 @@ DriftMonitor::Observation DriftMonitor::Observe(const Sample& s, WallTime arrive
   if (newest_ && s.t < *newest_ - keep_) return out;  // too late to matter: data age only
   const std::int64_t i = Insert(s);
   if (!newest_ || s.t > *newest_) newest_ = s.t;
+  for (int c = 0; c < channels_; ++c) {
+    if (s.missing(c)) continue;
+    auto& seen = last_seen_[static_cast<std::size_t>(c)];  // [0] newest, [1] the one before
+    const ChannelPoint p{s.t, s.values[static_cast<std::size_t>(c)]};
+    if (p.t > seen[0].t) {
+      seen[1] = seen[0];
+      seen[0] = p;
+    } else if (p.t > seen[1].t && p.t < seen[0].t) {
+      seen[1] = p;
+    }
+  }
   if (i < 0) return out;
   // The sample itself, then newer ones it may have made scorable (it can be
   // the state before them), in time order.

@@ -236,6 +236,7 @@ class DriftMonitor {
   std::optional<DataTime> newest_;
   std::optional<WallTime> last_arrival_;
   std::vector<Slot> history_;  // ring buffer of kHistory slots
+  std::vector<std::array<ChannelPoint, 2>> last_seen_;  // per channel, its two newest observations
   std::int64_t head_ = 0, size_ = 0;
 
   // Scores (since SetModel/Reset).

@@ -7,6 +7,8 @@
 // can use the type without linking the monitor library. A plain value.
 #pragma once
 
+#include <vector>
+
 #include "core/data_time.h"
 #include "monitor/change_test.h"
 
@@ -21,6 +23,9 @@ struct DriftMonitorOptions {
   // How late (data time behind the newest sample) a sample may arrive and
   // still be scored, and still serve as the state before a later sample.
   Micros reorder_window = Micros(10'000'000);
+  // Per channel, how long its last value may be carried into the state
+  // before a sample (the feed's `hold`); empty = never.
+  std::vector<Micros> hold;
   // The change test behind the drift flag (monitor/change_test.h), in in-control
   // standard deviations of the block scores; its warm-up is DriftMonitor::kWarmupBlocks.
   double change_threshold = ChangeTestOptions{}.threshold;

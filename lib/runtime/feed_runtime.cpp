@@ -28,6 +28,8 @@ struct FeedRuntime::State {
   DriftMonitor monitor;
   std::shared_ptr<const ActiveModel> model;  // the one the monitor scores with
   std::optional<Sample> newest_complete;
+  std::optional<Sample> newest;                     // the newest sample, complete or not
+  std::vector<std::pair<DataTime, double>> last;    // per channel, its newest observation (t 0: none)
   std::optional<DataTime> last_drift_trigger;
   std::uint64_t drift_triggers = 0;
 };
@@ -80,6 +82,15 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
     if (sample.complete() && (!s.newest_complete || sample.t >= s.newest_complete->t)) {
       s.newest_complete = sample;  // 4.
     }
+    if (!s.newest || sample.t > s.newest->t) {
+      s.newest = sample;
+    } else if (sample.t == s.newest->t) {  // a merged row: the writer passes the whole row
+      s.newest = sample;
+    }
+    s.last.resize(feed_.channels.size());
+    for (std::size_t c = 0; c < s.last.size() && c < sample.values.size(); ++c) {
+      if (!sample.missing(static_cast<int>(c)) && sample.t >= s.last[c].first) s.last[c] = {sample.t, sample.values[c]};
+    }
     // 5. A lasting change keeps alarming; one drift retrain per min_interval
     // of data time is enough (the flag stays up meanwhile).
     if (seen.alarm_raised &&
@@ -119,6 +130,27 @@ double FeedRuntime::e0() const {
 std::optional<Sample> FeedRuntime::NewestComplete() const {
   std::lock_guard lock(mu_);
   return state_->newest_complete;
+}
+
+std::optional<FeedRuntime::StartEstimate> FeedRuntime::EstimateStart() const {
+  std::lock_guard lock(mu_);
+  const State& s = *state_;
+  if (!s.newest) return std::nullopt;
+  StartEstimate out;
+  out.start = *s.newest;
+  for (int c = 0; c < static_cast<int>(out.start.values.size()); ++c) {
+    if (!out.start.missing(c)) continue;
+    const auto k = static_cast<std::size_t>(c);
+    const Micros hold = k < feed_.hold.size() ? feed_.hold[k] : Micros{};
+    if (k >= s.last.size() || s.last[k].first == DataTime{} || hold <= Micros{} ||
+        out.start.t - s.last[k].first > hold) {
+      return std::nullopt;
+    }
+    out.start.values[k] = s.last[k].second;
+    out.start.missing_mask &= ~(std::uint64_t{1} << c);
+    out.estimated.push_back({c, Seconds(out.start.t - s.last[k].first)});
+  }
+  return out;
 }
 
 void FeedRuntime::SetPaused(bool paused) {

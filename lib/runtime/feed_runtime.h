@@ -64,6 +64,21 @@ class FeedRuntime {
   DriftSnapshot Snapshot(WallTime wall_now) const;
   double e0() const;  // the monitor's current error; NaN when unknown
   std::optional<Sample> NewestComplete() const;
+
+  // A forecast start made of the newest sample with its missing channels
+  // carried from their last values when within the channel's `hold`
+  // (config). `estimated` names each carried channel and its age. Absent
+  // when the newest sample cannot be completed that way (then the caller
+  // falls back to NewestComplete).
+  struct EstimatedChannel {
+    int channel = 0;
+    double age_s = 0;  // data time between the carried value and the start
+  };
+  struct StartEstimate {
+    Sample start;
+    std::vector<EstimatedChannel> estimated;
+  };
+  std::optional<StartEstimate> EstimateStart() const;
   void SetPaused(bool paused);
   // Drift retrains this runtime queued (alarms within min_interval of the
   // previous trigger are not counted).

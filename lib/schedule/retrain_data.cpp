@@ -97,7 +97,7 @@ RetrainData PrepareRetrainData(std::span<const Sample> window, const FeedConfig&
   const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kSecond;
   RetrainData d;
   d.dt = Seconds(feed.step) / Seconds(time_unit);
-  d.grid = ResampleToGrid(window, static_cast<int>(feed.channels.size()), {feed.step, Micros{}});
+  d.grid = ResampleToGrid(window, static_cast<int>(feed.channels.size()), {feed.step, Micros{}, Micros{}, feed.hold});
   // The held-out span is the newest `validation` fraction of the new data
   // (the whole window on a cold start), so a warm start always has fresh
   // data on both sides of the split.

@@ -269,6 +269,13 @@ TEST(ConfigDefaults, DurationsAcceptNumbersAsSeconds) {
 
 // --- error classes -------------------------------------------------------------
 
+TEST(ConfigDefaults, HoldIsPerChannelAndDefaultsToNever) {
+  EXPECT_EQ(MustParse(FeedWith("")).feeds[0].hold, (std::vector<Micros>{Micros{}, Micros{}}));
+  EXPECT_EQ(MustParse(FeedWith("    hold: {y: 90s}\n")).feeds[0].hold, (std::vector<Micros>{Micros{}, 90 * kSecond}));
+  ExpectError(FeedWith("    hold: {z: 90s}\n"), 4, "feeds[0].hold.z", {"'z' is not a channel of this feed", "x, y"});
+  ExpectError(FeedWith("    hold: {y: -1s}\n"), 4, "feeds[0].hold.y", {});
+}
+
 TEST(ConfigErrors, StepExampleFromTheHeader) {
   const Result<Config> r = ParseConfig(FeedWith("    step: -1s\n"), "demo.yaml");
   ASSERT_FALSE(r.ok());
@@ -286,7 +293,7 @@ TEST(ConfigErrors, UnknownKeysListTheAllowedOnes) {
   ExpectError(FeedWith("    dynamics:\n      equations: {x: y, y: x}\n      constraints:\n"
                        "        - {kind: velocity, wieght: 1}\n"),
               7, "feeds[0].dynamics.constraints[0].wieght", {"allowed keys", "kind, weight, anneal"});
-  ExpectError(FeedWith("    colour: red\n"), 4, "feeds[0].colour", {"id, channels, units, step, dynamics"});
+  ExpectError(FeedWith("    colour: red\n"), 4, "feeds[0].colour", {"id, channels, units, step, hold, dynamics"});
 }
 
 TEST(ConfigErrors, DuplicateKeysNameTheSecondLine) {

@@ -203,6 +203,42 @@ class PlantFeedTest(unittest.TestCase):
         self.assertIsNone(status["drift"]["unscored_cause"], status["drift"])
         self.assertNotIn("cannot be judged", " ".join(status["health"]["reasons"]))
 
+    def test_a_slow_channel_from_a_second_source_lets_training_and_forecasts_run(self):
+        # x and y every 10 ms from one source; z, like a lab assay, every 3 s
+        # (1/300 of the fast rate) from another connection as partial rows
+        # at the same times. hold: {z: 4s} carries it between readings.
+        lines = self.simulate("slow.csv", "60s")
+        fast, slow = [], []
+        for k, line in enumerate(lines):
+            feed, t, x, y, z = line.split(",")
+            fast.append(f"{feed},{t},{x},{y},")
+            if k % 300 == 0:
+                slow.append(f"{feed},{t},,,{z}")
+        feed = FEED.replace("    step: 10ms\n", "    step: 10ms\n    hold: {z: 4s}\n")
+        with self.daemon("slow", feed) as d:
+            d.start()
+            self.send(d, fast[:150])
+            self.send(d, slow[:1])  # the first assay merges into a stored row
+            # Interleave: each assay goes in after the fast rows up to its time.
+            for i in range(1, len(slow)):
+                self.send(d, fast[150 + (i - 1) * 300: 150 + i * 300])
+                self.send(d, slow[i:i + 1])
+            self.send(d, fast[150 + (len(slow) - 1) * 300:])
+            settled = self.wait_settled(d)
+            status = self.status(d)
+            _, forecast = d.http_get("/v1/feeds/lorenz/forecast?steps=10")
+            rows = d.sql("SELECT count(*), sum(mask = 0) FROM samples")
+            log = d.read_log(tail=20000)
+        self.assertEqual(int(rows[0][0]), len(lines), "one row per time, the assays merged in")
+        self.assertEqual(int(rows[0][1]), len(slow))
+        self.assertIsNotNone(settled["model"], f"no model with a slow channel:\n{log}")
+        self.assertGreater(status["drift"]["scored"], 0, status["drift"])
+        self.assertEqual(forecast["estimated"][0]["channel"], "z", forecast)
+        self.assertEqual(forecast["estimated"][0]["how"], "carried")
+        self.assertLessEqual(forecast["estimated"][0]["age_s"], 4.0)
+        self.assertEqual(len(forecast["points"]), 10)
+        self.assertNotIn("cannot be judged", " ".join(status["health"]["reasons"]))
+
 
 if __name__ == "__main__":
     unittest.main()

@@ -135,6 +135,26 @@ TEST(ResampleToGrid, ASlowlyDriftingClockNeverLosesDenseData) {
   }
 }
 
+TEST(ResampleToGrid, ASlowChannelIsCarriedIntoStatesButIsNoTarget) {
+  // Channel 1 is read once at 0 (a lab assay); channel 0 every step. With a
+  // hold of 350 ms channel 1 is carried to 100..300 ms: those states are
+  // complete (inputs) but channel 1 is no target there; at 400 ms it is
+  // missing (older than the hold).
+  std::vector<Sample> s = {At(Micros{}, 0)};
+  for (int i = 1; i <= 4; ++i) s.push_back(At(i * kStep, i, 0b10));
+  const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}, Micros{}, {Micros{}, Micros(350'000)}});
+  ASSERT_EQ(g.size(), 5u);
+  for (std::size_t i = 0; i < 4; ++i) EXPECT_TRUE(g.complete(i)) << i;
+  EXPECT_FALSE(g.complete(4));
+  EXPECT_EQ(g.row(3)[1], -0.0) << "the value read at 0";
+  EXPECT_EQ(g.carried[0], 0u);
+  EXPECT_EQ(g.carried[2], 0b10u);
+  EXPECT_EQ(g.target_missing(2), 0b10u);
+  EXPECT_EQ(g.carried_values, 3);
+  const TrajectorySet t = BuildTrajectories(g, {1, 8, 0.0});
+  EXPECT_EQ(t.train.size(), 4u) << "every complete state starts a trajectory";
+}
+
 TEST(ResampleToGrid, CarriesMissingChannelMasks) {
   std::vector<Sample> s = {At(Micros{}, 0), At(kStep, 1, 0b10)};
   const GridSeries g = ResampleToGrid(s, 2, {kStep, Micros{}});

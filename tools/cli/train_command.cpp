@@ -56,7 +56,7 @@ int RunTrain(const TrainArgs& a) {
   const double dt = Seconds(feed.step) / Seconds(time_unit);
   const int channels = static_cast<int>(feed.channels.size());
 
-  const GridSeries grid = ResampleToGrid(file->samples, channels, {feed.step, Micros{}});
+  const GridSeries grid = ResampleToGrid(file->samples, channels, {feed.step, Micros{}, Micros{}, feed.hold});
   TrajectoryOptions topt;
   topt.rollout = a.rollout.value_or(feed.model.rollout);
   topt.max_gap = a.max_gap.value_or(feed.model.max_gap);
