@@ -378,6 +378,7 @@ void Scheduler::FinishJob(const JobStart& start, const JobEstimates& estimates,
     done.iterations = o.fit.iterations;
     switch (o.verdict) {
       case RetrainVerdict::kPromoted:
+      case RetrainVerdict::kActivated:  // uploads only
         ++f.s.promoted;
         if (o.promoted) f.s.estimates.model = o.promoted->record.lambda_max;
         Log(SchedulerLogLevel::kInfo,
