@@ -179,7 +179,8 @@ Result<ValidatedUpload> ValidateUpload(std::string bytes, const FeedConfig& feed
   auto contents = Deserialize(bytes, &file_problem);
   if (!contents.ok()) {
     kind = FromFileProblem(file_problem);
-    return fail(Status::Invalid("not a usable model file: " + contents.status().message()));
+    const std::string m = contents.status().message();
+    return fail(Status::Invalid(m.find("model file") != std::string::npos ? m : "bad model file: " + m));
   }
   ValidatedUpload out;
   out.file_feed = Metadata(*contents, "feed");

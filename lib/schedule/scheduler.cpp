@@ -648,7 +648,7 @@ void Scheduler::RunUploadJob(Trainer& trainer, std::uint32_t feed, const QueuedU
     in.dynamics_exponent = f.s.estimates.dynamics;
     if (JobInfo* j = FindJobLocked(upload.id); j != nullptr) {
       j->state = JobState::kRunning;
-      j->until = in.until;
+      if (f.s.newest != DataTime{}) j->until = in.until;  // none without data
     }
   }
   in.seed = JobSeed(options_.seed, fc.id, in.until);
