@@ -180,6 +180,20 @@ class HttpServer::Impl::Session : public std::enable_shared_from_this<Session> {
     parser_->body_limit(body_limit_);  // chunked bodies are checked as they arrive
     if (requests_ > 0) stream_.expires_after(std::chrono::microseconds(server_->options.read_timeout));
     if (parser_->is_done()) return OnRead({});
+    // A client that waits for "100 Continue" before a large body (curl does
+    // above 1 MiB) gets it now that the headers passed.
+    if (const auto expect = req.find(http::field::expect);
+        expect != req.end() && beast::iequals(expect->value(), "100-continue")) {
+      auto cont = std::make_shared<http::response<http::empty_body>>(http::status::continue_, req.version());
+      return http::async_write(stream_, *cont, [self = shared_from_this(), cont](beast::error_code ec, std::size_t) {
+        if (ec) return self->Finish();
+        self->ReadBody();
+      });
+    }
+    ReadBody();
+  }
+
+  void ReadBody() {
     http::async_read(stream_, buffer_, *parser_,
                      [self = shared_from_this()](beast::error_code ec, std::size_t) { self->OnRead(ec); });
   }

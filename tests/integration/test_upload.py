@@ -276,6 +276,23 @@ class UploadTest(unittest.TestCase):
         self.assertIn(str(UPLOAD_LIMIT), json.loads(r[1])["error"]["message"])
         status, _, raw = post(self.port, "/v1/feeds/nosuch/models", good)
         self.assertEqual(status, 404, raw)
+        # A client that asks before sending its body (Expect: 100-continue, as
+        # curl does above 1 MiB) is told to go on, then answered.
+        with socket.create_connection(("127.0.0.1", self.port), timeout=30) as sock:
+            sock.sendall(b"POST /v1/feeds/rig/models HTTP/1.1\r\nHost: x\r\nConnection: close\r\n"
+                         b"Expect: 100-continue\r\nContent-Length: %d\r\n\r\n" % len(good))
+            interim = b""
+            while not interim.endswith(b"\r\n\r\n"):
+                chunk = sock.recv(1)
+                self.assertTrue(chunk, interim)
+                interim += chunk
+            self.assertTrue(interim.startswith(b"HTTP/1.1 100 Continue\r\n"), interim)
+            sock.sendall(good)
+            answer = b""
+            while chunk := sock.recv(65536):
+                answer += chunk
+        self.assertTrue(answer.startswith(b"HTTP/1.1 400 "), answer)
+        self.assertIn(b'"wrong-channels"', answer)
 
         # The CLI: a damaged file is refused before sending (exit 2), a model
         # the daemon refuses gives its message and status (exit 1).
