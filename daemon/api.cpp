@@ -12,6 +12,7 @@
 #include "core/wall_clock.h"
 #include "ingest_server.h"
 #include "page.h"
+#include "schedule/model_upload.h"
 #include "schedule/scheduler.h"
 #include "store/sample_writer.h"
 
@@ -73,15 +74,37 @@ class Api {
     return Error(404, "not-found", "no such endpoint: " + req.path + " (see docs/http-api.md)");
   }
 
+  // Before the body is read: the upload route answers its access check at
+  // once (a refused upload is never read) and may have a body of up to
+  // kMaxUploadBytes; every other route keeps the server's limit and checks
+  // access once the whole request is in.
+  HeadDecision Head(const HttpRequest& req) const {
+    HeadDecision d;
+    const auto seg = Segments(req.path);
+    const bool upload =
+        req.method == "POST" && seg.size() == 4 && seg[0] == "v1" && seg[1] == "feeds" && seg[3] == "models";
+    if (!upload) return d;
+    if (auto denied = CheckAccess(req)) {
+      d.respond = std::move(*denied);
+      return d;
+    }
+    d.body_limit = kMaxUploadBytes;
+    return d;
+  }
+
  private:
   template <typename F>
   HttpResponse Only(const HttpRequest& req, const char* method, F&& f) const {
     if (req.method != method && !(req.method == "HEAD" && std::string_view(method) == "GET")) {
-      HttpResponse r = Error(405, "method-not-allowed", req.method + " is not allowed on " + req.path + "; use " + method);
-      r.headers.emplace_back("Allow", method);
-      return r;
+      return MethodNotAllowed(req, method);
     }
     return f();
+  }
+
+  static HttpResponse MethodNotAllowed(const HttpRequest& req, const std::string& allow) {
+    HttpResponse r = Error(405, "method-not-allowed", req.method + " is not allowed on " + req.path + "; use " + allow);
+    r.headers.emplace_back("Allow", allow);
+    return r;
   }
 
   // /v1/feeds/{id}/...
@@ -94,7 +117,11 @@ class Api {
     const std::size_t n = seg.size();
     if (n == 4 && seg[3] == "forecast") return Only(req, "GET", [&] { return api::Forecast(c_, f, req); });
     if (n == 4 && seg[3] == "status") return Only(req, "GET", [&] { return api::Status(c_, f); });
-    if (n == 4 && seg[3] == "models") return Only(req, "GET", [&] { return api::Models(c_, f, req); });
+    if (n == 4 && seg[3] == "models") {
+      if (req.method == "POST") return api::Upload(c_, f, req);
+      if (req.method == "GET" || req.method == "HEAD") return api::Models(c_, f, req);
+      return MethodNotAllowed(req, "GET, POST");
+    }
     if (n == 4 && seg[3] == "samples") return Only(req, "GET", [&] { return api::Samples(c_, f, req); });
     if (n == 4 && seg[3] == "retrain") return Only(req, "POST", [&] { return api::Retrain(c_, f); });
     if (n == 4 && seg[3] == "pause") return Only(req, "POST", [&] { return api::Pause(c_, f, true); });
@@ -177,6 +204,7 @@ class Api {
     if (model) {
       const ModelRecord& r = model->record;
       m = {{"version", r.version},
+           {"origin", ModelOriginName(r.origin)},
            {"trained_to", TimeJson(r.trained_to)},
            {"validation_error", api::OptionalNumber(r.validation_error)},
            {"lyapunov_per_s", api::OptionalNumber(r.lambda_max)}};
@@ -208,9 +236,10 @@ class Api {
 
 }  // namespace
 
-HttpHandler MakeApiHandler(ApiContext context) {
+ApiHandlers MakeApiHandlers(ApiContext context) {
   auto api = std::make_shared<Api>(std::move(context));
-  return [api](const HttpRequest& req) { return (*api)(req); };
+  return {[api](const HttpRequest& req) { return (*api)(req); },
+          [api](const HttpRequest& head) { return api->Head(head); }};
 }
 
 }  // namespace lyapcast

@@ -38,6 +38,13 @@ struct ApiContext {
   std::string version;
 };
 
-HttpHandler MakeApiHandler(ApiContext context);
+struct ApiHandlers {
+  HttpHandler request;
+  // For HttpServerOptions::head: refuses an upload's token before its body
+  // is read, and allows an upload's body up to kMaxUploadBytes
+  // (schedule/model_upload.h); other routes keep the server's limit.
+  HeadHandler head;
+};
+ApiHandlers MakeApiHandlers(ApiContext context);
 
 }  // namespace lyapcast

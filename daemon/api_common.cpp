@@ -96,6 +96,14 @@ Result<std::optional<Micros>> DurationParam(const HttpRequest& req, const std::s
   return std::optional<Micros>(*d);
 }
 
+Result<std::optional<bool>> BoolParam(const HttpRequest& req, const std::string& name) {
+  const std::string* text = Find(req, name);
+  if (text == nullptr) return std::optional<bool>{};
+  if (*text == "true" || *text == "1") return std::optional<bool>(true);
+  if (*text == "false" || *text == "0") return std::optional<bool>(false);
+  return Status::Invalid(fmt::format("{}: expected true or false, got '{}'", name, *text));
+}
+
 Result<bool> WantsCsv(const HttpRequest& req) {
   const std::string* format = Find(req, "format");
   if (format == nullptr) return req.accept.find("text/csv") != std::string::npos;

@@ -41,6 +41,8 @@ json OptionalNumber(const std::optional<double>& v);  // null when absent or not
 [[nodiscard]] Result<std::optional<std::int64_t>> IntParam(const HttpRequest& req, const std::string& name,
                                                            std::int64_t min, std::int64_t max);
 [[nodiscard]] Result<std::optional<Micros>> DurationParam(const HttpRequest& req, const std::string& name);
+// true, false, 1 or 0.
+[[nodiscard]] Result<std::optional<bool>> BoolParam(const HttpRequest& req, const std::string& name);
 
 // True when the client asked for CSV: format=csv, or no format parameter
 // and an Accept naming text/csv (format=json asks for JSON whatever Accept

@@ -54,6 +54,7 @@ json ModelJson(const ModelRecord& r) {
   if (details.is_discarded()) details = r.details;
   return {{"version", r.version},
           {"status", ModelStatusName(r.status)},
+          {"origin", ModelOriginName(r.origin)},
           {"reason", r.reason},
           {"parent", r.parent ? json(*r.parent) : json(nullptr)},
           {"created_at", r.created_at},
@@ -76,6 +77,8 @@ json JobJson(const Config& config, const JobInfo& j) {
           {"version", j.version ? json(*j.version) : json(nullptr)},
           {"outcome", j.outcome},
           {"blocked", j.blocked},
+          {"validation_error", OptionalNumber(j.validation_error)},
+          {"active_error", OptionalNumber(j.active_error)},
           {"iterations", j.iterations},
           {"seconds", j.seconds}};
 }
@@ -125,6 +128,7 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
              {"validation_error", OptionalNumber(r.validation_error)},
              {"lyapunov_per_s", OptionalNumber(r.lambda_max)},
              {"created_at", r.created_at},
+             {"origin", ModelOriginName(r.origin)},
              {"reason", r.reason}};
   }
   json drift = {{"ratio", OptionalNumber(d.drift_ratio)},

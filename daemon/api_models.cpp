@@ -1,5 +1,5 @@
-// Model history, model files, activation, retrain triggers, jobs, pause and
-// resume (docs/http-api.md).
+// Model history, model files, uploads, activation, retrain triggers, jobs,
+// pause and resume (docs/http-api.md).
 #include <fmt/format.h>
 
 #include <charconv>
@@ -9,6 +9,7 @@
 #include "api_store.h"
 #include "core/wall_clock.h"
 #include "runtime/feed_runtime.h"
+#include "schedule/model_upload.h"
 
 namespace lyapcast::api {
 namespace {
@@ -64,6 +65,35 @@ HttpResponse Activate(const ApiContext& c, std::uint32_t feed, const std::string
   return Json(200, json{{"feed", id},
                         {"active", *v},
                         {"previous", before ? json(before->record.version) : json(nullptr)}});
+}
+
+// The bytes are checked here (cheap; nothing is stored when they do not fit
+// the feed); judging or activating runs as a scheduler job the client
+// follows like a retrain's.
+HttpResponse Upload(const ApiContext& c, std::uint32_t feed, const HttpRequest& req) {
+  const FeedConfig& fc = c.config->feeds[feed];
+  auto activate = BoolParam(req, "activate");
+  if (!activate.ok()) return FromStatus(activate.status());
+  UploadProblem problem = UploadProblem::kNone;
+  auto upload = ValidateUpload(req.body, fc, &problem);
+  if (!upload.ok()) {
+    return Error(problem == UploadProblem::kTooLarge ? 413 : 400, UploadProblemCode(problem),
+                 upload.status().message());
+  }
+  const std::size_t bytes = upload->file.size();
+  const std::string file_feed = upload->file_feed;
+  auto job = c.scheduler->Upload(feed, std::make_shared<const ValidatedUpload>(std::move(upload).value()),
+                                 activate->value_or(false), "over the API");
+  if (!job.ok()) return FromStatus(job.status());
+  const auto info = c.scheduler->job(*job);
+  HttpResponse r = Json(202, json{{"job", *job},
+                                  {"feed", fc.id},
+                                  {"state", info ? JobStateName(info->state) : "queued"},
+                                  {"activate", activate->value_or(false)},
+                                  {"bytes", bytes},
+                                  {"file_feed", file_feed.empty() ? json(nullptr) : json(file_feed)}});
+  r.headers.emplace_back("Location", fmt::format("/v1/feeds/{}/jobs/{}", fc.id, *job));
+  return r;
 }
 
 HttpResponse Retrain(const ApiContext& c, std::uint32_t feed) {

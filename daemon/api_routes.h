@@ -15,6 +15,7 @@ HttpResponse Status(const ApiContext& c, std::uint32_t feed);
 HttpResponse Models(const ApiContext& c, std::uint32_t feed, const HttpRequest& req);
 HttpResponse ModelFile(const ApiContext& c, std::uint32_t feed, const std::string& version);
 HttpResponse Activate(const ApiContext& c, std::uint32_t feed, const std::string& version);
+HttpResponse Upload(const ApiContext& c, std::uint32_t feed, const HttpRequest& req);
 HttpResponse Retrain(const ApiContext& c, std::uint32_t feed);
 HttpResponse Job(const ApiContext& c, std::uint32_t feed, const std::string& job);
 HttpResponse Pause(const ApiContext& c, std::uint32_t feed, bool paused);

@@ -266,7 +266,9 @@ int RunDaemon(const DaemonOptions& options) {
   hopts.endpoint = config.listen.http;
   ApiContext api{&config,         &writer,     &ingest,     &scheduler, &runtimes,
                  api_store->get(), tokens.read, tokens.admin, WallNow(), kVersion};
-  HttpServer http(io, hopts, MakeApiHandler(std::move(api)));
+  ApiHandlers handlers = MakeApiHandlers(std::move(api));
+  hopts.head = std::move(handlers.head);
+  HttpServer http(io, hopts, std::move(handlers.request));
   if (Status s = ingest.Listen(); !s.ok()) return fail(s.message());
   if (Status s = http.Listen(); !s.ok()) return fail(s.message());
   ingest.StartAccepting();

@@ -10,6 +10,7 @@
 #include <boost/beast/http.hpp>
 #include <chrono>
 #include <iterator>
+#include <limits>
 #include <mutex>
 #include <optional>
 #include <unordered_set>
@@ -114,30 +115,48 @@ class HttpServer::Impl::Session : public std::enable_shared_from_this<Session> {
   }
 
  private:
+  // Headers first: the head handler may answer at once or allow a larger
+  // body for this request. The body limit is the largest possible while the
+  // headers are parsed (Beast checks Content-Length against it at the end of
+  // the headers; boost::none would fail every Content-Length there) and is
+  // set, and Content-Length checked, before the body is read.
   void DoRead() {
     parser_.emplace();
-    parser_->body_limit(server_->options.max_body);
+    parser_->body_limit(std::numeric_limits<std::uint64_t>::max());
     parser_->header_limit(server_->options.max_header);
+    body_limit_ = server_->options.max_body;
     // The first request may take read_timeout; later ones wait keep_alive idle.
     stream_.expires_after(std::chrono::microseconds(requests_ == 0 ? server_->options.read_timeout
                                                                    : server_->options.keep_alive));
-    http::async_read(stream_, buffer_, *parser_,
-                     [self = shared_from_this()](beast::error_code ec, std::size_t) { self->OnRead(ec); });
+    http::async_read_header(stream_, buffer_, *parser_,
+                            [self = shared_from_this()](beast::error_code ec, std::size_t) { self->OnHeader(ec); });
   }
 
-  void OnRead(beast::error_code ec) {
+  // True when `ec` ended the request (the connection finishes or an error is sent).
+  bool ReadFailed(beast::error_code ec) {
     if (ec == http::error::end_of_stream || ec == beast::error::timeout || ec == asio::error::operation_aborted) {
-      return Finish();
+      Finish();
+      return true;
     }
     if (ec == http::error::body_limit) {
-      return SendError(http::status::payload_too_large, "body-too-large",
-                       fmt::format("request body exceeds {} bytes", server_->options.max_body));
+      SendError(http::status::payload_too_large, "body-too-large",
+                fmt::format("request body exceeds {} bytes", body_limit_));
+      return true;
     }
     if (ec == http::error::header_limit) {
-      return SendError(http::status::request_header_fields_too_large, "headers-too-large",
-                       fmt::format("request line and headers exceed {} bytes", server_->options.max_header));
+      SendError(http::status::request_header_fields_too_large, "headers-too-large",
+                fmt::format("request line and headers exceed {} bytes", server_->options.max_header));
+      return true;
     }
-    if (ec) return SendError(http::status::bad_request, "bad-request", "malformed HTTP request");
+    if (ec) {
+      SendError(http::status::bad_request, "bad-request", "malformed HTTP request");
+      return true;
+    }
+    return false;
+  }
+
+  void OnHeader(beast::error_code ec) {
+    if (ReadFailed(ec)) return;
     const auto& req = parser_->get();
     // The byte limit already bounds memory; the field count bounds the work
     // of a request made of many tiny headers.
@@ -145,19 +164,59 @@ class HttpServer::Impl::Session : public std::enable_shared_from_this<Session> {
       return SendError(http::status::request_header_fields_too_large, "too-many-headers",
                        fmt::format("more than {} header fields", server_->options.max_header_fields));
     }
+    if (server_->options.head) {
+      HeadDecision d = server_->options.head(ToPlain(req));
+      if (d.respond) {
+        ++requests_;
+        close_after_response_ = true;  // the body (if any) is never read
+        return Respond(std::move(*d.respond), req.version(), false, req.method() == http::verb::head);
+      }
+      if (d.body_limit > 0) body_limit_ = d.body_limit;
+    }
+    if (const auto length = parser_->content_length(); length && *length > body_limit_) {
+      return SendError(http::status::payload_too_large, "body-too-large",
+                       fmt::format("request body exceeds {} bytes", body_limit_));
+    }
+    parser_->body_limit(body_limit_);  // chunked bodies are checked as they arrive
+    if (requests_ > 0) stream_.expires_after(std::chrono::microseconds(server_->options.read_timeout));
+    if (parser_->is_done()) return OnRead({});
+    // A client that waits for "100 Continue" before a large body (curl does
+    // above 1 MiB) gets it now that the headers passed.
+    if (const auto expect = req.find(http::field::expect);
+        expect != req.end() && beast::iequals(expect->value(), "100-continue")) {
+      auto cont = std::make_shared<http::response<http::empty_body>>(http::status::continue_, req.version());
+      return http::async_write(stream_, *cont, [self = shared_from_this(), cont](beast::error_code ec, std::size_t) {
+        if (ec) return self->Finish();
+        self->ReadBody();
+      });
+    }
+    ReadBody();
+  }
+
+  void ReadBody() {
+    http::async_read(stream_, buffer_, *parser_,
+                     [self = shared_from_this()](beast::error_code ec, std::size_t) { self->OnRead(ec); });
+  }
+
+  void OnRead(beast::error_code ec) {
+    if (ReadFailed(ec)) return;
+    const auto& req = parser_->get();
     ++requests_;
-    busy_ = true;
     HttpResponse plain = server_->handler(ToPlain(req));
-    auto res = std::make_shared<http::response<http::string_body>>(static_cast<http::status>(plain.status),
-                                                                   req.version());
+    Respond(std::move(plain), req.version(), req.keep_alive(), req.method() == http::verb::head);
+  }
+
+  void Respond(HttpResponse plain, unsigned version, bool keep_alive, bool head_method) {
+    busy_ = true;
+    auto res = std::make_shared<http::response<http::string_body>>(static_cast<http::status>(plain.status), version);
     res->set(http::field::server, "lyapcast");
     res->set(http::field::content_type, plain.content_type);
     res->set(http::field::cache_control, "no-store");
     for (auto& [k, v] : plain.headers) res->set(k, v);
-    res->keep_alive(req.keep_alive() && !close_after_response_);
+    res->keep_alive(keep_alive && !close_after_response_);
     res->body() = std::move(plain.body);
     res->prepare_payload();
-    if (req.method() == http::verb::head) {
+    if (head_method) {
       // HEAD: the GET answer's headers (Content-Length included), no body;
       // a body here would be read as the start of the next response.
       const auto length = res->body().size();
@@ -201,6 +260,7 @@ class HttpServer::Impl::Session : public std::enable_shared_from_this<Session> {
   beast::tcp_stream stream_;
   beast::flat_buffer buffer_;
   std::optional<http::request_parser<http::string_body>> parser_;
+  std::uint64_t body_limit_ = 0;  // of the request being read
   std::uint64_t requests_ = 0;
   bool busy_ = false, close_after_response_ = false, finished_ = false;
 };

@@ -2,8 +2,10 @@
 // (Beast stays inside http_server.cpp; DEVELOPERS.md "Pitfalls": compile time).
 #pragma once
 
+#include <cstdint>
 #include <functional>
 #include <map>
+#include <optional>
 #include <string>
 #include <utility>
 #include <vector>
@@ -28,5 +30,17 @@ struct HttpResponse {
 
 // Called on an io thread; must not block on training or long I/O.
 using HttpHandler = std::function<HttpResponse(const HttpRequest&)>;
+
+// What the server does once a request's line and headers are read, before
+// its body: answer at once (the body is then never read, and the connection
+// closes after the answer), or read a body of at most `body_limit` bytes
+// (0: the server's own limit).
+struct HeadDecision {
+  std::optional<HttpResponse> respond;
+  std::uint64_t body_limit = 0;
+};
+// Called on an io thread with the request as far as it is read (`body`
+// empty); must be quick.
+using HeadHandler = std::function<HeadDecision(const HttpRequest& head)>;
 
 }  // namespace lyapcast

@@ -609,11 +609,12 @@
     if (r.errors.models) return el("p", { class: "note strong", text: "Could not read the model history: " + errText(r.errors.models) });
     const models = r.models && Array.isArray(r.models.models) ? r.models.models : [];
     if (models.length === 0) return el("p", { class: "note", "data-field": "no-models", text: "No model versions yet." });
-    const head = el("tr", {}, ["version", "status", "created (UTC)", "trained on data", "validation error", "parent", "reason"]
+    const head = el("tr", {}, ["version", "status", "origin", "created (UTC)", "trained on data", "validation error", "parent", "reason"]
       .map((h) => el("th", { scope: "col", text: h })));
     const rows = models.map((m) => el("tr", { "data-version": m.version, "data-status": m.status },
       el("td", { class: "num", text: "v" + m.version }),
       el("td", { class: "status-word", text: String(m.status) }),
+      el("td", { "data-field": "origin", text: String(m.origin || "trained") }),
       el("td", { text: String(m.created_at || "—").replace("T", " ").replace("Z", "") }),
       el("td", { text: timeText(m.trained_from) + " → " + timeText(m.trained_to) }),
       el("td", { class: "num", text: num(m.validation_error) }),

@@ -213,19 +213,32 @@ Status ReadArchitecture(Reader* r, Architecture* a) {
   return r->error();
 }
 
+// Sets *problem to kNonFinite for non-finite values (otherwise the caller's
+// kMalformed applies).
 template <typename T>
-Status ReadModel(Reader* r, const Architecture& a, FlowMap<T>* out) {
+Status ReadModel(Reader* r, const Architecture& a, FlowMap<T>* out, ModelFileProblem* problem) {
   const int c = static_cast<int>(a.channels.size());
   Result<FlowMap<T>> created = FlowMap<T>::Create(c, a.hidden, a.activation, a.dt);
   if (!created.ok()) return Status::Corruption("inconsistent architecture: " + created.status().message());
   FlowMap<T>& map = created.value();
   using Vec = typename FlowMap<T>::Vec;
-  Vec m(c), s(c), S(c);
+  Vec m(c), s(c), S(c), mu(c);
   r->Values(m.data(), c, "channel means");
   r->Values(s.data(), c, "channel stds");
   r->Values(S.data(), c, "increment scales");
-  r->Values(map.mu().data(), c, "mu");
+  r->Values(mu.data(), c, "mu");
   if (!r->ok()) return r->error();
+  map.mu() = mu;
+  const std::pair<const Vec*, const char*> stats[] = {{&m, "channel mean"}, {&s, "channel std"},
+                                                      {&S, "increment scale"}, {&mu, "mu"}};
+  for (const auto& [values, what] : stats) {
+    for (int i = 0; i < c; ++i) {
+      if (!std::isfinite((*values)[i])) {
+        *problem = ModelFileProblem::kNonFinite;
+        return Status::Corruption(fmt::format("non-finite {} of channel {} ('{}')", what, i, a.channels[i]));
+      }
+    }
+  }
   if (Status st = map.SetNormalization(m, s, S); !st.ok()) return Status::Corruption(st.message());
   const std::uint64_t p = r->U64("network value count");
   const auto expected = static_cast<std::uint64_t>(map.layout().network_size);
@@ -235,7 +248,10 @@ Status ReadModel(Reader* r, const Architecture& a, FlowMap<T>* out) {
   }
   r->Values(map.parameters().data(), map.layout().network_size, "network weights");
   if (!r->ok()) return r->error();
-  if (!AllFinite(map.parameters())) return Status::Corruption("non-finite network weight or mu");
+  if (!AllFinite(map.parameters())) {
+    *problem = ModelFileProblem::kNonFinite;
+    return Status::Corruption("non-finite network weight or mu");
+  }
   *out = std::move(map);
   return Status::Ok();
 }
@@ -289,7 +305,7 @@ Status ReadMetadata(Reader* r, std::vector<std::pair<std::string, std::string>>*
 
 // Channel roles (format version 2): count == channels, then one code each.
 // Only the state role exists, and a flow map's channels are all state.
-Status ReadRoles(Reader* r, std::size_t channels, std::vector<ChannelRole>* out) {
+Status ReadRoles(Reader* r, std::size_t channels, std::vector<ChannelRole>* out, ModelFileProblem* problem) {
   const std::uint64_t n = r->Count(4, 1, "role count");
   if (!r->ok()) return r->error();
   if (n != channels) return Status::Corruption(fmt::format("{} channel roles for {} channels", n, channels));
@@ -297,6 +313,7 @@ Status ReadRoles(Reader* r, std::size_t channels, std::vector<ChannelRole>* out)
     const std::uint8_t code = r->U8("channel role");
     if (!r->ok()) return r->error();
     if (code != static_cast<std::uint8_t>(ChannelRole::kState)) {
+      *problem = ModelFileProblem::kUnknownRole;
       return Status::Corruption(fmt::format("channel {} has role code {}; this build knows 0 (state)", i, code));
     }
     out->push_back(static_cast<ChannelRole>(code));
@@ -342,14 +359,34 @@ Result<std::string> Serialize(const ModelFileContents& contents) {
   return out;
 }
 
-Result<ModelFileContents> Deserialize(std::string_view bytes) {
+const char* ModelFileProblemName(ModelFileProblem p) {
+  switch (p) {
+    case ModelFileProblem::kNone: return "none";
+    case ModelFileProblem::kNotAModelFile: return "not-a-model-file";
+    case ModelFileProblem::kFormatVersion: return "format-version";
+    case ModelFileProblem::kTruncated: return "truncated";
+    case ModelFileProblem::kChecksum: return "checksum";
+    case ModelFileProblem::kUnknownRole: return "unknown-role";
+    case ModelFileProblem::kNonFinite: return "non-finite";
+    case ModelFileProblem::kMalformed: return "malformed";
+  }
+  return "?";
+}
+
+namespace {
+
+// Deserialize; *problem is set where the kind is known and stays kMalformed
+// otherwise.
+Result<ModelFileContents> ParseModelFile(std::string_view bytes, ModelFileProblem* problem) {
   constexpr size_t kMagic = sizeof kModelFileMagic;
   const size_t prefix = std::min(bytes.size(), kMagic);
   if (prefix > 0 && std::memcmp(bytes.data(), kModelFileMagic, prefix) != 0) {
+    *problem = ModelFileProblem::kNotAModelFile;
     return Status::Invalid("not a lyapcast model file: the first 8 bytes are not the magic \"LYAPMODL\"");
   }
   constexpr size_t kMin = kModelFileHeaderLength + 8;
   if (bytes.size() < kMin) {
+    *problem = ModelFileProblem::kTruncated;
     return Status::Corruption(
         fmt::format("truncated model file: {} bytes, shorter than the {}-byte header and checksum", bytes.size(), kMin));
   }
@@ -359,17 +396,22 @@ Result<ModelFileContents> Deserialize(std::string_view bytes) {
   const std::uint32_t header_length = header.U32("header length");
   const std::uint64_t body_length = header.U64("body length");
   if (version > kModelFileVersion) {
+    *problem = ModelFileProblem::kFormatVersion;
     return Status::Invalid(fmt::format("model file format version {} is newer than this build reads (up to {}); "
                                        "upgrade lyapcast",
                                        version, kModelFileVersion));
   }
-  if (version == 0) return Status::Corruption("model file format version 0 does not exist");
+  if (version == 0) {
+    *problem = ModelFileProblem::kFormatVersion;
+    return Status::Corruption("model file format version 0 does not exist");
+  }
   if (header_length != kModelFileHeaderLength) {
     return Status::Corruption(fmt::format("header length {} is not {} (format versions 1 and 2)", header_length,
                                           kModelFileHeaderLength));
   }
   const std::uint64_t actual_body = bytes.size() - kMin;
   if (body_length > actual_body) {
+    *problem = ModelFileProblem::kTruncated;
     return Status::Corruption(fmt::format("truncated model file: the header announces a {}-byte body but {} bytes "
                                           "follow the header (checksum included)",
                                           body_length, actual_body + 8));
@@ -382,6 +424,7 @@ Result<ModelFileContents> Deserialize(std::string_view bytes) {
   const std::uint64_t stored = Reader(bytes.substr(end), end).U64("checksum");
   const std::uint64_t computed = Fnv1a64(bytes.substr(0, end));
   if (stored != computed) {
+    *problem = ModelFileProblem::kChecksum;
     return Status::Corruption(
         fmt::format("model file checksum mismatch (stored {:016x}, computed {:016x}): the file is damaged", stored,
                     computed));
@@ -401,24 +444,34 @@ Result<ModelFileContents> Deserialize(std::string_view bytes) {
   Status st;
   if (arch.scalar_bytes == 4) {
     FlowMap<float> map;
-    st = ReadModel(&r, arch, &map);
+    st = ReadModel(&r, arch, &map, problem);
     contents.model = std::move(map);
   } else {
     FlowMap<double> map;
-    st = ReadModel(&r, arch, &map);
+    st = ReadModel(&r, arch, &map, problem);
     contents.model = std::move(map);
   }
   if (!st.ok()) return st;
   contents.channels = std::move(arch.channels);
   if (Status meta = ReadMetadata(&r, &contents.metadata); !meta.ok()) return meta;
   // Version 1 ends at the metadata: its channels are all state.
-  const Status roles = version >= 2 ? ReadRoles(&r, contents.channels.size(), &contents.roles) : Status::Ok();
+  const Status roles =
+      version >= 2 ? ReadRoles(&r, contents.channels.size(), &contents.roles, problem) : Status::Ok();
   if (!roles.ok()) return roles;
   if (version < 2) contents.roles = AllStateRoles(static_cast<int>(contents.channels.size()));
   if (r.remaining() != 0) {
     return Status::Corruption(fmt::format("{} unexpected bytes at the end of the body (byte {})", r.remaining(),
                                           r.offset()));
   }
+  return contents;
+}
+
+}  // namespace
+
+Result<ModelFileContents> Deserialize(std::string_view bytes, ModelFileProblem* problem) {
+  ModelFileProblem kind = ModelFileProblem::kMalformed;
+  Result<ModelFileContents> contents = ParseModelFile(bytes, &kind);
+  if (problem != nullptr) *problem = contents.ok() ? ModelFileProblem::kNone : kind;
   return contents;
 }
 

@@ -39,6 +39,9 @@
 //   kCorruption       truncated, checksum mismatch, impossible sizes or
 //                     values (with what and where);
 //   kNotFound / kIoError  from the file system (LoadModel/SaveModel).
+// Deserialize can also say which kind of problem it met (ModelFileProblem),
+// for callers that answer with a stable code rather than only the message
+// (the daemon's model upload, schedule/model_upload.h).
 // Thread safety: all functions are reentrant; SaveModel is atomic with
 // respect to readers (temp file + fsync + rename + directory fsync).
 #pragma once
@@ -82,6 +85,21 @@ struct ModelFileContents {
   bool is_float32() const { return std::holds_alternative<FlowMap<float>>(model); }
 };
 
+// What is wrong with bytes that Deserialize refuses.
+enum class ModelFileProblem {
+  kNone,
+  kNotAModelFile,  // the magic is not "LYAPMODL"
+  kFormatVersion,  // a format version this build does not read (newer, or 0)
+  kTruncated,      // shorter than the header and checksum, or than the body the header announces
+  kChecksum,       // the stored checksum does not match the bytes
+  kUnknownRole,    // a channel role code this build does not know
+  kNonFinite,      // a non-finite normalization value, mu or network weight
+  kMalformed,      // anything else: impossible sizes, bad names, trailing bytes, ...
+};
+// "none", "not-a-model-file", "format-version", "truncated", "checksum",
+// "unknown-role", "non-finite", "malformed".
+const char* ModelFileProblemName(ModelFileProblem p);
+
 // FNV-1a 64 of `bytes` (the file checksum).
 std::uint64_t Fnv1a64(std::string_view bytes);
 
@@ -90,8 +108,9 @@ std::uint64_t Fnv1a64(std::string_view bytes);
 // steps, non-finite values, empty or duplicate metadata keys).
 [[nodiscard]] Result<std::string> Serialize(const ModelFileContents& contents);
 
-// Parses and validates file bytes (see the error classes above).
-[[nodiscard]] Result<ModelFileContents> Deserialize(std::string_view bytes);
+// Parses and validates file bytes (see the error classes above). When
+// `problem` is given it is set to the kind of problem (kNone on success).
+[[nodiscard]] Result<ModelFileContents> Deserialize(std::string_view bytes, ModelFileProblem* problem = nullptr);
 
 // The scalar type a served model runs in.
 enum class ModelScalar {

@@ -90,4 +90,22 @@ Result<ExponentEstimate> DataExponent(const FeedConfig& feed, std::span<const Sa
                                       series.size(), r->lag, r->theiler, r->fit_begin, r->fit_end, r->r_squared)};
 }
 
+std::optional<Eigen::VectorXd> NewestCompleteState(const GridSeries& grid) {
+  for (std::size_t i = grid.size(); i-- > 0;) {
+    if (grid.complete(i)) return Eigen::VectorXd(Eigen::Map<const Eigen::VectorXd>(grid.row(i), grid.channels));
+  }
+  return std::nullopt;
+}
+
+std::optional<double> ModelExponent(const FlowMap<float>& model, const Eigen::VectorXd& x0, Micros time_unit) {
+  SpectrumOptions o;
+  o.exponents = 1;
+  o.steps = std::clamp(static_cast<long>(200.0 / model.dt()), 1000L, 20000L);
+  o.transient_steps = o.steps / 10;
+  const NeuralFlowMap<float> wrapped(model);
+  auto e = LyapunovSpectrum(ModelMapStep(wrapped), x0, o);
+  if (!e.ok()) return std::nullopt;
+  return e->exponents[0] / Seconds(time_unit);
+}
+
 }  // namespace lyapcast

@@ -1,7 +1,8 @@
 // The largest Lyapunov exponent of a feed from its known dynamics or from its
 // raw data, in the units the cadence uses (per second of data time), with the
-// diagnostics an operator needs to judge it. The model's own exponent comes
-// with each trained version (RetrainOutcome::lambda_max).
+// diagnostics an operator needs to judge it; and a model's own exponent,
+// computed for each new version (RetrainOutcome::lambda_max,
+// UploadOutcome::lambda_max).
 //
 // Thread safety: reentrant; each call compiles or reads what it needs.
 #pragma once
@@ -12,9 +13,13 @@
 #include <string>
 #include <vector>
 
+#include <optional>
+
 #include "config/config.h"
 #include "core/sample.h"
 #include "core/status.h"
+#include "learn/flow_map.h"
+#include "learn/pairs.h"
 
 namespace lyapcast {
 
@@ -37,5 +42,14 @@ struct ExponentEstimate {
 // Errors as RosensteinLargest (too short, constant series, ...).
 [[nodiscard]] Result<ExponentEstimate> DataExponent(const FeedConfig& feed, std::span<const Sample> samples,
                                                     int channel = 0, int max_samples = 20000);
+
+// The newest complete state of `grid` (all channels present), if any.
+std::optional<Eigen::VectorXd> NewestCompleteState(const GridSeries& grid);
+
+// QR on the Jacobians of the learned map along its own run from `x0`
+// (200 model time units, 1 000 to 20 000 steps, after a tenth of that as
+// transient), per second of data time (`time_unit`: data time per model time
+// unit). nullopt when the run fails (e.g. it blows up).
+std::optional<double> ModelExponent(const FlowMap<float>& model, const Eigen::VectorXd& x0, Micros time_unit);
 
 }  // namespace lyapcast

@@ -38,7 +38,7 @@ std::string ToJson(const RetrainDetails& d) {
   json per_channel = json::array();
   for (double v : d.validation_per_channel) per_channel.push_back(Number(v));
   // nlohmann writes doubles with the shortest text that reads back exactly.
-  const json doc = {{"strategy", d.strategy},
+  json doc = {{"strategy", d.strategy},
                     {"trigger", d.trigger},
                     {"iterations", d.iterations},
                     {"seconds", Number(d.seconds)},
@@ -50,6 +50,15 @@ std::string ToJson(const RetrainDetails& d) {
                     {"active_error", Number(d.active_error)},
                     {"refit", d.refit},
                     {"exponents", {{"data", Number(d.data_exponent)}, {"dynamics", Number(d.dynamics_exponent)}}}};
+  if (d.upload) {
+    const UploadDetails& u = *d.upload;
+    doc["upload"] = {{"file_feed", u.file_feed},
+                     {"source", u.source},
+                     {"bytes", u.bytes},
+                     {"activate", u.activate},
+                     {"judged_on", u.judged_on},
+                     {"file_validation_error", Number(u.file_validation_error)}};
+  }
   return doc.dump();
 }
 
@@ -72,6 +81,16 @@ RetrainDetails ParseRetrainDetails(std::string_view text) {
     }
   }
   if (const auto it = doc.find("active_error"); it != doc.end()) d.active_error = OptionalNumber(*it);
+  if (const auto it = doc.find("upload"); it != doc.end() && it->is_object()) {
+    UploadDetails u;
+    Read(*it, "file_feed", &u.file_feed);
+    Read(*it, "source", &u.source);
+    Read(*it, "bytes", &u.bytes);
+    if (const auto a = it->find("activate"); a != it->end() && a->is_boolean()) u.activate = a->get<bool>();
+    Read(*it, "judged_on", &u.judged_on);
+    if (const auto e = it->find("file_validation_error"); e != it->end()) u.file_validation_error = OptionalNumber(*e);
+    d.upload = std::move(u);
+  }
   if (const auto it = doc.find("exponents"); it != doc.end() && it->is_object()) {
     if (const auto e = it->find("data"); e != it->end()) d.data_exponent = OptionalNumber(*e);
     if (const auto e = it->find("dynamics"); e != it->end()) d.dynamics_exponent = OptionalNumber(*e);

@@ -12,7 +12,10 @@
 // validation_pairs (held-out pairs the promotion was judged on),
 // validation_per_channel (the candidate's normalized RMSE per channel on the
 // judged pairs), active_error, refit, exponents {data, dynamics} (also the
-// registry's data_exponent / dynamics_exponent columns).
+// registry's data_exponent / dynamics_exponent columns); for an uploaded
+// version (trigger "upload") also upload {file_feed, source, bytes,
+// activate, judged_on, file_validation_error}: what the file's metadata said
+// and which data judged it (schedule/model_upload.h).
 //
 // Pure functions; thread-safe.
 #pragma once
@@ -25,9 +28,19 @@
 
 namespace lyapcast {
 
+// An uploaded version: what its file said about itself, and how it was judged.
+struct UploadDetails {
+  std::string file_feed;    // the file's "feed" metadata ("" when absent)
+  std::string source;       // the file's "source" metadata, e.g. "lyapcast train"
+  std::int64_t bytes = 0;   // file size
+  bool activate = false;    // activated at once on request rather than judged
+  std::string judged_on;    // in words: which held-out data scored it ("" when none did)
+  std::optional<double> file_validation_error;  // the file's "validation_error" metadata
+};
+
 struct RetrainDetails {
   std::string strategy = "supervised";
-  std::string trigger = "cadence";   // cadence, drift or operator
+  std::string trigger = "cadence";   // cadence, drift, operator or upload
   int iterations = 0;
   double seconds = 0;                // wall time of the fit
   std::string stop;                  // FitStopName
@@ -38,6 +51,7 @@ struct RetrainDetails {
   std::optional<double> active_error;          // the active version on the same pairs
   std::string refit;                           // why the normalization moved; empty if it did not
   std::optional<double> data_exponent, dynamics_exponent;  // per second of data time
+  std::optional<UploadDetails> upload;                     // uploaded versions only
 };
 
 // A JSON object (one line).

@@ -5,9 +5,9 @@
 #include <algorithm>
 #include <cmath>
 
-#include "chaos/lyapunov.h"
 #include "core/wall_clock.h"
 #include "learn/model_file.h"
+#include "schedule/estimates.h"
 #include "schedule/judge.h"
 #include "schedule/retrain_data.h"
 #include "schedule/retrain_details.h"
@@ -18,22 +18,9 @@ namespace {
 
 std::optional<double> LargestExponentPerSecond(const FlowMap<float>& model, const GridSeries& grid,
                                                Micros time_unit) {
-  Eigen::VectorXd x0;
-  for (std::size_t i = grid.size(); i-- > 0;) {
-    if (grid.complete(i)) {
-      x0 = Eigen::Map<const Eigen::VectorXd>(grid.row(i), grid.channels);
-      break;
-    }
-  }
-  if (x0.size() == 0) return std::nullopt;
-  SpectrumOptions o;
-  o.exponents = 1;
-  o.steps = std::clamp(static_cast<long>(200.0 / model.dt()), 1000L, 20000L);
-  o.transient_steps = o.steps / 10;
-  const NeuralFlowMap<float> wrapped(model);
-  auto e = LyapunovSpectrum(ModelMapStep(wrapped), x0, o);
-  if (!e.ok()) return std::nullopt;
-  return e->exponents[0] / Seconds(time_unit);
+  const std::optional<Eigen::VectorXd> x0 = NewestCompleteState(grid);
+  if (!x0) return std::nullopt;
+  return ModelExponent(model, *x0, time_unit);
 }
 
 RetrainDetails DetailsOf(const RetrainInput& in, const RetrainData& data, const Candidate& candidate,
@@ -95,6 +82,7 @@ const char* RetrainVerdictName(RetrainVerdict v) {
     case RetrainVerdict::kRejected: return "rejected";
     case RetrainVerdict::kNotEnoughData: return "not_enough_data";
     case RetrainVerdict::kCancelled: return "cancelled";
+    case RetrainVerdict::kActivated: return "activated";
   }
   return "?";
 }

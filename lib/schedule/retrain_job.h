@@ -50,7 +50,10 @@ struct RetrainInput {
   std::optional<double> data_exponent{}, dynamics_exponent{};
 };
 
-enum class RetrainVerdict { kPromoted, kRejected, kNotEnoughData, kCancelled };
+// kActivated: an uploaded model an operator asked to serve at once, without
+// judging (schedule/model_upload.h); retraining jobs never give it.
+enum class RetrainVerdict { kPromoted, kRejected, kNotEnoughData, kCancelled, kActivated };
+// "promoted", "rejected", "not_enough_data", "cancelled", "activated"
 const char* RetrainVerdictName(RetrainVerdict v);
 
 struct RetrainOutcome {

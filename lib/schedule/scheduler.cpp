@@ -34,6 +34,7 @@ const char* TriggerKindName(TriggerKind k) {
     case TriggerKind::kCadence: return "cadence";
     case TriggerKind::kDrift: return "drift";
     case TriggerKind::kOperator: return "operator";
+    case TriggerKind::kUpload: return "upload";
   }
   return "?";
 }
@@ -47,12 +48,20 @@ const char* JobStateName(JobState s) {
   return "?";
 }
 
+struct Scheduler::QueuedUpload {
+  std::uint64_t id = 0;
+  std::shared_ptr<const ValidatedUpload> upload;
+  bool activate = false;
+  std::string requested;
+};
+
 struct Scheduler::Feed {
   const FeedConfig* config = nullptr;
   std::atomic<std::shared_ptr<const ActiveModel>> active;
   // The rest is guarded by mu_.
   FeedSchedule s;
   std::optional<std::uint64_t> pending_job, running_job;
+  std::deque<QueuedUpload> uploads;  // waiting, oldest first; they run before pending_job
   DataTime running_until{};  // data end of the running job
   bool activating = false;     // an operator's Activate holds jobs off
   bool dynamics_tried = false;
@@ -113,16 +122,21 @@ Status Scheduler::Start(const std::vector<FeedExtent>& extents) {
       f.s.estimates.model = (*published)->record.lambda_max;
       f.active.store(*published);
     }
-    auto newest = trainers[0]->registry->List(i, 1);
-    if (!newest.ok()) return newest.status();
+    auto recent = trainers[0]->registry->List(i, 64);
+    if (!recent.ok()) return recent.status();
     const auto model = f.active.load();
-    if (!newest->empty()) {
+    if (!recent->empty()) {
       // Resume from the newest job that recorded a version: its data end
       // is where the next interval starts, paced by the estimates it
       // recorded (the data's is otherwise unknown until the next job).
-      f.s.last_retrain = newest->front().trained_to;
-      f.s.estimates.data = newest->front().data_exponent;
-      f.s.estimates.dynamics = newest->front().dynamics_exponent;
+      // Uploads do not move the cadence; only if the newest 64 versions are
+      // all uploads does the newest of them stand in.
+      const auto trained = std::find_if(recent->begin(), recent->end(),
+                                        [](const ModelRecord& r) { return r.origin == ModelOrigin::kTrained; });
+      const ModelRecord& newest = trained != recent->end() ? *trained : recent->front();
+      f.s.last_retrain = newest.trained_to;
+      f.s.estimates.data = newest.data_exponent;
+      f.s.estimates.dynamics = newest.dynamics_exponent;
       ScheduleNextLocked(f, i, *f.s.last_retrain, false);
       Log(SchedulerLogLevel::kInfo,
           fmt::format("feed {}: active {}, last retrain used data to {}; next retrain due at {} ({})", f.config->id,
@@ -150,22 +164,36 @@ void Scheduler::RunTrainer(Trainer& trainer) {
     const std::uint32_t feed = ready_.front();
     ready_.pop_front();
     Feed& f = *feeds_[feed];
-    if (!f.pending_job || f.running_job || f.activating) continue;  // stale, or re-queued when released
-    const std::uint64_t id = *f.pending_job;
-    f.pending_job.reset();
+    if (f.running_job || f.activating) continue;  // re-queued when the job ends or the activation is released
+    // An upload waiting runs first: a retrain after it starts from its outcome.
+    std::optional<QueuedUpload> upload;
+    if (!f.uploads.empty()) {
+      upload = std::move(f.uploads.front());
+      f.uploads.pop_front();
+    } else if (!f.pending_job) {
+      continue;  // stale
+    }
+    const std::uint64_t id = upload ? upload->id : *f.pending_job;
+    if (!upload) {
+      f.pending_job.reset();
+      f.s.pending = false;
+    }
     f.running_job = id;
     f.s.running = true;
-    f.s.pending = false;
     ++running_;
     lock.unlock();
-    RunJob(trainer, feed, id);
+    if (upload) {
+      RunUploadJob(trainer, feed, *upload);
+    } else {
+      RunJob(trainer, feed, id);
+    }
     lock.lock();
     --running_;
     f.running_job.reset();
     f.s.running = false;
-    if (f.pending_job) {
-      ready_.push_back(feed);  // a trigger came in while it ran
-      f.s.pending = true;
+    if (f.pending_job || !f.uploads.empty()) {
+      ready_.push_back(feed);  // a trigger or an upload came in while it ran
+      f.s.pending = f.pending_job.has_value();
     }
     QueueDueLocked();
     work_cv_.notify_all();
@@ -376,8 +404,11 @@ void Scheduler::FinishJob(const JobStart& start, const JobEstimates& estimates,
     done.version = o.version;
     done.outcome = o.reason;
     done.iterations = o.fit.iterations;
+    if (std::isfinite(o.candidate_error)) done.validation_error = o.candidate_error;
+    if (std::isfinite(o.active_error)) done.active_error = o.active_error;
     switch (o.verdict) {
       case RetrainVerdict::kPromoted:
+      case RetrainVerdict::kActivated:  // uploads only
         ++f.s.promoted;
         if (o.promoted) f.s.estimates.model = o.promoted->record.lambda_max;
         Log(SchedulerLogLevel::kInfo,
@@ -575,6 +606,110 @@ Result<std::uint64_t> Scheduler::Trigger(std::uint32_t feed, TriggerKind kind, s
   return id;
 }
 
+Result<std::uint64_t> Scheduler::Upload(std::uint32_t feed, std::shared_ptr<const ValidatedUpload> upload,
+                                        bool activate, std::string requested) {
+  if (feed >= feeds_.size()) return Status::NotFound(fmt::format("no feed with index {}", feed));
+  if (!upload) return Status::Invalid("no upload given");
+  std::lock_guard lock(mu_);
+  if (stopping_ || !started_) return Status::Unavailable("the scheduler is not running");
+  Feed& f = *feeds_[feed];
+  if (f.uploads.size() >= kMaxQueuedUploads) {
+    return Status::Precondition(fmt::format("feed {}: {} uploads wait to be judged already; try again when they are "
+                                            "done",
+                                            f.config->id, f.uploads.size()));
+  }
+  JobInfo job;
+  job.id = next_job_id_++;
+  job.feed = feed;
+  job.trigger = TriggerKind::kUpload;
+  job.trigger_reason = fmt::format("model file of {} bytes{}, {}", upload->file.size(),
+                                   upload->file_feed.empty() ? "" : " for feed " + upload->file_feed,
+                                   activate ? "to activate at once" : "to judge against the active model");
+  jobs_.push_back(job);
+  while (jobs_.size() > kJobsKept) jobs_.pop_front();
+  f.uploads.push_back(QueuedUpload{job.id, std::move(upload), activate, std::move(requested)});
+  if (!f.running_job && !f.activating) ready_.push_back(feed);
+  Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: job {} queued: upload of a {}", f.config->id, job.id,
+                                            job.trigger_reason));
+  work_cv_.notify_all();
+  return job.id;
+}
+
+void Scheduler::RunUploadJob(Trainer& trainer, std::uint32_t feed, const QueuedUpload& upload) {
+  Feed& f = *feeds_[feed];
+  const FeedConfig& fc = *f.config;
+  const auto started = std::chrono::steady_clock::now();
+  UploadInput in;
+  in.feed = &fc;
+  in.feed_index = feed;
+  in.active = f.active.load();
+  in.upload = upload.upload;
+  in.activate = upload.activate;
+  in.requested = upload.requested;
+  {
+    std::lock_guard lock(mu_);
+    in.until = f.s.newest + Micros(1);  // everything committed so far
+    in.data_exponent = f.s.estimates.data;
+    in.dynamics_exponent = f.s.estimates.dynamics;
+    if (JobInfo* j = FindJobLocked(upload.id); j != nullptr) {
+      j->state = JobState::kRunning;
+      if (f.s.newest != DataTime{}) j->until = in.until;  // none without data
+    }
+  }
+  in.seed = JobSeed(options_.seed, fc.id, in.until);
+  Log(SchedulerLogLevel::kInfo,
+      fmt::format("feed {}: job {} started (upload: {}), data before {}, {}", fc.id, upload.id,
+                  upload.activate ? "activate at once" : "judge", FormatRfc3339(in.until),
+                  in.active ? fmt::format("active version {}", in.active->record.version) : "no active model"));
+  auto window = ReadWindow(*trainer.reader, feed, in.until - config_.storage.retention, in.until);
+  const Result<UploadOutcome> outcome = [&]() -> Result<UploadOutcome> {
+    if (!window.ok()) return window.status();
+    in.window = *window;
+    return RunUpload(*trainer.registry, in);
+  }();
+  if (outcome.ok() && outcome->promoted) {
+    f.active.store(outcome->promoted);
+    auto pruned = trainer.registry->Prune(feed, config_.storage.keep_models);
+    if (!pruned.ok()) {
+      Log(SchedulerLogLevel::kWarning,
+          fmt::format("feed {}: pruning old versions failed: {}", fc.id, pruned.status().message()));
+    }
+  }
+  const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
+  FinishUploadJob(feed, upload, outcome, seconds);
+}
+
+void Scheduler::FinishUploadJob(std::uint32_t feed, const QueuedUpload& upload,
+                                const Result<UploadOutcome>& outcome, double seconds) {
+  Feed& f = *feeds_[feed];
+  const FeedConfig& fc = *f.config;
+  std::lock_guard lock(mu_);
+  JobInfo done;
+  if (JobInfo* j = FindJobLocked(upload.id); j != nullptr) done = *j;
+  done.id = upload.id;
+  done.feed = feed;
+  done.state = JobState::kDone;
+  done.seconds = seconds;
+  if (!outcome.ok()) {
+    done.outcome = outcome.status().message();
+    Log(SchedulerLogLevel::kError, fmt::format("feed {}: job {} (upload) failed after {:.1f}s: {}; nothing stored",
+                                               fc.id, upload.id, seconds, done.outcome));
+  } else {
+    const UploadOutcome& o = *outcome;
+    done.verdict = o.verdict;
+    done.version = o.version;
+    done.outcome = o.reason;
+    if (std::isfinite(o.candidate_error)) done.validation_error = o.candidate_error;
+    if (std::isfinite(o.active_error)) done.active_error = o.active_error;
+    if (o.promoted) f.s.estimates.model = o.promoted->record.lambda_max;
+    Log(o.promoted ? SchedulerLogLevel::kInfo : SchedulerLogLevel::kWarning,
+        fmt::format("feed {}: job {} {} uploaded version {} in {:.1f}s: {}", fc.id, upload.id,
+                    RetrainVerdictName(o.verdict), o.version, seconds, o.reason));
+  }
+  if (JobInfo* j = FindJobLocked(upload.id); j != nullptr) *j = done;
+  f.s.last_job = done;
+}
+
 std::shared_ptr<const ActiveModel> Scheduler::active(std::uint32_t feed) const {
   if (feed >= feeds_.size()) return nullptr;
   return feeds_[feed]->active.load();
@@ -665,7 +800,7 @@ Status Scheduler::Activate(std::uint32_t feed, std::int64_t version, const std::
 
 void Scheduler::ReleaseActivatingLocked(Feed& f, std::uint32_t feed) {
   f.activating = false;
-  if (f.pending_job) ready_.push_back(feed);
+  if (f.pending_job || !f.uploads.empty()) ready_.push_back(feed);
   QueueDueLocked();
   work_cv_.notify_all();
   idle_cv_.notify_all();

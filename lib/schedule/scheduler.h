@@ -28,8 +28,15 @@
 // pruned under it.) In live mode a job uses everything committed when it
 // starts; a due job that waits for a running one logs that it waits.
 //
+// Uploads: an operator's model file (schedule/model_upload.h) is judged (or
+// activated on request) and recorded by a job of its own on a trainer, never
+// alongside another job of the same feed and before the feed's pending
+// retrain; a promoted or activated upload is published like a retrain's and
+// retraining continues from it. It does not move the cadence.
+//
 // Start-up: Start() loads each feed's active version and publishes it, and
-// resumes the cadence from the newest stored version's training end.
+// resumes the cadence from the newest stored version the daemon trained
+// (uploads do not count) at its training end.
 //
 // Threads: OnSample runs on the writer thread. Trigger, active, schedule,
 // job and Stop may be called from any thread. Every decision is reported
@@ -53,6 +60,7 @@
 #include "config/config.h"
 #include "schedule/active_model.h"
 #include "schedule/cadence.h"
+#include "schedule/model_upload.h"
 #include "schedule/retrain_job.h"
 #include "store/model_registry.h"
 #include "store/sample_writer.h"
@@ -74,8 +82,9 @@ struct SchedulerOptions {
   SchedulerLog log;                        // may be empty
 };
 
-enum class TriggerKind { kCadence, kDrift, kOperator };
-const char* TriggerKindName(TriggerKind k);  // "cadence", "drift", "operator"
+// kUpload: an operator's model upload (Scheduler::Upload), not a retrain.
+enum class TriggerKind { kCadence, kDrift, kOperator, kUpload };
+const char* TriggerKindName(TriggerKind k);  // "cadence", "drift", "operator", "upload"
 
 enum class JobState { kQueued, kRunning, kDone };
 const char* JobStateName(JobState s);  // "queued", "running", "done"
@@ -87,11 +96,15 @@ struct JobInfo {
   std::string trigger_reason;
   JobState state = JobState::kQueued;
   DataTime until{};  // data used: samples before this time (set when it starts)
-  std::optional<std::int64_t> parent;  // version it warm-started from
-  std::optional<RetrainVerdict> verdict;  // when done without an error
-  std::optional<std::int64_t> version;    // recorded version (promoted or rejected)
+  std::optional<std::int64_t> parent;  // version it warm-started from (none for an upload)
+  // When done without an error. An upload ends activated, promoted or rejected.
+  std::optional<RetrainVerdict> verdict;
+  std::optional<std::int64_t> version;    // recorded version (promoted, rejected or activated)
   std::string outcome;  // the verdict's reason, or the error
   bool blocked = false;  // not_enough_data although data arrive: health says so (RetrainOutcome::blocked)
+  // The judge's figures: the new version's validation error on the judged
+  // pairs and the active model's on the same pairs (when it judged).
+  std::optional<double> validation_error, active_error;
   int iterations = 0;
   double seconds = 0;  // wall time of the job
 };
@@ -157,6 +170,18 @@ class Scheduler {
   // runs (its outcome would race the choice; try again when it is done).
   [[nodiscard]] Status Activate(std::uint32_t feed, std::int64_t version, const std::string& reason);
 
+  // An operator's model upload, validated against the feed (ValidateUpload):
+  // queues a job that judges it against the active model, or activates it
+  // when `activate`, and records it as the feed's next version with origin
+  // `uploaded` (see "Uploads" above). `requested` says how it was asked for
+  // ("over the API"), for the version's reason. Allowed while paused.
+  // Returns the job's id. kNotFound for an unknown feed; kFailedPrecondition
+  // when kMaxQueuedUploads uploads of the feed wait already; kUnavailable
+  // when stopping.
+  static constexpr std::size_t kMaxQueuedUploads = 4;
+  [[nodiscard]] Result<std::uint64_t> Upload(std::uint32_t feed, std::shared_ptr<const ValidatedUpload> upload,
+                                             bool activate, std::string requested);
+
   // The published active model (null when the feed has none yet).
   std::shared_ptr<const ActiveModel> active(std::uint32_t feed) const;
   FeedSchedule schedule(std::uint32_t feed) const;
@@ -169,6 +194,7 @@ class Scheduler {
  private:
   struct Feed;
   struct Trainer;
+  struct QueuedUpload;
   void Log(SchedulerLogLevel level, const std::string& text) const;
   void RunTrainer(Trainer& trainer);  // a trainer thread's loop
   // Requires mu_. Queues a cadence job for every feed whose due time passed.
@@ -188,6 +214,10 @@ class Scheduler {
   void FinishJob(const JobStart& start, const JobEstimates& estimates, const Result<RetrainOutcome>& outcome,
                  double seconds);
   void ScheduleAfterJobLocked(Feed& f, const JobStart& start, bool retry_soon);  // requires mu_
+  // An upload job: the window read, RunUpload, publish, bookkeeping.
+  void RunUploadJob(Trainer& trainer, std::uint32_t feed, const QueuedUpload& upload);
+  void FinishUploadJob(std::uint32_t feed, const QueuedUpload& upload, const Result<UploadOutcome>& outcome,
+                       double seconds);
   bool BusyLocked() const;  // some job queued or running
   void ReleaseActivatingLocked(Feed& f, std::uint32_t feed);  // requires mu_
   JobInfo* FindJobLocked(std::uint64_t id);

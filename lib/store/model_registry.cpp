@@ -13,7 +13,13 @@ namespace {
 
 constexpr const char* kColumns =
     "version, status, reason, parent, created_at, trained_from_us, trained_to_us, validation_error, lambda_max, "
-    "details, data_exponent, dynamics_exponent";
+    "details, data_exponent, dynamics_exponent, origin";
+
+Result<ModelOrigin> ParseOrigin(const std::string& s) {
+  if (s == "trained") return ModelOrigin::kTrained;
+  if (s == "uploaded") return ModelOrigin::kUploaded;
+  return Status::Corruption("unknown model origin '" + s + "' in the registry");
+}
 
 Result<ModelStatus> ParseStatus(const std::string& s) {
   if (s == "active") return ModelStatus::kActive;
@@ -35,7 +41,7 @@ std::optional<double> ColumnOptionalDouble(const Stmt& st, int column) {
   return sqlite3_column_double(st.get(), column);
 }
 
-// Reads the kColumns of the current row (and `file` at column 12 if asked).
+// Reads the kColumns of the current row (and `file` at column 13 if asked).
 Result<ModelRecord> ReadRow(const Stmt& st, std::uint32_t feed, bool with_file) {
   ModelRecord r;
   r.feed = feed;
@@ -53,8 +59,11 @@ Result<ModelRecord> ReadRow(const Stmt& st, std::uint32_t feed, bool with_file) 
   r.details = st.ColumnText(9);
   r.data_exponent = ColumnOptionalDouble(st, 10);
   r.dynamics_exponent = ColumnOptionalDouble(st, 11);
+  auto origin = ParseOrigin(st.ColumnText(12));
+  if (!origin.ok()) return origin.status();
+  r.origin = *origin;
   if (with_file) {
-    const auto blob = st.ColumnBlob(12);
+    const auto blob = st.ColumnBlob(13);
     r.file.assign(reinterpret_cast<const char*>(blob.data()), blob.size());
   }
   return r;
@@ -65,6 +74,14 @@ std::span<const unsigned char> Bytes(const std::string& s) {
 }
 
 }  // namespace
+
+const char* ModelOriginName(ModelOrigin o) {
+  switch (o) {
+    case ModelOrigin::kTrained: return "trained";
+    case ModelOrigin::kUploaded: return "uploaded";
+  }
+  return "?";
+}
 
 const char* ModelStatusName(ModelStatus s) {
   switch (s) {
@@ -101,8 +118,8 @@ Status ModelRegistry::Prepare() {
       {&st->next_version, "SELECT coalesce(max(version), 0) + 1 FROM models WHERE feed_id = ?1"},
       {&st->retire_active, "UPDATE models SET status = 'retired', reason = ?2 WHERE feed_id = ?1 AND status = 'active'"},
       {&st->insert, "INSERT INTO models (feed_id, version, status, reason, parent, created_at, trained_from_us, "
-       "trained_to_us, validation_error, lambda_max, details, file, data_exponent, dynamics_exponent) "
-       "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14)"},
+       "trained_to_us, validation_error, lambda_max, details, file, data_exponent, dynamics_exponent, origin) "
+       "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)"},
       {&st->active, Select("WHERE feed_id = ?1 AND status = 'active'", true)},
       {&st->one, Select("WHERE feed_id = ?1 AND version = ?2", true)},
       {&st->list, Select("WHERE feed_id = ?1 ORDER BY version DESC LIMIT ?2", false)},
@@ -166,6 +183,7 @@ Result<std::int64_t> ModelRegistry::Insert(const ModelRecord& r) {
     st.BindBlob(12, Bytes(r.file));
     BindOptionalDouble(st, 13, r.data_exponent);
     BindOptionalDouble(st, 14, r.dynamics_exponent);
+    st.BindText(15, ModelOriginName(r.origin));
     if (const int rc = st.Step(); rc != SQLITE_DONE) return sqlite::Error(store_->raw_handle(), rc, what);
   }
   if (Status s = txn.Commit(st_->commit, what); !s.ok()) return s;

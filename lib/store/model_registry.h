@@ -1,5 +1,5 @@
 // ModelRegistry: every model version of every feed, durable in SQLite before
-// it is served (docs/design.md "Data flow"; schema version 3, table `models`).
+// it is served (docs/design.md "Data flow"; schema version 4, table `models`).
 //
 // Versions count from 1 per feed. At most one version of a feed is 'active'
 // (the one served); promoting a new version retires the previous active one
@@ -28,12 +28,18 @@ namespace lyapcast {
 enum class ModelStatus { kActive, kRetired, kRejected };
 const char* ModelStatusName(ModelStatus s);  // "active", "retired", "rejected"
 
+// Where a version came from: trained by the daemon's retraining, or a model
+// file an operator uploaded (schedule/model_upload.h).
+enum class ModelOrigin { kTrained, kUploaded };
+const char* ModelOriginName(ModelOrigin o);  // "trained", "uploaded"
+
 struct ModelRecord {
   std::uint32_t feed = 0;          // config feed index
   std::int64_t version = 0;        // assigned by Insert
   ModelStatus status = ModelStatus::kRejected;
+  ModelOrigin origin = ModelOrigin::kTrained;
   std::string reason;              // why promoted, rejected, retired or activated
-  std::optional<std::int64_t> parent;  // version it was warm-started from
+  std::optional<std::int64_t> parent;  // version it was warm-started from (none for an upload)
   std::string created_at;          // wall time, RFC 3339 (set by Insert)
   DataTime trained_from{};       // data-time range of the training chunk
   DataTime trained_to{};

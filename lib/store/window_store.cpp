@@ -94,8 +94,19 @@ Status AddExponentColumns(sqlite3* db) {
                       "adding the exponent columns (schema version 3)");
 }
 
+Status AddOriginColumn(sqlite3* db) {
+  // Where a version came from: 'trained' by the daemon's retraining (every
+  // version before this column existed) or 'uploaded' by an operator
+  // (POST /v1/feeds/{id}/models).
+  return sqlite::Exec(db,
+                      "ALTER TABLE models ADD COLUMN origin TEXT NOT NULL DEFAULT 'trained'"
+                      "  CHECK (origin IN ('trained', 'uploaded'));",
+                      "adding the origin column (schema version 4)");
+}
+
 using Migration = Status (*)(sqlite3*);
-constexpr Migration kMigrations[] = {&CreateWindowTables, &CreateModelTables, &AddExponentColumns};
+constexpr Migration kMigrations[] = {&CreateWindowTables, &CreateModelTables, &AddExponentColumns,
+                                     &AddOriginColumn};
 static_assert(std::size(kMigrations) == kSchemaVersion, "one migration per schema version");
 
 Result<int> ReadUserVersion(sqlite3* db) {

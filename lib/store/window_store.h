@@ -61,7 +61,8 @@ struct StoreOptions {
   int busy_timeout_ms = 5000;  // wait for locks this long before failing
 };
 
-inline constexpr int kSchemaVersion = 3;  // 1: window tables; 2: model registry; 3: exponent columns
+// 1: window tables; 2: model registry; 3: exponent columns; 4: models.origin
+inline constexpr int kSchemaVersion = 4;
 
 class WindowStore {
  public:

@@ -237,14 +237,14 @@ THRESHOLDS = {"drift_alert": "num", "drift_alarm": "num", "data_age_alert_s": "n
               "model_age_alert_lyapunov": "num", "model_age_alarm_lyapunov": "num",
               "model_age_alert_derived": "bool", "model_age_alarm_derived": "bool"}
 JOB = {"id": "int", "feed": "str", "trigger": "str", "trigger_reason": "str", "state": "str", "until": Opt(TIME),
-       "parent": Opt("int"), "verdict": Opt("str"), "version": Opt("int"), "outcome": "str", "iterations": "int",
-       "seconds": "num"}
+       "parent": Opt("int"), "verdict": Opt("str"), "version": Opt("int"), "outcome": "str",
+       "validation_error": Opt("num"), "active_error": Opt("num"), "iterations": "int", "seconds": "num"}
 STATUS = {
     "feed": "str", "paused": "bool",
     "health": {"verdict": "str", "reasons": ["str"], "thresholds": THRESHOLDS},
     "window": {"samples": "int", "oldest": Opt(TIME), "newest": Opt(TIME)},
     "model": Opt({"version": "int", "trained_from": TIME, "trained_to": TIME, "validation_error": Opt("num"),
-                  "lyapunov_per_s": Opt("num"), "created_at": "str"}),
+                  "lyapunov_per_s": Opt("num"), "created_at": "str", "origin": "str"}),
     "drift": {"ratio": Opt("num"), "rmse_window": Opt("num"), "rmse_ewma": Opt("num"),
               "validation_error": Opt("num"), "scored": "int", "last_error": Opt("num"),
               "change_statistic": "num", "warming_up": "bool", "flag": "bool", "flagged_at": Opt(TIME),
@@ -260,7 +260,7 @@ STATUS = {
                      "outcome": "str", "iterations": "int", "seconds": "num"}),
     "jobs": {"promoted": "int", "rejected": "int", "not_enough_data": "int", "failed": "int", "coalesced": "int"},
 }
-MODEL = {"version": "int", "status": "str", "reason": "str", "parent": Opt("int"), "created_at": "str",
+MODEL = {"version": "int", "status": "str", "origin": "str", "reason": "str", "parent": Opt("int"), "created_at": "str",
          "trained_from": TIME, "trained_to": TIME, "validation_error": Opt("num"), "lyapunov_per_s": Opt("num"),
          "details": "any"}
 FORECAST = {"feed": "str", "model_version": "int", "channels": ["str"], "step_s": "num", "from": TIME,
@@ -738,6 +738,7 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         self.assertEqual([(m["version"], m["status"], m["parent"]) for m in body["models"]], stored)
         for m in body["models"]:
             self.assertIn(m["status"], {"active", "retired", "rejected"})
+            self.assertEqual(m["origin"], "trained", "every version here is the daemon's own")
         active = [m["version"] for m in body["models"] if m["status"] == "active"]
         self.assertEqual(active, [self.status()["model"]["version"]])
         one = self.get_json("/v1/feeds/lorenz/models?limit=1")
@@ -1012,7 +1013,8 @@ class ApiTest(unittest.TestCase, ApiAssertions):
     def test_wrong_method_is_405_with_allow(self):
         cases = [("POST", "/v1/heartbeat", "GET"), ("POST", "/v1/health", "GET"), ("DELETE", "/v1/feeds", "GET"),
                  ("PUT", "/v1/feeds/lorenz/status", "GET"), ("POST", "/v1/feeds/lorenz/forecast", "GET"),
-                 ("POST", "/v1/feeds/lorenz/models", "GET"), ("POST", "/v1/feeds/lorenz/models/1/file", "GET"),
+                 ("DELETE", "/v1/feeds/lorenz/models", "GET, POST"),
+                 ("POST", "/v1/feeds/lorenz/models/1/file", "GET"),
                  ("POST", "/v1/feeds/lorenz/samples", "GET"), ("POST", "/v1/feeds/lorenz/jobs/1", "GET"),
                  ("POST", "/metrics", "GET"), ("GET", "/v1/feeds/lorenz/retrain", "POST"),
                  ("GET", "/v1/feeds/lorenz/pause", "POST"), ("PUT", "/v1/feeds/lorenz/resume", "POST"),
@@ -1330,10 +1332,20 @@ class TokenScopesTest(unittest.TestCase, ApiAssertions):
         self.assertEqual(self.get("/v1/heartbeat", token="wrong-token").status, 200)
 
     def test_post_needs_the_admin_token(self):
-        for path in ("/v1/feeds/loop/pause", "/v1/feeds/loop/retrain", "/v1/feeds/loop/models/1/activate"):
+        for path in ("/v1/feeds/loop/pause", "/v1/feeds/loop/retrain", "/v1/feeds/loop/models/1/activate",
+                     "/v1/feeds/loop/models"):
             self.assert_unauthorized(self.post(path), invalid_token=False)
             self.assert_unauthorized(self.post(path, token="wrong-token"), invalid_token=True)
             self.assert_error(self.post(path, token=READ_TOKEN), 403, "forbidden", ["admin"])
+        # An upload is refused before its body is read: only the headers are
+        # sent, announcing a body larger than any other route accepts.
+        head = b"POST /v1/feeds/loop/models HTTP/1.1\r\nHost: x\r\nContent-Length: 1000000\r\n"
+        self.assert_unauthorized(raw_exchange(self.port, head + b"\r\n"), invalid_token=False)
+        r = raw_exchange(self.port, head + b"Authorization: Bearer " + READ_TOKEN.encode() + b"\r\n\r\n")
+        self.assert_error(r, 403, "forbidden", ["admin"])
+        # With the admin token the body is read and judged as a model file.
+        self.assert_error(self.post("/v1/feeds/loop/models", token=ADMIN_TOKEN, body=b"x" * 100000), 400,
+                          "bad-model-file")
         r = self.post("/v1/feeds/loop/pause", token=ADMIN_TOKEN)
         self.assertEqual(r.status, 200, r)
         self.assertIs(self.get_json("/v1/feeds/loop/status", token=READ_TOKEN)["paused"], True)

@@ -365,6 +365,53 @@ TEST(ModelFileCorruption, ImpossibleSizesAreRejectedBeforeAllocating) {
 // Random byte strings, and random edits of a valid file resealed so they get
 // past the checksum: Deserialize must return (ok or an error), never crash
 // (run under ASan/UBSan in CI).
+// Each refusal says which kind of problem it is (the upload route answers
+// with a code per kind).
+TEST(ModelFileCorruption, DeserializeNamesTheKindOfProblem) {
+  const std::string good = Bytes(SampleContents<float>());
+  const auto kind = [](std::string_view bytes) {
+    ModelFileProblem p = ModelFileProblem::kMalformed;
+    (void)Deserialize(bytes, &p);
+    return p;
+  };
+  EXPECT_EQ(kind(good), ModelFileProblem::kNone);
+  EXPECT_EQ(kind("GIF89a and so on, long enough for a header"), ModelFileProblem::kNotAModelFile);
+  EXPECT_EQ(kind(std::string_view(good).substr(0, 20)), ModelFileProblem::kTruncated);
+  EXPECT_EQ(kind(std::string_view(good).substr(0, good.size() - 1)), ModelFileProblem::kTruncated);
+  std::string bad = good;
+  bad[good.size() / 2] ^= 0x10;
+  EXPECT_EQ(kind(bad), ModelFileProblem::kChecksum);
+  bad = good;
+  PutU32At(&bad, 8, kModelFileVersion + 1);
+  Reseal(&bad);
+  EXPECT_EQ(kind(bad), ModelFileProblem::kFormatVersion);
+  bad = good;
+  bad[bad.size() - 8 - 1] = 9;  // the last channel's role code
+  Reseal(&bad);
+  EXPECT_EQ(kind(bad), ModelFileProblem::kUnknownRole);
+  bad = good;
+  PutU32At(&bad, kChannelCountAt, 0);
+  Reseal(&bad);
+  EXPECT_EQ(kind(bad), ModelFileProblem::kMalformed);
+  // A NaN among the values: the first channel mean, then the last weight
+  // (float32 values; the weights end just before the metadata count).
+  bad = good;
+  PutU32At(&bad, kValuesAt, 0x7fc00000u);
+  Reseal(&bad);
+  auto r = Deserialize(bad);
+  EXPECT_EQ(kind(bad), ModelFileProblem::kNonFinite);
+  EXPECT_NE(r.status().message().find("non-finite channel mean of channel 0 ('flow')"), std::string::npos)
+      << r.status().ToString();
+  const ModelFileContents c = SampleContents<float>();
+  size_t metadata_at = good.size() - 8 - (4 + 3) - 4;
+  for (const auto& [key, value] : c.metadata) metadata_at -= 8 + key.size() + value.size();
+  bad = good;
+  PutU32At(&bad, metadata_at - 4, 0x7f800000u);  // +infinity
+  Reseal(&bad);
+  EXPECT_EQ(kind(bad), ModelFileProblem::kNonFinite);
+  EXPECT_STREQ(ModelFileProblemName(ModelFileProblem::kChecksum), "checksum");
+}
+
 TEST(ModelFileCorruption, RandomInputsNeverCrash) {
   std::mt19937_64 rng(2024);
   const std::string good = Bytes(SampleContents<float>());

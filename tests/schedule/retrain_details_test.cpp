@@ -44,6 +44,32 @@ TEST(RetrainDetails, RoundTripsEveryFieldExactly) {
   EXPECT_NE(ToJson(d).find(R"("dynamics":null)"), std::string::npos) << ToJson(d);
 }
 
+// An uploaded version's details: what its file said and what judged it;
+// other versions have no `upload` object.
+TEST(RetrainDetails, RoundTripsTheUploadObjectOnlyWhenThereIsOne) {
+  RetrainDetails d;
+  d.trigger = "upload";
+  UploadDetails u;
+  u.file_feed = "loop-a";
+  u.source = "lyapcast train";
+  u.bytes = 5123;
+  u.activate = true;
+  u.judged_on = "40 held-out pairs";
+  u.file_validation_error = 1.0 / 7.0;
+  d.upload = u;
+  const RetrainDetails back = ParseRetrainDetails(ToJson(d));
+  ASSERT_TRUE(back.upload.has_value());
+  EXPECT_EQ(back.upload->file_feed, "loop-a");
+  EXPECT_EQ(back.upload->source, "lyapcast train");
+  EXPECT_EQ(back.upload->bytes, 5123);
+  EXPECT_TRUE(back.upload->activate);
+  EXPECT_EQ(back.upload->judged_on, "40 held-out pairs");
+  EXPECT_EQ(back.upload->file_validation_error, 1.0 / 7.0);
+  d.upload.reset();
+  EXPECT_EQ(ToJson(d).find("upload\":"), std::string::npos) << ToJson(d);
+  EXPECT_FALSE(ParseRetrainDetails(ToJson(d)).upload.has_value());
+}
+
 TEST(RetrainDetails, ToleratesTextThatIsNotWhatItWrote) {
   EXPECT_EQ(ParseRetrainDetails("not json").iterations, 0);
   EXPECT_EQ(ParseRetrainDetails("[1, 2]").strategy, "supervised");

@@ -3,7 +3,10 @@
 // points and the same model bytes; triggers during a job are coalesced; a
 // due job waits for the running one (logged); a rejected candidate is never
 // served; a restarted scheduler serves the stored active version and resumes
-// the cadence from the stored state; Stop() cancels a running job.
+// the cadence from the stored state; Stop() cancels a running job; an
+// uploaded model is judged or activated by a job of its own, retraining
+// continues from it, and a restart resumes the cadence from the newest
+// trained version.
 // Data: Lorenz-63 (constants of docs/references.md "Systems") from the project's RK4.
 #include "schedule/scheduler.h"
 
@@ -359,6 +362,133 @@ TEST(Scheduler, RestartServesTheStoredActiveVersionAndResumesTheCadence) {
   EXPECT_GT(*s.last_retrain, last_before);
   ASSERT_TRUE(s.last_job.has_value());
   EXPECT_EQ(s.last_job->parent.value_or(0) >= active_before, true);
+}
+
+// A model file for the small Lorenz feed with random weights: a poor model.
+std::shared_ptr<const ValidatedUpload> PoorUpload(const FeedConfig& feed) {
+  FlowMap<float> map = FlowMap<float>::Create(3, {8}, Activation::kTanh, 0.01).value();
+  EXPECT_TRUE(map.SetNormalization(Eigen::VectorXf::Constant(3, 1), Eigen::VectorXf::Constant(3, 8),
+                                   Eigen::VectorXf::Constant(3, 2000))
+                  .ok());
+  map.InitRandom(3);
+  ModelFileContents c;
+  c.channels = feed.channels;
+  c.step_micros = feed.step;
+  c.model = map;
+  c.metadata = {{"feed", feed.id}, {"trained_to", "1970-01-01T00:00:01Z"}};
+  auto v = ValidateUpload(Serialize(c).value(), feed);
+  EXPECT_TRUE(v.ok()) << v.status().ToString();
+  return std::make_shared<const ValidatedUpload>(std::move(v).value());
+}
+
+JobInfo WaitForJob(Scheduler& scheduler, std::uint64_t id) {
+  for (int i = 0; i < 4000; ++i) {
+    const auto job = scheduler.job(id);
+    if (job && job->state == JobState::kDone) return *job;
+    std::this_thread::sleep_for(std::chrono::milliseconds(5));
+  }
+  ADD_FAILURE() << "job " << id << " did not finish";
+  return {};
+}
+
+TEST(Scheduler, AnUploadIsJudgedOrActivatedAndRetrainingContinuesFromIt) {
+  Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  std::int64_t uploaded = 0;
+  DataTime last_retrain{};
+  {
+    Rig rig(config, db, /*lockstep=*/true, 4096);
+    rig.Send(testing::LorenzSamples(1200, DataTime{}), 100);
+    rig.Drain();
+    const auto before = rig.scheduler().active(0);
+    ASSERT_NE(before, nullptr);
+    const FeedSchedule s0 = rig.scheduler().schedule(0);
+
+    // Judged: rejected, the active version stays.
+    auto judged = rig.scheduler().Upload(0, PoorUpload(config.feeds[0]), false, "in a test");
+    ASSERT_TRUE(judged.ok()) << judged.status().ToString();
+    const JobInfo j = WaitForJob(rig.scheduler(), *judged);
+    EXPECT_EQ(j.trigger, TriggerKind::kUpload);
+    ASSERT_TRUE(j.verdict.has_value()) << j.outcome;
+    EXPECT_EQ(*j.verdict, RetrainVerdict::kRejected) << j.outcome;
+    EXPECT_NE(j.outcome.find("uploaded in a test and rejected"), std::string::npos) << j.outcome;
+    ASSERT_TRUE(j.validation_error && j.active_error);
+    EXPECT_GT(*j.validation_error, *j.active_error);
+    EXPECT_EQ(rig.scheduler().active(0), before);
+    EXPECT_EQ(rig.scheduler().schedule(0).last_job->id, *judged);
+    EXPECT_TRUE(rig.Logged("rejected uploaded version"));
+
+    // Activated on request: served at once; the cadence does not move and
+    // the retrain counters count retrains only.
+    auto activated = rig.scheduler().Upload(0, PoorUpload(config.feeds[0]), true, "in a test");
+    ASSERT_TRUE(activated.ok());
+    const JobInfo a = WaitForJob(rig.scheduler(), *activated);
+    ASSERT_TRUE(a.verdict.has_value()) << a.outcome;
+    EXPECT_EQ(*a.verdict, RetrainVerdict::kActivated);
+    ASSERT_NE(rig.scheduler().active(0), nullptr);
+    EXPECT_EQ(rig.scheduler().active(0)->record.version, *a.version);
+    EXPECT_EQ(rig.scheduler().active(0)->record.origin, ModelOrigin::kUploaded);
+    uploaded = *a.version;
+    const FeedSchedule s1 = rig.scheduler().schedule(0);
+    EXPECT_EQ(s1.next_due, s0.next_due);
+    EXPECT_EQ(s1.last_retrain, s0.last_retrain);
+    EXPECT_EQ(s1.promoted + s1.rejected, s0.promoted + s0.rejected);
+    last_retrain = *s1.last_retrain;
+
+    EXPECT_EQ(rig.scheduler().Upload(7, PoorUpload(config.feeds[0]), true, "x").status().code(),
+              StatusCode::kNotFound);
+  }
+  // A restart serves the upload and resumes the cadence from the newest
+  // trained version, not from the upload.
+  Rig rig(config, db, /*lockstep=*/true, 4096);
+  ASSERT_NE(rig.scheduler().active(0), nullptr);
+  EXPECT_EQ(rig.scheduler().active(0)->record.version, uploaded);
+  EXPECT_EQ(*rig.scheduler().schedule(0).last_retrain, last_retrain);
+  // The next retrain warm-starts from the uploaded version.
+  rig.Send(testing::LorenzSamples(600, DataTimeFromMicros(12'000'000)), 100);
+  rig.Drain();
+  auto registry = OpenRegistry(db, config);
+  auto list = registry->List(0, 1000);
+  ASSERT_TRUE(list.ok());
+  bool found = false;
+  for (auto it = list->rbegin(); it != list->rend(); ++it) {
+    if (it->version > uploaded) {
+      EXPECT_EQ(it->parent, uploaded);
+      EXPECT_EQ(it->origin, ModelOrigin::kTrained);
+      found = true;
+      break;
+    }
+  }
+  EXPECT_TRUE(found) << "a retrain after the upload";
+}
+
+TEST(Scheduler, UploadsWaitForTheRunningJobAndAtMostFourQueue) {
+  Config config = LorenzConfig();
+  config.feeds[0].retrain.iterations = 2'000'000;  // runs until Stop() cancels it
+  testing::TempDir dir("lyapcast-scheduler-test");
+  const fs::path db = dir.path() / "w.db";
+  Rig rig(config, db, /*lockstep=*/false, 4096);
+  rig.Send(testing::LorenzSamples(600, DataTime{}), 600);
+  rig.Drain();
+  for (int i = 0; i < 2000 && !rig.scheduler().schedule(0).running; ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(5));
+  }
+  ASSERT_TRUE(rig.scheduler().schedule(0).running);
+  std::vector<std::uint64_t> ids;
+  for (std::size_t i = 0; i < Scheduler::kMaxQueuedUploads; ++i) {
+    auto id = rig.scheduler().Upload(0, PoorUpload(config.feeds[0]), true, "in a test");
+    ASSERT_TRUE(id.ok()) << id.status().ToString();
+    ids.push_back(*id);
+  }
+  auto refused = rig.scheduler().Upload(0, PoorUpload(config.feeds[0]), true, "in a test");
+  EXPECT_EQ(refused.status().code(), StatusCode::kFailedPrecondition);
+  EXPECT_NE(refused.status().message().find("4 uploads wait"), std::string::npos) << refused.status().ToString();
+  for (std::uint64_t id : ids) EXPECT_EQ(rig.scheduler().job(id)->state, JobState::kQueued);
+  rig.Stop();
+  EXPECT_EQ(rig.scheduler().active(0), nullptr) << "nothing ran after the cancelled job";
+  EXPECT_EQ(rig.scheduler().Upload(0, PoorUpload(config.feeds[0]), true, "x").status().code(),
+            StatusCode::kUnavailable);
 }
 
 }  // namespace

@@ -1,7 +1,8 @@
 // ModelRegistry: versions per feed, one active version at a time, rejected
 // candidates recorded with their reason, activation (pin / roll back),
-// pruning that spares the active version and its parent, and the forward
-// migration of a schema-version-1 file (built with the sqlite3 shell).
+// pruning that spares the active version and its parent, each version's
+// origin (trained or uploaded), and the forward migration of files of schema
+// versions 1, 2 and 3 (built with the sqlite3 shell).
 #include "store/model_registry.h"
 
 #include <gtest/gtest.h>
@@ -106,6 +107,23 @@ TEST_F(ModelRegistryTest, PruneSparesTheActiveVersionAndItsParent) {
   EXPECT_EQ(Shell(db_, "SELECT group_concat(version) FROM (SELECT version FROM models ORDER BY version)"), "1,5,6,7");
 }
 
+TEST_F(ModelRegistryTest, EachVersionKeepsItsOrigin) {
+  ASSERT_TRUE(registry_.Insert(Candidate(ModelStatus::kActive, "trained here")).ok());
+  ModelRecord uploaded = Candidate(ModelStatus::kActive, "uploaded by an operator");
+  uploaded.origin = ModelOrigin::kUploaded;
+  ASSERT_EQ(*registry_.Insert(uploaded), 2);
+  auto list = registry_.List(0, 10);
+  ASSERT_TRUE(list.ok()) << list.status().ToString();
+  ASSERT_EQ(list->size(), 2u);
+  EXPECT_EQ((*list)[0].origin, ModelOrigin::kUploaded);
+  EXPECT_EQ((*list)[1].origin, ModelOrigin::kTrained);
+  EXPECT_EQ(registry_.Get(0, 2)->origin, ModelOrigin::kUploaded);
+  EXPECT_EQ((*registry_.Active(0))->origin, ModelOrigin::kUploaded);
+  EXPECT_EQ(Shell(db_, "SELECT group_concat(origin) FROM (SELECT origin FROM models ORDER BY version)"),
+            "trained,uploaded");
+  EXPECT_STREQ(ModelOriginName(ModelOrigin::kUploaded), "uploaded");
+}
+
 TEST_F(ModelRegistryTest, RefusesAVersionWithoutItsFile) {
   ModelRecord r = Candidate(ModelStatus::kActive, "empty");
   r.file.clear();
@@ -184,6 +202,48 @@ TEST(ModelRegistryMigration, AVersionTwoFileGainsExponentColumnsFilledFromTheDet
   }
   EXPECT_EQ(Shell(db, "PRAGMA user_version"), std::to_string(kSchemaVersion));
   EXPECT_EQ(Shell(db, "SELECT count(*) FROM pragma_table_info('models') WHERE name = 'lyapunov_max'"), "0");
+  EXPECT_EQ(Shell(db, "PRAGMA integrity_check"), "ok");
+}
+
+// A file as schema version 3 left it (no origin column) opens: every
+// existing version reads as trained by the daemon, and uploads can follow.
+TEST(ModelRegistryMigration, AVersionThreeFileGainsTheOriginColumnAllTrained) {
+  testing::TempDir dir("lyapcast-migration-test");
+  const fs::path db = dir.path() / "v3.db";
+  Shell(db,
+        "PRAGMA journal_mode=WAL;"
+        "CREATE TABLE feeds(feed_id INTEGER PRIMARY KEY, name TEXT NOT NULL UNIQUE, channels TEXT NOT NULL,"
+        " step_us INTEGER NOT NULL, created_at TEXT);"
+        "CREATE TABLE samples(feed_id INTEGER NOT NULL REFERENCES feeds(feed_id), t_us INTEGER NOT NULL,"
+        " mask INTEGER NOT NULL, vals BLOB NOT NULL, PRIMARY KEY(feed_id, t_us)) WITHOUT ROWID;"
+        "CREATE TABLE models(feed_id INTEGER NOT NULL REFERENCES feeds(feed_id), version INTEGER NOT NULL,"
+        " status TEXT NOT NULL CHECK (status IN ('active', 'retired', 'rejected')), reason TEXT NOT NULL,"
+        " parent INTEGER, created_at TEXT NOT NULL, trained_from_us INTEGER NOT NULL,"
+        " trained_to_us INTEGER NOT NULL, validation_error REAL, lambda_max REAL, details TEXT NOT NULL,"
+        " file BLOB NOT NULL, data_exponent REAL, dynamics_exponent REAL, PRIMARY KEY (feed_id, version));"
+        "CREATE UNIQUE INDEX models_one_active ON models(feed_id) WHERE status = 'active';"
+        "INSERT INTO feeds VALUES (1, 'loop-a', 'flow,dtemp_h', 500000, '2026-01-01');"
+        "INSERT INTO models VALUES (1, 1, 'retired', 'r', NULL, '2026-01-01', 0, 10, 0.1, 0.9, '{}', x'00',"
+        " 1.25, NULL);"
+        "INSERT INTO models VALUES (1, 2, 'active', 'a', 1, '2026-01-01', 0, 20, 0.1, 0.8, '{}', x'00', NULL, 0.9);"
+        "PRAGMA user_version = 3;");
+  {
+    auto store = Open(db);
+    EXPECT_EQ(store->schema_version(), kSchemaVersion);
+    ModelRegistry registry(std::move(store));
+    auto rows = registry.List(0, 10);
+    ASSERT_TRUE(rows.ok()) << rows.status().ToString();
+    ASSERT_EQ(rows->size(), 2u);
+    EXPECT_EQ((*rows)[0].origin, ModelOrigin::kTrained);
+    EXPECT_EQ((*rows)[1].origin, ModelOrigin::kTrained);
+    EXPECT_EQ((*rows)[1].data_exponent, 1.25);
+    ModelRecord uploaded = Candidate(ModelStatus::kRejected, "uploaded, worse");
+    uploaded.origin = ModelOrigin::kUploaded;
+    EXPECT_EQ(*registry.Insert(uploaded), 3);
+  }
+  EXPECT_EQ(Shell(db, "PRAGMA user_version"), std::to_string(kSchemaVersion));
+  EXPECT_EQ(Shell(db, "SELECT group_concat(origin) FROM (SELECT origin FROM models ORDER BY version)"),
+            "trained,trained,uploaded");
   EXPECT_EQ(Shell(db, "PRAGMA integrity_check"), "ok");
 }
 

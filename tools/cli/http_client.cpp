@@ -185,17 +185,20 @@ Result<HttpClientResponse> HttpClient::Send(const HttpClientRequest& request) {
     req.keep_alive(true);
     req.prepare_payload();
 
-    beast::error_code ec;
+    beast::error_code ec, write_ec;
     im.stream->expires_after(limit);
-    http::async_write(*im.stream, req, [&](beast::error_code e, std::size_t) { ec = e; });
+    http::async_write(*im.stream, req, [&](beast::error_code e, std::size_t) { write_ec = e; });
     im.Run();
     http::response_parser<http::string_body> parser;
     parser.body_limit(kMaxBody);
-    if (!ec) {
+    // The daemon may answer before it has read a body (a refused token on an
+    // upload) and close: read that answer even when the write failed.
+    if (!write_ec || !request.body.empty()) {
       im.stream->expires_after(limit);
       http::async_read(*im.stream, im.buffer, parser, [&](beast::error_code e, std::size_t) { ec = e; });
       im.Run();
     }
+    if (write_ec && (ec || request.body.empty())) ec = write_ec;
     if (ec) {
       im.Close();
       // The daemon may close an idle keep-alive connection just as we reuse it.

@@ -1,8 +1,8 @@
 // lyapcast: the command-line tool. Offline commands work on files (simulate,
 // train, forecast --model, lyapunov, score) or on the daemon's database file
 // (backup); the others talk to a running daemon over its HTTP API (status,
-// models, retrain, forecast --feed, check, export) or its ingest port (replay,
-// simulate --send; import uses both).
+// models, models upload, retrain, forecast --feed, check, export) or its
+// ingest port (replay, simulate --send; import uses both).
 #include <CLI/CLI.hpp>
 
 #include <cstdio>
@@ -17,8 +17,8 @@ int main(int argc, char** argv) {
   app.set_version_flag("--version", "0.1.0");
   app.require_subcommand(1);
   app.footer(
-      "Talk to a running daemon: status, models, retrain, forecast --feed, check, export (HTTP API; --url,\n"
-      "--token-file), replay (ingest port), import (a historian CSV file into a feed; both).\n"
+      "Talk to a running daemon: status, models (and models upload), retrain, forecast --feed, check, export\n"
+      "(HTTP API; --url, --token-file), replay (ingest port), import (a historian CSV file into a feed; both).\n"
       "Offline, on files: simulate, train, forecast --model, lyapunov, score.\n"
       "On the daemon's database file (safe while it runs): backup.\n"
       "`lyapcast <command> --help` explains each command with examples.");

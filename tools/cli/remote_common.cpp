@@ -5,8 +5,11 @@
 #include <unistd.h>
 #include <CLI/CLI.hpp>
 
+#include <algorithm>
+#include <chrono>
 #include <cmath>
 #include <cstdlib>
+#include <thread>
 
 #include "config/config.h"
 #include "core/secret.h"
@@ -60,12 +63,15 @@ std::string Snippet(const std::string& body) {
 }  // namespace
 
 Result<HttpClientResponse> Remote::Call(const std::string& method, const std::string& target,
-                                        const std::string& accept) {
+                                        const std::string& accept, std::string request_body,
+                                        const std::string& content_type) {
   last_http_status_ = 0;
   HttpClientRequest req;
   req.method = method;
   req.target = target;
   req.accept = accept;
+  req.body = std::move(request_body);
+  req.content_type = content_type;
   auto res = client_->Send(req);
   if (!res.ok()) {
     const Status& s = res.status();
@@ -99,8 +105,9 @@ Result<json> Remote::GetJson(const std::string& target) {
   return body;
 }
 
-Result<json> Remote::PostJson(const std::string& target) {
-  auto res = Call("POST", target);
+Result<json> Remote::PostJson(const std::string& target, std::string request_body,
+                              const std::string& content_type) {
+  auto res = Call("POST", target, "application/json", std::move(request_body), content_type);
   if (!res.ok()) return res.status();
   json body = json::parse(res->body, nullptr, /*allow_exceptions=*/false);
   if (body.is_discarded() || !body.is_object()) {
@@ -111,6 +118,28 @@ Result<json> Remote::PostJson(const std::string& target) {
 }
 
 int RemoteExitCode(const Status& status) { return status.code() == StatusCode::kInvalidArgument ? 2 : 1; }
+
+Result<json> FollowJob(Remote& remote, const std::string& feed_path, std::int64_t job, const std::string& state,
+                       Micros limit, bool quiet) {
+  const std::string job_path = fmt::format("{}/jobs/{}", feed_path, job);
+  const auto started = std::chrono::steady_clock::now();
+  auto pause = std::chrono::milliseconds(100);
+  std::string last_state = state;
+  while (true) {
+    auto answer = remote.GetJson(job_path);
+    if (!answer.ok()) return Status(answer.status().code(), fmt::format("job {}: {}", job, answer.status().message()));
+    const std::string now = Text(Field(*answer, "state"));
+    if (now == "done") return answer;
+    if (now != last_state && !quiet) std::fprintf(stderr, "job %lld %s\n", static_cast<long long>(job), now.c_str());
+    last_state = now;
+    if (limit > Micros{} && std::chrono::steady_clock::now() - started > std::chrono::microseconds(limit)) {
+      return Status::Unavailable(fmt::format("job {} is still {} after {}; it goes on in the daemon (GET {})", job,
+                                             now, FormatDuration(limit), job_path));
+    }
+    std::this_thread::sleep_for(pause);
+    pause = std::min(pause * 2, std::chrono::milliseconds(1000));
+  }
+}
 
 Result<std::string> FeedPath(const std::string& feed_id) {
   if (!IsValidFeedId(feed_id)) {

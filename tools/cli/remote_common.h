@@ -53,10 +53,13 @@ class Remote {
   [[nodiscard]] static Result<std::unique_ptr<Remote>> Open(const RemoteArgs& args);
 
   [[nodiscard]] Result<HttpClientResponse> Call(const std::string& method, const std::string& target,
-                                                const std::string& accept = "application/json");
-  // GET/POST answering a JSON object.
+                                                const std::string& accept = "application/json",
+                                                std::string request_body = {},
+                                                const std::string& content_type = {});
+  // GET/POST answering a JSON object (POST with an optional body).
   [[nodiscard]] Result<json> GetJson(const std::string& target);
-  [[nodiscard]] Result<json> PostJson(const std::string& target);
+  [[nodiscard]] Result<json> PostJson(const std::string& target, std::string request_body = {},
+                                      const std::string& content_type = {});
 
   const std::string& url() const { return client_->url().text; }
   // The HTTP status of the last daemon error (0 when the last call failed
@@ -71,6 +74,15 @@ class Remote {
 
 // Exit code of a failed remote call: 2 for usage errors, else 1.
 int RemoteExitCode(const Status& status);
+
+// Polls GET <feed_path>/jobs/<job> (100 ms, doubling to 1 s) until the job
+// is done and returns it. `limit` > 0 gives up after that long (the job goes
+// on in the daemon). Unless `quiet`, each change of state is written to
+// stderr ("job 7 running"). Errors carry a printable message: "job 7: <why>"
+// when the daemon could not be asked, "job 7 is still running after 10m; it
+// goes on in the daemon (GET ...)" at the limit.
+[[nodiscard]] Result<json> FollowJob(Remote& remote, const std::string& feed_path, std::int64_t job,
+                                     const std::string& state, Micros limit, bool quiet);
 
 // "/v1/feeds/<id>" after checking the id (kInvalidArgument naming --feed).
 [[nodiscard]] Result<std::string> FeedPath(const std::string& feed_id);

@@ -3,10 +3,7 @@
 #include <fmt/format.h>
 #include <CLI/CLI.hpp>
 
-#include <algorithm>
-#include <chrono>
 #include <cstdio>
-#include <thread>
 
 #include "cli_common.h"
 #include "commands.h"
@@ -78,35 +75,13 @@ int RunRetrain(const RetrainArgs& a) {
     std::fprintf(stderr, "job %lld %s for feed %s; waiting for it\n", static_cast<long long>(*job_id),
                  joined ? "joined" : "queued", a.feed.c_str());
   }
-  const std::string job_path = fmt::format("{}/jobs/{}", *path, *job_id);
-  const auto started = std::chrono::steady_clock::now();
-  auto pause = std::chrono::milliseconds(100);
-  std::string last_state = Text(Field(*queued, "state"));
-  while (true) {
-    auto job = (*remote)->GetJson(job_path);
-    if (!job.ok()) {
-      return PrintError(kCmd, fmt::format("job {}: {}", *job_id, job.status().message())), kExitFailure;
-    }
-    const std::string state = Text(Field(*job, "state"));
-    if (state == "done") {
-      if (a.json)
-        std::printf("%s\n", job->dump(2).c_str());
-      else
-        std::printf("job %lld done: %s\n", static_cast<long long>(*job_id), Outcome(*job).c_str());
-      return JobExitCode(*job);
-    }
-    if (state != last_state && !a.json)
-      std::fprintf(stderr, "job %lld %s\n", static_cast<long long>(*job_id), state.c_str());
-    last_state = state;
-    const auto waited = std::chrono::steady_clock::now() - started;
-    if (*limit > Micros{} && waited > std::chrono::microseconds(*limit)) {
-      return PrintError(kCmd, fmt::format("job {} is still {} after {}; it goes on in the daemon (GET {})", *job_id,
-                                          state, FormatDuration(*limit), job_path)),
-             kExitFailure;
-    }
-    std::this_thread::sleep_for(pause);
-    pause = std::min(pause * 2, std::chrono::milliseconds(1000));
-  }
+  auto job = FollowJob(**remote, *path, *job_id, Text(Field(*queued, "state")), *limit, a.json);
+  if (!job.ok()) return PrintError(kCmd, job.status().message()), kExitFailure;
+  if (a.json)
+    std::printf("%s\n", job->dump(2).c_str());
+  else
+    std::printf("job %lld done: %s\n", static_cast<long long>(*job_id), Outcome(*job).c_str());
+  return JobExitCode(*job);
 }
 
 }  // namespace

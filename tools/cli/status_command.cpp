@@ -36,8 +36,10 @@ void PrintBlock(const json& s, const std::string& id) {
   if (model == nullptr) {
     std::printf("  model     none yet\n");
   } else {
-    std::string line = fmt::format("v{}, trained to {}", Integer(Field(*model, "version")).value_or(0),
-                                   TimeText(Field(*model, "trained_to")));
+    // An uploaded version says so; trained is the daemon's own.
+    const bool uploaded = Text(Field(*model, "origin")) == "uploaded";
+    std::string line = fmt::format("v{}{}, trained to {}", Integer(Field(*model, "version")).value_or(0),
+                                   uploaded ? " (uploaded)" : "", TimeText(Field(*model, "trained_to")));
     if (auto age = Number(st ? Field(*st, "model_age_s") : nullptr)) line += fmt::format(", {} old", Age(age));
     if (auto e = Number(Field(*model, "validation_error"))) line += fmt::format(", validation error {}", Num(e));
     std::printf("  model     %s\n", line.c_str());
