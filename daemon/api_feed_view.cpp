@@ -1,5 +1,7 @@
 #include "api_feed_view.h"
 
+#include <fmt/format.h>
+
 #include <algorithm>
 #include <cmath>
 
@@ -45,6 +47,14 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
     in.unscored_cause = v.drift.unscored_cause;
   }
   if (v.schedule.last_job && v.schedule.last_job->blocked) in.training_blocked = v.schedule.last_job->outcome;
+  v.suspects = c.runtimes->at(feed).Suspects();
+  for (std::size_t k = 0; k < v.suspects.size(); ++k) {
+    const FeedRuntime::SuspectChannel& sc = v.suspects[k];
+    if (!sc.last || !v.drift.newest_data_time) continue;
+    if (Seconds(*v.drift.newest_data_time - *sc.last) > kSuspectRecentSteps * Seconds(v.config->step)) continue;
+    in.suspect_channels.push_back(fmt::format("'{}': {} suspect readings, the last {:g} at {}", v.config->channels[k],
+                                              sc.count, sc.last_value, FormatRfc3339(*sc.last)));
+  }
   v.health = EvaluateHealth(v.config->health, v.model_age, in);
   return v;
 }
@@ -146,6 +156,14 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
                 {"flag", d.drift_flag},
                 {"flagged_at", d.flagged_at ? TimeJson(*d.flagged_at) : json(nullptr)},
                 {"alarms", d.alarms}};
+  json suspect = json::object();
+  for (std::size_t k = 0; k < v.suspects.size(); ++k) {
+    const FeedRuntime::SuspectChannel& sc = v.suspects[k];
+    if (sc.count == 0) continue;
+    suspect[v.config->channels[k]] = {{"count", sc.count},
+                                      {"last", sc.last ? TimeJson(*sc.last) : json(nullptr)},
+                                      {"last_value", sc.last_value}};
+  }
   json chosen = nullptr;
   if (v.exponent) {
     chosen = {{"per_s", v.exponent->lambda_max},
@@ -170,6 +188,7 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
           {"window", std::move(window)},
           {"model", std::move(model)},
           {"drift", std::move(drift)},
+          {"suspect", std::move(suspect)},
           {"staleness", StalenessJson(v)},
           {"lyapunov", std::move(lyapunov)},
           {"cadence", std::move(cadence)},

@@ -3,6 +3,8 @@
 // their JSON forms (docs/http-api.md).
 #pragma once
 
+#include "runtime/feed_runtime.h"
+
 #include <memory>
 #include <optional>
 
@@ -25,6 +27,7 @@ struct FeedView {
   std::optional<ChosenExponent> exponent;  // the one the cadence paces by
   std::optional<double> since_training_lyapunov_times;
   ModelAgeThresholds model_age;  // the model-age levels in force (configured or derived)
+  std::vector<FeedRuntime::SuspectChannel> suspects;  // per channel, from the sensor screen
   HealthResult health;
 };
 

@@ -21,6 +21,7 @@
 #include "ingest_server.h"
 #include "physics/dynamics.h"
 #include "schedule/scheduler.h"
+#include "monitor/sensor_screen.h"
 #include "store/sample_writer.h"
 #include "store/window_store.h"
 #include "systemd_notify.h"
@@ -249,6 +250,30 @@ int RunDaemon(const DaemonOptions& options) {
   // first (in lockstep a due retrain runs before the sample is scored), then
   // the drift monitor and a drift retrain.
   writer.Subscribe([&runtimes](const CommittedBatch& batch) { runtimes.OnCommitted(batch); });
+  // The sensor screen runs on the writer thread only.
+  std::vector<SensorScreen> screens;
+  for (const FeedConfig& f : config.feeds) screens.emplace_back(f.quality);
+  std::vector<std::vector<std::int64_t>> suspect_logged(config.feeds.size());
+  writer.SetScreen([&screens, &suspect_logged, &config](FeedSample& fs) {
+    if (fs.feed >= screens.size()) return;
+    const std::uint64_t marked = screens[fs.feed].Screen(fs.sample);
+    if (marked == 0) return;
+    // Logged at the first suspect reading of a channel and then at every
+    // power of ten, so a long sentinel burst does not flood the log.
+    const FeedConfig& f = config.feeds[fs.feed];
+    auto& logged = suspect_logged[fs.feed];
+    logged.resize(f.channels.size(), 0);
+    for (std::size_t c = 0; c < f.channels.size(); ++c) {
+      if (!((marked >> c) & 1U)) continue;
+      const std::int64_t n = ++logged[c];
+      if (n != 1 && n != 10 && n != 100 && n != 1000 && n % 10000 != 0) continue;
+      const auto& counts = screens[fs.feed].counts()[c];
+      spdlog::warn("feed {}: channel {} reading {} at {} is suspect; {} suspect so far (bad_value {}, range {}, "
+                   "outlier {}, spike {}); kept but not trained on",
+                   f.id, f.channels[c], fs.sample.values[c], FormatRfc3339(fs.sample.t), n, counts[0], counts[1],
+                   counts[2], counts[3]);
+    }
+  });
   const auto fail = [&](const std::string& message) {
     spdlog::error("{}", message);
     scheduler.Stop();

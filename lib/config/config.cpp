@@ -427,10 +427,42 @@ void ReadHold(const Value& v, const std::vector<std::string>& channels, std::vec
   }
 }
 
+// One channel's entry of quality: {range: [lo, hi], bad_values: [...]}.
+ChannelQuality ReadChannelQuality(const Value& v) {
+  const MapReader m = v.Map({"range", "bad_values"});
+  ChannelQuality q;
+  if (auto r = m.Get("range")) {
+    const char* const allowed = "a list [lo, hi] of two numbers with lo < hi";
+    const std::vector<Value> ends = r->List(allowed);
+    if (ends.size() != 2) r->FailMustBe(allowed);
+    q.lo = ends[0].Real(RealRange::Any());
+    q.hi = ends[1].Real(RealRange::Any());
+    if (!(*q.lo < *q.hi)) r->FailMustBe(allowed);
+  }
+  if (auto b = m.Get("bad_values")) {
+    for (const Value& x : b->List("a list of numbers such as [-9999, 1e30]")) q.bad_values.push_back(x.Real(RealRange::Any()));
+  }
+  return q;
+}
+
+// quality: {channel: {...}}, each channel of the feed at most once.
+void ReadQuality(const Value& v, const std::vector<std::string>& channels, std::vector<ChannelQuality>* quality) {
+  const MapReader m = v.MapAnyKeys();
+  for (const MapReader::Entry& e : m.entries()) {
+    const auto it = std::find(channels.begin(), channels.end(), e.key);
+    if (it == channels.end()) {
+      e.value.source()->Fail(e.key_line, e.value.path(),
+                             fmt::format("'{}' is not a channel of this feed; quality names channels ({})", e.key,
+                                         Join(channels)));
+    }
+    (*quality)[static_cast<std::size_t>(it - channels.begin())] = ReadChannelQuality(e.value);
+  }
+}
+
 // `earlier` are the feeds before this one in `list_path`, for duplicate ids.
 FeedConfig ReadFeed(const Value& v, const std::vector<FeedConfig>& earlier, const std::string& list_path) {
   const MapReader m =
-      v.Map({"id", "channels", "units", "step", "hold", "dynamics", "model", "retrain", "monitor", "health"});
+      v.Map({"id", "channels", "units", "step", "hold", "quality", "dynamics", "model", "retrain", "monitor", "health"});
   FeedConfig f;
   const Value id = m.Require("id", "every feed needs an id such as loop-a");
   f.id = id.Text(FeedIdAllowed());
@@ -445,6 +477,8 @@ FeedConfig ReadFeed(const Value& v, const std::vector<FeedConfig>& earlier, cons
   if (auto x = m.Get("step")) f.step = x->Duration(DurationRule::Positive());
   f.hold.assign(f.channels.size(), Micros{});
   if (auto x = m.Get("hold")) ReadHold(*x, f.channels, &f.hold);
+  f.quality.assign(f.channels.size(), ChannelQuality{});
+  if (auto x = m.Get("quality")) ReadQuality(*x, f.channels, &f.quality);
   // "dynamics:" left empty reads as no known dynamics, like a missing key.
   if (auto x = m.Get("dynamics"); x && !x->IsNull()) f.dynamics = ReadDynamics(*x, f.channels);
   if (auto x = m.Get("model")) f.model = ReadModel(*x);

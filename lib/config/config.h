@@ -30,6 +30,7 @@
 #include "learn/constraint_options.h"
 #include "learn/fit_options.h"
 #include "learn/trajectory_options.h"
+#include "monitor/channel_quality.h"
 #include "monitor/drift_monitor_options.h"
 #include "monitor/health_levels.h"
 #include "physics/dynamics_spec.h"
@@ -142,6 +143,10 @@ struct FeedConfig {
   // a state when the channel has no sample near the time (a slow channel
   // such as a lab assay); 0 = never carried. From `hold: {channel: 60s}`.
   std::vector<Micros> hold;
+  // Per channel (feed order): configured range and bad-quality sentinels
+  // for the sensor screen. From `quality: {channel: {range: [lo, hi],
+  // bad_values: [-9999]}}`; unset channels get the robust rules only.
+  std::vector<ChannelQuality> quality;
   std::optional<DynamicsConfig> dynamics;
   ModelConfig model;
   RetrainConfig retrain;

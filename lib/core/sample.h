@@ -17,8 +17,14 @@ struct Sample {
   // missing channel's value is NaN and its bit in missing_mask is set.
   std::vector<double> values;
   std::uint64_t missing_mask = 0;  // bit c set <=> channel c is missing
+  // Channels whose reading was screened as SUSPECT (out of range, a
+  // bad-quality sentinel, a spike; monitor/sensor_screen.h). A suspect
+  // channel is also missing, so nothing trains on, scores or forecasts from
+  // it; its raw reading stays in values[c] (not NaN) to be stored and shown.
+  std::uint64_t suspect_mask = 0;
 
   bool missing(int channel) const { return (missing_mask >> channel) & 1U; }
+  bool suspect(int channel) const { return (suspect_mask >> channel) & 1U; }
   bool complete() const { return missing_mask == 0; }
   friend bool operator==(const Sample& a, const Sample& b);
 };

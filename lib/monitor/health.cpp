@@ -120,6 +120,7 @@ HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& mod
                                FormatDuration(alarm ? t.data_age_alarm : t.data_age_alert)));
     }
   }
+  for (const std::string& c : in.suspect_channels) judge.Add(Verdict::kAlert, "suspect sensor readings on " + c);
   if (in.training_blocked) {
     judge.Add(Verdict::kAlert, "retraining finds no usable training pairs: " + *in.training_blocked);
   }

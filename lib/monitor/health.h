@@ -25,6 +25,8 @@
 //     while a model is active: drift cannot be judged -> alert, with why
 //   - the last retrain found no usable training pairs while data arrive
 //     (training_blocked)                             -> alert, with why
+//   - suspect readings on a channel within kSuspectRecentSteps model steps
+//     of the newest data (a failing sensor)          -> alert, per channel
 //   - since_training_lyapunov_times vs the model-age thresholds in force
 //     (ModelAgeInForce)                              -> alert / alarm
 // While paused (plant shutdown) only storage and the no-data / no-model
@@ -89,6 +91,9 @@ ModelAgeThresholds ModelAgeInForce(const HealthLevels& configured, const std::op
 // seen its signal for several correlation times reports itself).
 inline constexpr double kUnscoredAlertLyapunovTimes = 5;
 inline constexpr double kUnscoredAlertSteps = 100;
+// A channel's suspect readings stay a health reason this long (in model
+// steps of data) after the last one.
+inline constexpr double kSuspectRecentSteps = 300;
 
 struct HealthInputs {
   bool has_data = false;           // any sample of the feed stored
@@ -109,6 +114,9 @@ struct HealthInputs {
   // The last retrain could not train for want of usable pairs while data
   // arrive: why, in words; absent otherwise.
   std::optional<std::string> training_blocked;
+  // Channels with suspect readings (sensor screen) recently, each described
+  // in words ("'x': 12 suspect readings, the last -9999 at T").
+  std::vector<std::string> suspect_channels;
 };
 
 struct HealthResult {

@@ -32,6 +32,7 @@ struct FeedRuntime::State {
   std::vector<std::pair<DataTime, double>> last;    // per channel, its newest observation (t 0: none)
   std::optional<DataTime> last_drift_trigger;
   std::uint64_t drift_triggers = 0;
+  std::vector<SuspectChannel> suspects;
 };
 
 FeedRuntime::FeedRuntime(const FeedConfig& feed, std::uint32_t index, Scheduler& scheduler, SchedulerLog log)
@@ -86,6 +87,16 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
       s.newest = sample;
     } else if (sample.t == s.newest->t) {  // a merged row: the writer passes the whole row
       s.newest = sample;
+    }
+    s.suspects.resize(feed_.channels.size());
+    for (std::size_t c = 0; c < s.suspects.size() && c < sample.values.size(); ++c) {
+      if (!sample.suspect(static_cast<int>(c))) continue;
+      SuspectChannel& sc = s.suspects[c];
+      ++sc.count;
+      if (!sc.last || sample.t >= *sc.last) {
+        sc.last = sample.t;
+        sc.last_value = sample.values[c];
+      }
     }
     s.last.resize(feed_.channels.size());
     for (std::size_t c = 0; c < s.last.size() && c < sample.values.size(); ++c) {
@@ -150,6 +161,13 @@ std::optional<FeedRuntime::StartEstimate> FeedRuntime::EstimateStart() const {
     out.start.missing_mask &= ~(std::uint64_t{1} << c);
     out.estimated.push_back({c, Seconds(out.start.t - s.last[k].first)});
   }
+  return out;
+}
+
+std::vector<FeedRuntime::SuspectChannel> FeedRuntime::Suspects() const {
+  std::lock_guard lock(mu_);
+  std::vector<SuspectChannel> out = state_->suspects;
+  out.resize(feed_.channels.size());
   return out;
 }
 

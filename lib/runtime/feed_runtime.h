@@ -79,6 +79,15 @@ class FeedRuntime {
     std::vector<EstimatedChannel> estimated;
   };
   std::optional<StartEstimate> EstimateStart() const;
+
+  // Readings the sensor screen marked suspect, per channel (feed order),
+  // as the committed samples showed them.
+  struct SuspectChannel {
+    std::int64_t count = 0;
+    std::optional<DataTime> last;  // data time of the newest suspect reading
+    double last_value = 0;
+  };
+  std::vector<SuspectChannel> Suspects() const;
   void SetPaused(bool paused);
   // Drift retrains this runtime queued (alarms within min_interval of the
   // previous trigger are not counted).

@@ -218,6 +218,7 @@ void SampleWriter::ScreenGroup(std::vector<Submission>& group, GroupWork& w) {
       }
       if (e.count == 0 || fs.sample.t > e.newest) e.newest = fs.sample.t;
       e.count = std::max<std::int64_t>(e.count, 1);
+      if (screen_) screen_(fs);
       // Completions only receive outcomes, so the samples can move.
       w.candidates.push_back(std::move(fs));
       w.origin.emplace_back(i, j);

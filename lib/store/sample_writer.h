@@ -94,6 +94,12 @@ class SampleWriter {
   // rely on the subscribers having seen the sample.
   void Subscribe(std::function<void(const CommittedBatch&)> subscriber);
 
+  // Sets the sensor screen: called on the writer thread for every sample
+  // that passed the writer's own checks, in submission order, just before
+  // it is stored; it may mark channels suspect (Sample::suspect_mask, with
+  // the channel's missing bit). Only before Start().
+  void SetScreen(std::function<void(FeedSample&)> screen) { screen_ = std::move(screen); }
+
   // Commits and completes everything submitted so far, then joins the thread.
   void Stop();
 
@@ -125,6 +131,7 @@ class SampleWriter {
   const int feed_count_;
   const WriterOptions options_;
   std::vector<std::function<void(const CommittedBatch&)>> subscribers_;
+  std::function<void(FeedSample&)> screen_;
 
   mutable std::mutex mu_;
   std::condition_variable cv_;

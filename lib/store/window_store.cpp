@@ -104,9 +104,20 @@ Status AddOriginColumn(sqlite3* db) {
                       "adding the origin column (schema version 4)");
 }
 
+Status AddSuspectColumns(sqlite3* db) {
+  // Readings screened as suspect (monitor/sensor_screen.h): their channels
+  // are missing in mask/vals, so older readers see them as gaps; the bits
+  // are in suspect and the raw readings in suspect_vals (float64
+  // little-endian, in channel order, like vals).
+  return sqlite::Exec(db,
+                      "ALTER TABLE samples ADD COLUMN suspect INTEGER NOT NULL DEFAULT 0;"
+                      "ALTER TABLE samples ADD COLUMN suspect_vals BLOB;",
+                      "adding the suspect-reading columns (schema version 5)");
+}
+
 using Migration = Status (*)(sqlite3*);
 constexpr Migration kMigrations[] = {&CreateWindowTables, &CreateModelTables, &AddExponentColumns,
-                                     &AddOriginColumn};
+                                     &AddOriginColumn, &AddSuspectColumns};
 static_assert(std::size(kMigrations) == kSchemaVersion, "one migration per schema version");
 
 Result<int> ReadUserVersion(sqlite3* db) {
@@ -231,6 +242,32 @@ void EncodeValues(const Sample& s, int channels, std::vector<unsigned char>* out
   }
 }
 
+// suspect_vals: the raw readings of the suspect channels, as vals encodes values.
+void EncodeSuspect(const Sample& s, int channels, std::vector<unsigned char>* out) {
+  out->clear();
+  for (int c = 0; c < channels; ++c) {
+    if (!s.suspect(c)) continue;
+    const auto bits = std::bit_cast<std::uint64_t>(s.values[static_cast<size_t>(c)]);
+    for (int b = 0; b < 8; ++b) out->push_back(static_cast<unsigned char>(bits >> (8 * b)));
+  }
+}
+
+bool DecodeSuspect(std::span<const unsigned char> bytes, std::uint64_t suspect, int channels, Sample* s) {
+  if ((suspect & ~ChannelBits(channels)) != 0 || bytes.size() != static_cast<size_t>(std::popcount(suspect)) * 8) {
+    return false;
+  }
+  s->suspect_mask = suspect;
+  size_t pos = 0;
+  for (int c = 0; c < channels; ++c) {
+    if (!((suspect >> c) & 1U)) continue;
+    std::uint64_t bits = 0;
+    for (int b = 0; b < 8; ++b) bits |= static_cast<std::uint64_t>(bytes[pos + static_cast<size_t>(b)]) << (8 * b);
+    pos += 8;
+    s->values[static_cast<size_t>(c)] = std::bit_cast<double>(bits);
+  }
+  return true;
+}
+
 bool DecodeValues(std::span<const unsigned char> bytes, std::uint64_t mask, int channels, Sample* s) {
   if ((mask & ~ChannelBits(channels)) != 0) return false;
   const int present = channels - std::popcount(mask);
@@ -344,7 +381,7 @@ Status WindowStore::PrepareStatements() {
       {&stmts->feed_by_name, "SELECT feed_id, channels, step_us FROM feeds WHERE name = ?1"},
       {&stmts->insert_feed, "INSERT INTO feeds(name, channels, step_us, created_at) VALUES(?1, ?2, ?3, ?4)"},
       {&stmts->insert_sample,
-       "INSERT INTO samples(feed_id, t_us, mask, vals) VALUES(?1, ?2, ?3, ?4) "
+       "INSERT INTO samples(feed_id, t_us, mask, vals, suspect, suspect_vals) VALUES(?1, ?2, ?3, ?4, ?5, ?6) "
        "ON CONFLICT(feed_id, t_us) DO NOTHING"},
       {&stmts->select_sample, "SELECT mask, vals FROM samples WHERE feed_id = ?1 AND t_us = ?2"},
       {&stmts->update_sample, "UPDATE samples SET mask = ?3, vals = ?4 WHERE feed_id = ?1 AND t_us = ?2"},
@@ -359,7 +396,7 @@ Status WindowStore::PrepareStatements() {
        "       (SELECT min(t_us) FROM samples WHERE feed_id = ?1),"
        "       (SELECT max(t_us) FROM samples WHERE feed_id = ?1)"},
       {&stmts->read_range,
-       "SELECT t_us, mask, vals FROM samples WHERE feed_id = ?1 AND t_us >= ?2 AND t_us < ?3 "
+       "SELECT t_us, mask, vals, suspect, suspect_vals FROM samples WHERE feed_id = ?1 AND t_us >= ?2 AND t_us < ?3 "
        "ORDER BY t_us LIMIT ?4"},
   };
   for (const auto& [stmt, sql] : kSql) {
@@ -518,7 +555,7 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
 
   std::vector<InsertOutcome> result;
   result.reserve(samples.size());
-  std::vector<unsigned char> vals;
+  std::vector<unsigned char> vals, suspect_vals;
   for (const FeedSample& fs : samples) {
     const std::int64_t feed_id = feed_ids_[fs.feed];
     const auto mask = static_cast<std::int64_t>(fs.sample.missing_mask);  // bit pattern kept (C++20 modular)
@@ -529,6 +566,9 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
       st.insert_sample.BindTime(2, fs.sample.t);
       st.insert_sample.BindInt(3, mask);
       st.insert_sample.BindBlob(4, vals);
+      st.insert_sample.BindInt(5, static_cast<std::int64_t>(fs.sample.suspect_mask));
+      EncodeSuspect(fs.sample, channel_counts_[fs.feed], &suspect_vals);
+      st.insert_sample.BindBlob(6, suspect_vals);
       const int rc = st.insert_sample.Step();
       if (rc != SQLITE_DONE) return sqlite::Error(db_, rc, what);
     }
@@ -673,7 +713,10 @@ Status WindowStore::ReadRange(std::uint32_t feed, DataTime from, DataTime to, in
         Sample& s = slice[rows];
         s.t = st.read_range.ColumnTime(0);
         const auto mask = static_cast<std::uint64_t>(st.read_range.ColumnInt(1));
-        if (!DecodeValues(st.read_range.ColumnBlob(2), mask, channels, &s)) {
+        s.suspect_mask = 0;
+        if (!DecodeValues(st.read_range.ColumnBlob(2), mask, channels, &s) ||
+            !DecodeSuspect(st.read_range.ColumnBlob(4), static_cast<std::uint64_t>(st.read_range.ColumnInt(3)),
+                           channels, &s)) {
           return Status::Corruption(fmt::format("{}: the row at t={} does not match the feed's {} channels", what,
                                                 FormatRfc3339(s.t), channels));
         }

@@ -62,7 +62,7 @@ struct StoreOptions {
 };
 
 // 1: window tables; 2: model registry; 3: exponent columns; 4: models.origin
-inline constexpr int kSchemaVersion = 4;
+inline constexpr int kSchemaVersion = 5;
 
 class WindowStore {
  public:

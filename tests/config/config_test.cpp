@@ -276,6 +276,18 @@ TEST(ConfigDefaults, HoldIsPerChannelAndDefaultsToNever) {
   ExpectError(FeedWith("    hold: {y: -1s}\n"), 4, "feeds[0].hold.y", {});
 }
 
+TEST(ConfigDefaults, QualityIsPerChannel) {
+  const Config c = MustParse(FeedWith("    quality: {y: {range: [-5, 5], bad_values: [-9999, 1e30]}}\n"));
+  ASSERT_EQ(c.feeds[0].quality.size(), 2u);
+  EXPECT_FALSE(c.feeds[0].quality[0].lo.has_value());
+  EXPECT_EQ(c.feeds[0].quality[1].lo, -5.0);
+  EXPECT_EQ(c.feeds[0].quality[1].hi, 5.0);
+  EXPECT_EQ(c.feeds[0].quality[1].bad_values, (std::vector<double>{-9999, 1e30}));
+  ExpectError(FeedWith("    quality: {y: {range: [5, -5]}}\n"), 4, "feeds[0].quality.y.range", {"lo < hi"});
+  ExpectError(FeedWith("    quality: {q: {range: [0, 1]}}\n"), 4, "feeds[0].quality.q", {"not a channel"});
+  ExpectError(FeedWith("    quality: {y: {limits: [0, 1]}}\n"), 4, "feeds[0].quality.y.limits", {"range, bad_values"});
+}
+
 TEST(ConfigErrors, StepExampleFromTheHeader) {
   const Result<Config> r = ParseConfig(FeedWith("    step: -1s\n"), "demo.yaml");
   ASSERT_FALSE(r.ok());
@@ -293,7 +305,7 @@ TEST(ConfigErrors, UnknownKeysListTheAllowedOnes) {
   ExpectError(FeedWith("    dynamics:\n      equations: {x: y, y: x}\n      constraints:\n"
                        "        - {kind: velocity, wieght: 1}\n"),
               7, "feeds[0].dynamics.constraints[0].wieght", {"allowed keys", "kind, weight, anneal"});
-  ExpectError(FeedWith("    colour: red\n"), 4, "feeds[0].colour", {"id, channels, units, step, hold, dynamics"});
+  ExpectError(FeedWith("    colour: red\n"), 4, "feeds[0].colour", {"id, channels, units, step, hold, quality, dynamics"});
 }
 
 TEST(ConfigErrors, DuplicateKeysNameTheSecondLine) {

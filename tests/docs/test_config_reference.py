@@ -41,6 +41,7 @@ SECTIONS = {
         "ReadRetrain": "feeds[].retrain",
         "ReadMonitor": "feeds[].monitor",
         "ReadHealth": "feeds[].health",
+        "ReadChannelQuality": "feeds[].quality.<channel>",
     },
     "lib/config/scenario.cpp": {
         "ReadRoot": "",

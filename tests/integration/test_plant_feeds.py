@@ -239,6 +239,40 @@ class PlantFeedTest(unittest.TestCase):
         self.assertEqual(len(forecast["points"]), 10)
         self.assertNotIn("cannot be judged", " ".join(status["health"]["reasons"]))
 
+    def test_a_sentinel_burst_is_kept_suspect_and_harms_neither_training_nor_a_later_alarm(self):
+        # Channel x writes -9999 for 10 s and then 1e30 for 10 s (bad-quality
+        # codes, no configuration); r steps 28 -> 38 at 60 s.
+        change = 60
+        lines = self.simulate("sentinel.csv", "90s", "--change", f"r=38@{change}s")
+        burst = 0
+        for k, line in enumerate(lines):
+            feed, t, x, y, z = line.split(",")
+            second = float(t) - START_S
+            if 20 <= second < 40:
+                lines[k] = f"{feed},{t},{-9999 if second < 30 else 1e30},{y},{z}"
+                burst += 1
+        with self.daemon("sentinel") as d:
+            d.start()
+            self.send(d, lines)
+            self.wait_settled(d)
+            status = self.status(d)
+            versions = self.versions(d)
+            errors = [float(e) for (e,) in d.sql("SELECT validation_error FROM models WHERE status != 'rejected'")]
+            _, forecast = d.http_get("/v1/feeds/lorenz/forecast?steps=200")
+            stored = d.sql("SELECT count(*), sum(suspect = 1), sum(suspect > 1) FROM samples")
+            log = d.read_log(tail=20000)
+        self.assertEqual(stored[0], [str(len(lines)), str(burst), "0"], "every reading stored, the burst marked on x only")
+        self.assertEqual(status["suspect"]["x"]["count"], burst, status["suspect"])
+        self.assertEqual(set(status["suspect"]), {"x"}, "no false suspects on y or z")
+        self.assertTrue(all(e < 0.5 for e in errors), f"a served version learned the sentinels: {errors}")
+        peak = max(abs(v) for p in forecast["points"] for v in p["values"])
+        self.assertLess(peak, 100, "the forecast stays on the attractor's scale")
+        drift = [v for v in versions if v["trigger"] == "drift"]
+        self.assertFalse([v for v in drift if v["trained_to"] < change], f"an alarm before the change: {versions}")
+        self.assertTrue([v for v in drift if v["trained_to"] - change < 5 / LAMBDA],
+                        f"the change raised no alarm within 5 Lyapunov times: {versions}\n{log}")
+        self.assertIn("is suspect", log)
+
 
 if __name__ == "__main__":
     unittest.main()

@@ -443,6 +443,23 @@ TEST(WindowStoreData, PartialRowsAtOneTimeMergeChannelByChannel) {
   EXPECT_EQ(store->Extent(0)->count, 2) << "merging adds no row";
 }
 
+TEST(WindowStoreData, SuspectReadingsAreStoredAsMissingWithTheirRawValues) {
+  TempDir dir;
+  auto store = OpenOrDie(dir.path() / "w.db");
+  ASSERT_NE(store, nullptr);
+  ASSERT_TRUE(store->RegisterFeeds({LoopA()}).ok());
+  FeedSample fs = Make(0, Sec(1), {1, -9999, 3});
+  fs.sample.suspect_mask = 0b010;
+  fs.sample.missing_mask = 0b010;
+  InsertOk(*store, {fs});
+  const auto rows = ReadAll(*store, 0);
+  ASSERT_EQ(rows.size(), 1U);
+  EXPECT_EQ(rows[0], fs.sample);
+  EXPECT_EQ(rows[0].values[1], -9999) << "the raw reading comes back";
+  // Readers of the file that know only mask and vals see a gap.
+  EXPECT_EQ(Shell(dir.path() / "w.db", "SELECT mask, length(vals), suspect, length(suspect_vals) FROM samples"), "2|16|2|8");
+}
+
 TEST(WindowStoreData, RejectsMalformedBatchesWithoutStoringAnything) {
   TempDir dir;
   auto store = OpenOrDie(dir.path() / "w.db");
