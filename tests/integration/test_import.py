@@ -10,6 +10,7 @@ storage.retention 6h. Times start at 2026-01-01 (in the past, so no
 future-time; the feeds are empty, so nothing is too old unless made so)."""
 
 import os
+import math
 import random
 import re
 import shutil
@@ -131,7 +132,9 @@ class ImportTest(unittest.TestCase):
         offsets = [0, 60, -330, 345]  # Z, +01:00, -05:30, +05:45
         for k in range(300):
             t_us = START_US + k * 100_000 + rng.randrange(0, 50_000)  # microseconds that are not round
-            values = [rng.uniform(-2, 2) * 10 ** rng.randrange(-6, 6) for _ in range(3)]
+            # Smooth, instrument-like history (the daemon's sensor screen marks
+            # absurd jumps suspect), with digits that are not round.
+            values = [(c + 1) * math.sin(0.05 * k + c) + rng.uniform(-1e-3, 1e-3) for c in range(3)]
             if k % 17 == 3:
                 values[rng.randrange(3)] = None  # a missing channel: an empty cell
             if k == 5:
