@@ -30,7 +30,9 @@ class StoredFormatTest(unittest.TestCase):
             self.assertEqual(int(stored_t), t_us)
             self.assertEqual(int(mask), 0b010, "bit 1 = dtemp_h missing")
             self.assertEqual(vals_hex, struct.pack("<dd", 0.3125, -1.5e-3).hex().upper())
-            self.assertEqual(d.sql("PRAGMA user_version"), [["4"]])
+            self.assertEqual(d.sql("SELECT suspect, suspect_vals IS NULL OR length(suspect_vals) = 0 FROM samples"),
+                             [["0", "1"]], "no suspect reading, no raw suspect values")
+            self.assertEqual(d.sql("PRAGMA user_version"), [["5"]])
             self.assertEqual(d.sql("PRAGMA journal_mode"), [["wal"]])
             self.assertEqual(d.sql("SELECT name, channels FROM feeds ORDER BY feed_id"),
                              [["loop-a", "flow,dtemp_h,dtemp_v"], ["rig-b", "x,v"]])
