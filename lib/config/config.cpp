@@ -413,17 +413,23 @@ HealthConfig ReadHealth(const Value& v) {
   return c;
 }
 
+// The channel a per-channel map's key names (hold, quality), or a failure
+// naming the key and the feed's channels.
+std::size_t ChannelKey(const MapReader::Entry& e, const std::vector<std::string>& channels, std::string_view section) {
+  const auto it = std::find(channels.begin(), channels.end(), e.key);
+  if (it == channels.end()) {
+    e.value.source()->Fail(e.key_line, e.value.path(),
+                           fmt::format("'{}' is not a channel of this feed; {} names channels ({})", e.key, section,
+                                       Join(channels)));
+  }
+  return static_cast<std::size_t>(it - channels.begin());
+}
+
 // hold: {channel: duration}, each channel of the feed at most once.
 void ReadHold(const Value& v, const std::vector<std::string>& channels, std::vector<Micros>* hold) {
   const MapReader m = v.MapAnyKeys();
   for (const MapReader::Entry& e : m.entries()) {
-    const auto it = std::find(channels.begin(), channels.end(), e.key);
-    if (it == channels.end()) {
-      e.value.source()->Fail(e.key_line, e.value.path(),
-                             fmt::format("'{}' is not a channel of this feed; hold names channels ({})", e.key,
-                                         Join(channels)));
-    }
-    (*hold)[static_cast<std::size_t>(it - channels.begin())] = e.value.Duration(DurationRule::Positive());
+    (*hold)[ChannelKey(e, channels, "hold")] = e.value.Duration(DurationRule::Positive());
   }
 }
 
@@ -449,13 +455,7 @@ ChannelQuality ReadChannelQuality(const Value& v) {
 void ReadQuality(const Value& v, const std::vector<std::string>& channels, std::vector<ChannelQuality>* quality) {
   const MapReader m = v.MapAnyKeys();
   for (const MapReader::Entry& e : m.entries()) {
-    const auto it = std::find(channels.begin(), channels.end(), e.key);
-    if (it == channels.end()) {
-      e.value.source()->Fail(e.key_line, e.value.path(),
-                             fmt::format("'{}' is not a channel of this feed; quality names channels ({})", e.key,
-                                         Join(channels)));
-    }
-    (*quality)[static_cast<std::size_t>(it - channels.begin())] = ReadChannelQuality(e.value);
+    (*quality)[ChannelKey(e, channels, "quality")] = ReadChannelQuality(e.value);
   }
 }
 

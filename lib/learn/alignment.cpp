@@ -1,6 +1,8 @@
 #include "learn/alignment.h"
 
+#include <algorithm>
 #include <chrono>
+#include <vector>
 
 namespace lyapcast {
 
@@ -19,6 +21,16 @@ FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, c
   if (db < da && db <= tolerance) return {Formed::kNearest, b->value};
   if (a != nullptr && hold > Micros{} && da <= hold) return {Formed::kCarried, a->value};
   return {};
+}
+
+std::optional<Micros> MedianSpacing(std::span<const Sample> sorted) {
+  if (sorted.size() < 2) return std::nullopt;
+  std::vector<Micros> gaps;
+  gaps.reserve(sorted.size() - 1);
+  for (std::size_t i = 1; i < sorted.size(); ++i) gaps.push_back(sorted[i].t - sorted[i - 1].t);
+  const auto mid = gaps.begin() + static_cast<std::ptrdiff_t>(gaps.size() / 2);
+  std::nth_element(gaps.begin(), mid, gaps.end());
+  return *mid;
 }
 
 }  // namespace lyapcast

@@ -31,6 +31,8 @@
 #include <algorithm>
 #include <cstdint>
 #include <limits>
+#include <optional>
+#include <span>
 #include <utility>
 #include <vector>
 
@@ -81,6 +83,11 @@ struct FormedValue {
 // channel's (options.hold_for(channel)).
 FormedValue ValueAt(const ChannelPoint* a, const ChannelPoint* b, DataTime at, const AlignmentOptions& options,
                     Micros hold = Micros{});
+
+// The median time between consecutive samples of `sorted` (in time
+// order); none for fewer than two samples. How a feed is really sampled,
+// whatever its configured step.
+std::optional<Micros> MedianSpacing(std::span<const Sample> sorted);
 
 // The state at `at` from `samples`, a sequence sorted by strictly increasing
 // time with operator[] and size() (a std::vector<Sample>, a span, or a ring

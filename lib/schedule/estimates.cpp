@@ -47,12 +47,9 @@ Result<ExponentEstimate> DataExponent(const FeedConfig& feed, std::span<const Sa
   // sparser than the step, at the whole number of steps nearest the median
   // sample spacing, so the exponent is per second of real time whatever
   // the sampling.
-  std::vector<Micros> gaps;
-  for (std::size_t i = 1; i < samples.size(); ++i) gaps.push_back(samples[i].t - samples[i - 1].t);
   Micros spacing = feed.step;
-  if (!gaps.empty()) {
-    std::nth_element(gaps.begin(), gaps.begin() + static_cast<std::ptrdiff_t>(gaps.size() / 2), gaps.end());
-    const double ratio = static_cast<double>(gaps[gaps.size() / 2].count()) / static_cast<double>(feed.step.count());
+  if (const std::optional<Micros> median = MedianSpacing(samples)) {
+    const double ratio = static_cast<double>(median->count()) / static_cast<double>(feed.step.count());
     spacing = std::max<std::int64_t>(1, std::llround(ratio)) * feed.step;
   }
   const int channels = static_cast<int>(feed.channels.size());

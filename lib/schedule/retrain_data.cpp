@@ -40,12 +40,9 @@ void SplitHeldOut(const std::vector<Trajectory>& heldout, RetrainData* d) {
 }  // namespace
 
 std::string DiagnoseNoPairs(std::span<const Sample> window, const GridSeries& grid, const FeedConfig& feed) {
-  if (window.size() < 2) return "";
-  std::vector<Micros> gaps;
-  gaps.reserve(window.size() - 1);
-  for (std::size_t i = 1; i < window.size(); ++i) gaps.push_back(window[i].t - window[i - 1].t);
-  std::nth_element(gaps.begin(), gaps.begin() + static_cast<std::ptrdiff_t>(gaps.size() / 2), gaps.end());
-  const Micros median = gaps[gaps.size() / 2];
+  const std::optional<Micros> spacing = MedianSpacing(window);
+  if (!spacing) return "";
+  const Micros median = *spacing;
   const double steps = static_cast<double>(median.count()) / static_cast<double>(feed.step.count());
   if (std::llround(steps) > feed.model.max_gap) {
     return fmt::format("samples are about {} apart ({} model steps of {}), more than model.max_gap {}: raise "
