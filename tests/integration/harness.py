@@ -16,6 +16,7 @@ import time
 import urllib.request
 
 LYAPCASTD = os.environ.get("LYAPCASTD", "lyapcastd")
+CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 SQLITE3 = os.environ.get("LYAPCAST_SQLITE3", "sqlite3")
 
 FEED_YAML = """
@@ -234,3 +235,26 @@ def t_text(t_us):
 
 def now_us():
     return int(time.time() * 1_000_000)
+
+
+def run_cli(*args, code=0, timeout=300):
+    """Runs the lyapcast CLI; fails unless it exits `code` (None: any)."""
+    out = subprocess.run([CLI, *args], capture_output=True, text=True, timeout=timeout)
+    if code is not None and out.returncode != code:
+        raise AssertionError(f"lyapcast {' '.join(args)} exited {out.returncode}, expected {code}:\n"
+                             f"stdout: {out.stdout}\nstderr: {out.stderr}")
+    return out
+
+
+def wait_settled(d, feed_index=0, timeout=300):
+    """Until the feed runs no job and nothing is due (lockstep leaves none behind); returns its /v1/feeds entry."""
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        _, body = d.http_get("/v1/feeds")
+        feed = body["feeds"][feed_index]
+        r = feed["retraining"]
+        newest = feed["window"]["newest"]
+        if not r["running"] and newest and r["next_due"] and r["next_due"]["epoch_s"] > newest["epoch_s"]:
+            return feed
+        time.sleep(0.05)
+    raise AssertionError("retraining did not settle:\n" + d.read_log())

@@ -24,7 +24,7 @@ import time
 import unittest
 import urllib.request
 
-from harness import Daemon, daemon_config
+from harness import Daemon, daemon_config, run_cli
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
@@ -55,12 +55,7 @@ def config(db, feeds, extra=""):
     return daemon_config(db, feeds, extra)
 
 
-def run(*args, code=0, timeout=300):
-    out = subprocess.run([CLI, *args], capture_output=True, text=True, timeout=timeout)
-    if code is not None and out.returncode != code:
-        raise AssertionError(f"lyapcast {' '.join(args)} exited {out.returncode}, expected {code}:\n"
-                             f"stdout: {out.stdout}\nstderr: {out.stderr}")
-    return out
+run = run_cli
 
 
 def closed_port():

@@ -26,7 +26,7 @@ import unittest
 import urllib.error
 import urllib.request
 
-from harness import Daemon, IngestClient, daemon_config
+from harness import Daemon, IngestClient, daemon_config, wait_settled
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 CHROMIUM = "/usr/bin/chromium"
@@ -104,20 +104,6 @@ def ingest(d, lines):
     bad = [r for r in replies if not r.startswith("ok")]
     if len(replies) != len(lines) or bad:
         raise AssertionError(f"ingest: {len(replies)}/{len(lines)} replies, errors {bad[:3]}\n{d.read_log()}")
-
-
-def wait_settled(d, feed_index=0, timeout=120):
-    """Until no job runs and nothing is due (lockstep leaves none behind)."""
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        _, body = d.http_get("/v1/feeds")
-        feed = body["feeds"][feed_index]
-        r = feed["retraining"]
-        newest = feed["window"]["newest"]
-        if not r["running"] and newest and r["next_due"] and r["next_due"]["epoch_s"] > newest["epoch_s"]:
-            return feed
-        time.sleep(0.05)
-    raise AssertionError("retraining did not settle:\n" + d.read_log())
 
 
 def raw_get(port, path, method="GET"):

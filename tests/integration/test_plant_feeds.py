@@ -11,14 +11,11 @@ scenarios, made with `lyapcast simulate --jitter/--step`."""
 
 import os
 import shutil
-import subprocess
 import tempfile
-import time
 import unittest
 
-from harness import Daemon, IngestClient
+from harness import Daemon, IngestClient, run_cli, wait_settled
 
-CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
 START_S = 1767225600
 LAMBDA = 0.9056  # Lorenz-63 largest exponent (Sprott 2003)
@@ -61,11 +58,6 @@ training:
 {feed}"""
 
 
-def run(*args):
-    out = subprocess.run([CLI, *args], capture_output=True, text=True, timeout=600)
-    if out.returncode != 0:
-        raise AssertionError(f"lyapcast {' '.join(args)} exited {out.returncode}:\n{out.stderr}")
-    return out
 
 
 class PlantFeedTest(unittest.TestCase):
@@ -84,7 +76,7 @@ class PlantFeedTest(unittest.TestCase):
         with open(cfg, "w") as f:
             f.write(FEED)
         path = os.path.join(self.dir, name)
-        run("simulate", "-c", cfg, "--duration", duration, "--transient", "20s", "--start", start, "--seed", str(seed),
+        run_cli("simulate", "-c", cfg, "--duration", duration, "--transient", "20s", "--start", start, "--seed", str(seed),
             "--noise", "0.002", "-o", path, *extra)
         with open(path) as f:
             return f.read().splitlines()
@@ -97,18 +89,6 @@ class PlantFeedTest(unittest.TestCase):
         self.assertEqual(len(replies), len(lines))
         bad = [r for r in replies if not r.startswith("ok")]
         self.assertFalse(bad, bad[:3])
-
-    def wait_settled(self, d, timeout=300):
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            _, body = d.http_get("/v1/feeds")
-            feed = body["feeds"][0]
-            r = feed["retraining"]
-            newest = feed["window"]["newest"]
-            if not r["running"] and newest and r["next_due"] and r["next_due"]["epoch_s"] > newest["epoch_s"]:
-                return feed
-            time.sleep(0.05)
-        raise AssertionError("retraining did not settle:\n" + d.read_log())
 
     def status(self, d):
         _, body = d.http_get("/v1/feeds/lorenz/status")
@@ -128,7 +108,7 @@ class PlantFeedTest(unittest.TestCase):
         with self.daemon(name, feed) as d:
             d.start()
             self.send(d, lines)
-            self.wait_settled(d)
+            wait_settled(d)
             status = self.status(d)
             versions = self.versions(d)
             log = d.read_log(tail=20000)
@@ -169,7 +149,7 @@ class PlantFeedTest(unittest.TestCase):
                 with self.daemon(f"exp-{step}", FEED_NO_DYNAMICS) as d:
                     d.start()
                     self.send(d, lines)
-                    self.wait_settled(d)
+                    wait_settled(d)
                     data = self.status(d)["lyapunov"]["data"]
                 self.assertIsNotNone(data.get("per_s"), data)
                 print(f"sampling {label}: data exponent {data['per_s']:.3f}/s ({data.get('diagnostics')})")
@@ -184,10 +164,10 @@ class PlantFeedTest(unittest.TestCase):
         with self.daemon("outage") as d:
             d.start()
             self.send(d, first)
-            self.wait_settled(d)
+            wait_settled(d)
             before = self.versions(d)
             self.send(d, second)
-            self.wait_settled(d)
+            wait_settled(d)
             after = self.versions(d)
             status = self.status(d)
             log = d.read_log(tail=20000)
@@ -224,7 +204,7 @@ class PlantFeedTest(unittest.TestCase):
                 self.send(d, fast[150 + (i - 1) * 300: 150 + i * 300])
                 self.send(d, slow[i:i + 1])
             self.send(d, fast[150 + (len(slow) - 1) * 300:])
-            settled = self.wait_settled(d)
+            settled = wait_settled(d)
             status = self.status(d)
             _, forecast = d.http_get("/v1/feeds/lorenz/forecast?steps=10")
             rows = d.sql("SELECT count(*), sum(mask = 0) FROM samples")
@@ -254,7 +234,7 @@ class PlantFeedTest(unittest.TestCase):
         with self.daemon("sentinel") as d:
             d.start()
             self.send(d, lines)
-            self.wait_settled(d)
+            wait_settled(d)
             status = self.status(d)
             versions = self.versions(d)
             errors = [float(e) for (e,) in d.sql("SELECT validation_error FROM models WHERE status != 'rejected'")]

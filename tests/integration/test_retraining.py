@@ -14,12 +14,10 @@ import os
 import shutil
 import subprocess
 import tempfile
-import time
 import unittest
 
-from harness import Daemon, IngestClient
+from harness import Daemon, IngestClient, run_cli, wait_settled
 
-CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
 START_S = 1767225600
 CHANGE_S = 60  # data seconds after START at which r changes
@@ -58,11 +56,6 @@ training:
 {FEED.format(r=r)}"""
 
 
-def run(*args):
-    out = subprocess.run([CLI, *args], capture_output=True, text=True, timeout=600)
-    if out.returncode != 0:
-        raise AssertionError(f"lyapcast {' '.join(args)} exited {out.returncode}:\n{out.stderr}")
-    return out
 
 
 class RetrainingTest(unittest.TestCase):
@@ -80,7 +73,7 @@ class RetrainingTest(unittest.TestCase):
         with open(cfg, "w") as f:
             f.write(FEED.format(r=r))
         path = os.path.join(self.dir, name)
-        run("simulate", "-c", cfg, "--duration", duration, "--transient", "20s", "--start", start, "--seed", "5",
+        run_cli("simulate", "-c", cfg, "--duration", duration, "--transient", "20s", "--start", start, "--seed", "5",
             "--noise", "0.002", "-o", path, *extra)
         return path
 
@@ -89,19 +82,6 @@ class RetrainingTest(unittest.TestCase):
                      "json_extract(details, '$.trigger') FROM models ORDER BY version")
         return [{"version": int(v), "status": s, "parent": int(p) if p else None, "trained_to": int(t) / 1e6,
                  "error": float(e) if e else None, "trigger": k} for v, s, p, t, e, k in rows]
-
-    def wait_settled(self, d, timeout=300):
-        """Until no job runs and nothing is due (lockstep leaves none behind)."""
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            _, body = d.http_get("/v1/feeds")
-            feed = body["feeds"][0]
-            r = feed["retraining"]
-            newest = feed["window"]["newest"]
-            if not r["running"] and newest and r["next_due"] and r["next_due"]["epoch_s"] > newest["epoch_s"]:
-                return feed
-            time.sleep(0.05)
-        raise AssertionError("retraining did not settle:\n" + d.read_log())
 
     def extract(self, d, version):
         path = os.path.join(self.dir, f"v{version}.lcm")
@@ -112,7 +92,7 @@ class RetrainingTest(unittest.TestCase):
         return path
 
     def score(self, model, csv):
-        return json.loads(run("score", "--model", model, "--input", csv, "--json").stdout)["error"]
+        return json.loads(run_cli("score", "--model", model, "--input", csv, "--json").stdout)["error"]
 
     def test_after_a_parameter_change_a_new_version_beats_the_one_served_before(self):
         stream = self.simulate("stream.csv", "120s", "--change", f"r=38@{CHANGE_S}s")
@@ -127,7 +107,7 @@ class RetrainingTest(unittest.TestCase):
             client.close()
             self.assertEqual(len(replies), len(lines))
             self.assertTrue(all(r.startswith("ok") for r in replies), [r for r in replies if not r.startswith("ok")][:3])
-            feed = self.wait_settled(d)
+            feed = wait_settled(d)
             versions = self.versions(d)
             with open(d.log_path, encoding="utf-8", errors="replace") as f:
                 log = f.read()
@@ -182,7 +162,7 @@ class RetrainingTest(unittest.TestCase):
             client.send_lines(lines[:half])
             self.assertEqual(len(client.wait_replies(half, timeout=300)), half)
             client.close()
-            before = self.wait_settled(d)
+            before = wait_settled(d)
             self.assertIsNotNone(before["model"], d.read_log())
             d.kill()
 
@@ -198,7 +178,7 @@ class RetrainingTest(unittest.TestCase):
             client.send_lines(lines[half:])
             self.assertEqual(len(client.wait_replies(len(lines) - half, timeout=300)), len(lines) - half)
             client.close()
-            after = self.wait_settled(d)
+            after = wait_settled(d)
             self.assertGreater(after["retraining"]["last_retrain"]["epoch_s"],
                                before["retraining"]["last_retrain"]["epoch_s"], "retraining resumed")
             versions = self.versions(d)

@@ -30,13 +30,12 @@ import os
 import re
 import shutil
 import socket
-import subprocess
 import tempfile
 import time
 import unittest
 import urllib.request
 
-from harness import Daemon, daemon_config
+from harness import Daemon, daemon_config, run_cli
 
 CLI = os.environ.get("LYAPCAST_CLI", "lyapcast")
 START = "2026-01-01T00:00:00Z"
@@ -65,12 +64,7 @@ LORENZ = """
 UPLOAD_LIMIT = 16 * 1024 * 1024
 
 
-def run(*args, code=0, timeout=300):
-    out = subprocess.run([CLI, *args], capture_output=True, text=True, timeout=timeout)
-    if code is not None and out.returncode != code:
-        raise AssertionError(f"lyapcast {' '.join(args)} exited {out.returncode}, expected {code}:\n"
-                             f"stdout: {out.stdout}\nstderr: {out.stderr}")
-    return out
+run = run_cli
 
 
 def fnv1a64(data):
