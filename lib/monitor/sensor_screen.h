@@ -9,7 +9,8 @@
 //   3. outlier: it lies more than kOutlierScale robust deviations from the
 //      median of the channel's recent accepted readings (robust deviation =
 //      1.4826 x the median absolute deviation, MAD: one absurd value cannot
-//      swamp it). Needs kMinHistory accepted readings and MAD > 0. Common
+//      swamp it), refreshed every kRefresh readings. Needs kMinHistory
+//      accepted readings and MAD > 0. Common
 //      practice for robust outlier screens uses 3 to 5; a chaotic process
 //      roams far within its attractor and shifts level after a real change,
 //      so the screen only catches the absurd: kOutlierScale = 20.
@@ -51,6 +52,7 @@ class SensorScreen {
   static constexpr double kOutlierScale = 20;
   static constexpr double kSpikeScale = 30;
   static constexpr int kShiftRun = 32;
+  static constexpr int kRefresh = 512;     // accepted readings between refreshes of the robust figures
 
   // One entry per channel of the feed (empty entries: robust rules only).
   explicit SensorScreen(std::vector<ChannelQuality> channels);
