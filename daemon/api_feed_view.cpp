@@ -55,6 +55,19 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
     in.suspect_channels.push_back(fmt::format("'{}': {} suspect readings, the last {:g} at {}", v.config->channels[k],
                                               sc.count, sc.last_value, FormatRfc3339(*sc.last)));
   }
+  if (const auto& f = v.drift.sensor_fault) {
+    std::string grew;
+    if (v.drift.last_alarm) {
+      for (int k : v.drift.last_alarm->grew) {
+        grew += fmt::format("{}'{}'", grew.empty() ? "" : ", ", v.config->channels[static_cast<std::size_t>(k)]);
+      }
+    }
+    in.sensor_fault = fmt::format(
+        "'{}' since {}: the one-step error grew{}{} and predicting without '{}' explains it ({} alarm{}); no drift "
+        "retrain",
+        v.config->channels[static_cast<std::size_t>(f->channel)], FormatRfc3339(f->since), grew.empty() ? "" : " on ",
+        grew, v.config->channels[static_cast<std::size_t>(f->channel)], f->alarms, f->alarms == 1 ? "" : "s");
+  }
   v.health = EvaluateHealth(v.config->health, v.model_age, in);
   return v;
 }
@@ -120,6 +133,51 @@ json ExponentJson(const std::optional<double>& per_s, const std::string& diagnos
   return j;
 }
 
+const char* AlarmKindName(DriftAttribution::Kind k) {
+  switch (k) {
+    case DriftAttribution::Kind::kProcessChange: return "process_change";
+    case DriftAttribution::Kind::kSensor: return "sensor";
+    case DriftAttribution::Kind::kUnknown: break;
+  }
+  return "unknown";
+}
+
+// Per channel: its own one-step error and its blind error, recent over
+// reference RMS (monitor/drift_attribution.h); null until warm.
+json DriftChannelsJson(const FeedConfig& f, const DriftSnapshot& d) {
+  json out = json::object();
+  for (std::size_t k = 0; k < d.channels.size() && k < f.channels.size(); ++k) {
+    out[f.channels[k]] = {{"error_ratio", OptionalNumber(d.channels[k].error_ratio)},
+                          {"blind_ratio", OptionalNumber(d.channels[k].blind_ratio)}};
+  }
+  return out;
+}
+
+json ChannelNames(const FeedConfig& f, const std::vector<int>& channels) {
+  json out = json::array();
+  for (int k : channels) out.push_back(f.channels[static_cast<std::size_t>(k)]);
+  return out;
+}
+
+json LastAlarmJson(const FeedConfig& f, const DriftSnapshot& d) {
+  if (!d.last_alarm) return nullptr;
+  const DriftSnapshot::AlarmReading& a = *d.last_alarm;
+  return {{"at", TimeJson(a.at)},
+          {"reading", AlarmKindName(a.kind)},
+          {"channel", a.channel >= 0 ? json(f.channels[static_cast<std::size_t>(a.channel)]) : json(nullptr)},
+          {"grew", ChannelNames(f, a.grew)},
+          {"error_ratio", a.full_ratio > 0 ? json(a.full_ratio) : json(nullptr)}};
+}
+
+json SensorFaultJson(const FeedConfig& f, const DriftSnapshot& d) {
+  if (!d.sensor_fault) return nullptr;
+  const DriftSnapshot::SensorFault& s = *d.sensor_fault;
+  return {{"channel", f.channels[static_cast<std::size_t>(s.channel)]},
+          {"since", TimeJson(s.since)},
+          {"last", TimeJson(s.last)},
+          {"alarms", s.alarms}};
+}
+
 }  // namespace
 
 json StatusJson(const ApiContext& c, const FeedView& v) {
@@ -155,7 +213,11 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
                 {"warming_up", d.warming_up},
                 {"flag", d.drift_flag},
                 {"flagged_at", d.flagged_at ? TimeJson(*d.flagged_at) : json(nullptr)},
-                {"alarms", d.alarms}};
+                {"alarms", d.alarms},
+                {"channels", DriftChannelsJson(*v.config, d)},
+                {"last_alarm", LastAlarmJson(*v.config, d)},
+                {"sensor_fault", SensorFaultJson(*v.config, d)},
+                {"sensor_alarms_total", d.sensor_alarms_total}};
   json suspect = json::object();
   for (std::size_t k = 0; k < v.suspects.size(); ++k) {
     const FeedRuntime::SuspectChannel& sc = v.suspects[k];

@@ -33,7 +33,10 @@ DriftMonitor::DriftMonitor(const DriftMonitorOptions& options)
       change_options_(ChangeOptions(options)),
       history_(kHistory),
       last_seen_(static_cast<std::size_t>(std::max(options.channels, 0))),
-      change_(change_options_) {}
+      change_(change_options_),
+      attribution_(std::max(options.channels, 0)),
+      own_sq_(static_cast<std::size_t>(std::max(options.channels, 0)), kNaN),
+      blind_sq_(static_cast<std::size_t>(std::max(options.channels, 0)), kNaN) {}
 
 Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::int64_t version,
                               double validation_error, DataTime trained_to, WallTime promoted_wall,
@@ -51,7 +54,11 @@ Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::i
   // Samples that arrived before this model were not its to score.
   scorable_from_ = newest_ ? std::max(*newest_, trained_to) : trained_to;
   unscored_ = Unscored::kNone;
-  for (std::int64_t i = 0; i < size_; ++i) slot(i).scored = true;
+  for (std::int64_t i = 0; i < size_; ++i) {
+    slot(i).scored = true;
+    // Blind estimates were the outgoing model's: restart them from the data.
+    std::fill(slot(i).blind_age.begin(), slot(i).blind_age.end(), 0);
+  }
   const bool carry = handover == Handover::kSuccessor && model_ != nullptr && alarms_ == 0;
   if (carry) {
     ResetScores();
@@ -69,6 +76,7 @@ void DriftMonitor::SetPaused(bool paused) {
 void DriftMonitor::Reset() {
   ResetScores();
   change_.Reset();
+  attribution_.Reset();
   block_sum_ = 0;
   block_count_ = 0;
 }
@@ -108,6 +116,8 @@ std::int64_t DriftMonitor::Insert(const Sample& s) {
   Slot& end = slot(size_ - 1);
   end.sample = s;  // copy-assigns into the slot's storage
   end.scored = false;
+  end.blind.resize(static_cast<std::size_t>(channels_));
+  end.blind_age.assign(static_cast<std::size_t>(channels_), 0);
   for (std::int64_t i = size_ - 1; i > pos; --i) std::swap(slot(i), slot(i - 1));
   return pos;
 }
@@ -160,14 +170,79 @@ double DriftMonitor::Score(std::int64_t i, bool* multi) {
   double sum = 0;
   int present = 0;
   for (int j = 0; j < channels_; ++j) {
+    own_sq_[static_cast<std::size_t>(j)] = kNaN;
     if (target.missing(j)) continue;
     const double z = (y_[j] - target.values[static_cast<std::size_t>(j)]) / scale[j];
+    own_sq_[static_cast<std::size_t>(j)] = z * z;
     sum += z * z;
     ++present;
   }
   const double e = std::sqrt(sum / present);
+  if (k == 1) {
+    RunBlind(i, target.t - step_);
+  } else {
+    std::fill(blind_sq_.begin(), blind_sq_.end(), kNaN);
+  }
   if (!std::isfinite(e)) unscored_ = Unscored::kNotFinite;
   return e;
+}
+
+void DriftMonitor::RunBlind(std::int64_t i, DataTime at) {
+  std::fill(blind_sq_.begin(), blind_sq_.end(), kNaN);
+  if (channels_ < 2) return;  // no other channel to judge a blind estimate by
+  Slot& s = slot(i);
+  // The chain's previous link: the sample nearest the state's time, within
+  // the alignment tolerance (on a jittered grid the previous sample; on an
+  // oversampled one the sample one step back).
+  const Micros tol = alignment_.tolerance_or_default();
+  const Slot* parent = nullptr;
+  Micros best = tol;
+  for (std::int64_t j = i - 1; j >= 0 && slot(j).sample.t >= at - tol; --j) {
+    const Slot& p = slot(j);
+    const Micros d = p.sample.t > at ? p.sample.t - at : at - p.sample.t;
+    if (d <= best && p.blind_age.size() == static_cast<std::size_t>(channels_)) {
+      best = d;
+      parent = &p;
+    }
+  }
+  const auto n = static_cast<Eigen::Index>(channels_);
+  blind_x_.resize(n, n);
+  for (Eigen::Index c = 0; c < n; ++c) {
+    blind_x_.col(c) = x_;
+    if (parent != nullptr && parent->blind_age[static_cast<std::size_t>(c)] > 0) {
+      blind_x_(c, c) = parent->blind[static_cast<std::size_t>(c)];
+    }
+  }
+  model_->StepBatch(blind_x_, &blind_y_, *scratch_);
+  const Eigen::VectorXd& scale = model_->error_scale();
+  for (int c = 0; c < channels_; ++c) {
+    const auto uc = static_cast<std::size_t>(c);
+    const int age = parent != nullptr ? parent->blind_age[uc] : 0;
+    if (age == 0 || !std::isfinite(blind_y_(c, c))) {
+      // Start the chain from the measurement (settles within kSettle steps
+      // when the other channels drive this one).
+      const bool present = !s.sample.missing(c);
+      s.blind[uc] = present ? s.sample.values[uc] : kNaN;
+      s.blind_age[uc] = present ? 1 : 0;
+      continue;
+    }
+    s.blind[uc] = blind_y_(c, c);
+    s.blind_age[uc] = std::min(age + 1, 1 << 30);
+    if (age < kSettle) continue;
+    double sum = 0;
+    int present = 0;
+    for (int d = 0; d < channels_; ++d) {
+      if (d == c || s.sample.missing(d)) continue;
+      const double z = (blind_y_(d, c) - s.sample.values[static_cast<std::size_t>(d)]) / scale[d];
+      sum += z * z;
+      ++present;
+    }
+    if (present > 0) blind_sq_[uc] = sum / present;
+  }
+}
+
+bool DriftMonitor::SensorFaultActive() const {
+  return sensor_fault_ && newest_ && *newest_ - sensor_fault_->last <= kSensorHoldSteps * step_;
 }
 
 bool DriftMonitor::TryScore(std::int64_t i, Observation* out) {
@@ -210,19 +285,36 @@ void DriftMonitor::Record(double e, DataTime t, Observation* out) {
   ewma_sq_ = scored_ == 0 ? e2 : ewma_sq_ + kAlpha * (e2 - ewma_sq_);  // start at the first value, not 0
   window_sq_[static_cast<std::size_t>(scored_ % kWindow)] = e2;
   ++scored_;
+  // The references learn what is normal only while it is: not while the
+  // change test climbs towards an alarm, nor during a sensor fault.
+  const bool sensor_fault = SensorFaultActive();
+  const bool in_control =
+      !sensor_fault && (change_.warming_up() || change_.statistic() < 0.5 * change_options_.threshold);
+  attribution_.Add(e2, own_sq_.data(), blind_sq_.data(), in_control);
   block_sum_ += std::log(e);
   if (++block_count_ < kBlock) return;
   const double block_mean = block_sum_ / kBlock;
   block_sum_ = 0;
   block_count_ = 0;
-  if (change_.Add(block_mean)) {
-    out->alarm_raised = true;
-    if (!drift_flag_) flagged_at_ = t;
-    drift_flag_ = true;
-    ++alarms_;
-    ++alarms_total_;
-    change_.Restart();
+  if (!change_.Add(block_mean)) return;
+  change_.Restart();
+  const DriftAttribution::Verdict verdict = attribution_.Judge();
+  last_alarm_ = DriftSnapshot::AlarmReading{t, verdict.kind, verdict.channel, verdict.grew, verdict.full_ratio};
+  if (verdict.kind == DriftAttribution::Kind::kSensor) {
+    out->sensor_alarm = verdict.channel;
+    if (!sensor_fault || sensor_fault_->channel != verdict.channel) {
+      sensor_fault_ = DriftSnapshot::SensorFault{verdict.channel, t, t, 0};
+    }
+    sensor_fault_->last = t;
+    ++sensor_fault_->alarms;
+    ++sensor_alarms_total_;
+    return;
   }
+  out->alarm_raised = true;
+  if (!drift_flag_) flagged_at_ = t;
+  drift_flag_ = true;
+  ++alarms_;
+  ++alarms_total_;
 }
 
 DriftMonitor::Observation DriftMonitor::Observe(const Sample& s, WallTime arrived_wall) {
@@ -255,6 +347,7 @@ DriftMonitor::Observation DriftMonitor::Observe(const Sample& s, WallTime arrive
     Observation later;
     TryScore(j, &later);
     if (later.alarm_raised) out.alarm_raised = true;
+    if (later.sensor_alarm >= 0) out.sensor_alarm = later.sensor_alarm;
   }
   Prune();
   return out;
@@ -346,6 +439,10 @@ DriftSnapshot DriftMonitor::Snapshot(WallTime wall_now) const {
   d.newest_data_time = newest_;
   d.scored_late = scored_late_;
   d.scored_multi = scored_multi_;
+  d.channels = attribution_.Figures();
+  d.last_alarm = last_alarm_;
+  if (SensorFaultActive()) d.sensor_fault = sensor_fault_;
+  d.sensor_alarms_total = sensor_alarms_total_;
   if (model_ != nullptr && !paused_ && newest_) {
     DataTime from = scorable_from_.value_or(trained_to_);
     if (last_scored_) from = std::max(from, *last_scored_);

@@ -46,11 +46,19 @@
 //     first live scores, so it detects a CHANGE after promotion; a model
 //     that is poor from the start shows in drift_ratio instead. (e == 0, an
 //     exact prediction, is skipped by the test as non-finite.)
-// When the change test alarms, the drift flag rises (with the alarm's data
-// time), Observe reports alarm_raised exactly once for that alarm (the
-// caller triggers a retrain), and the test restarts on the same in-control
-// estimate so a persisting or new change alarms again later. The flag is
-// cleared only by SetModel or Reset.
+// When the change test alarms, attribution (monitor/drift_attribution.h)
+// reads it: each scored sample also gives every channel's own error and,
+// for data scored one step apart, each channel's blind error (the other
+// channels predicted from the model's own running estimate of that channel).
+//   - one sensor at fault: Observe reports sensor_alarm = that channel, the
+//     monitor reports the sensor fault (Snapshot().sensor_fault) and raises
+//     no drift flag: retraining would learn the fault;
+//   - otherwise (a process change, or too little evidence): the drift flag
+//     rises (with the alarm's data time) and Observe reports alarm_raised
+//     exactly once for that alarm (the caller triggers a retrain).
+// Either way the test restarts on the same in-control estimate so a
+// persisting or new change alarms again later. The flag is cleared only by
+// SetModel or Reset.
 //
 // A feed retrained every few tens of samples would keep the change test in
 // its warm-up forever if every new model restarted it (a 2 Hz feed
@@ -85,6 +93,7 @@
 #include "learn/alignment.h"
 #include "learn/forecast_model.h"
 #include "monitor/change_test.h"
+#include "monitor/drift_attribution.h"
 #include "monitor/drift_monitor_options.h"
 
 namespace lyapcast {
@@ -121,6 +130,28 @@ struct DriftSnapshot {
   std::string unscored_cause;
   std::int64_t scored_late = 0;   // samples scored after a newer one arrived
   std::int64_t scored_multi = 0;  // samples scored through G^k, k > 1
+  // Per channel (feed order), once the attribution's references are warm:
+  // its own one-step error and its blind error, recent over reference RMS.
+  std::vector<DriftAttribution::ChannelFigures> channels;
+  // The newest change-test alarm as attribution read it (none before one).
+  struct AlarmReading {
+    DataTime at{};
+    DriftAttribution::Kind kind = DriftAttribution::Kind::kUnknown;
+    int channel = -1;        // the suspect sensor when kind is kSensor
+    std::vector<int> grew;   // channels whose own error grew
+    double full_ratio = 0;   // recent / reference RMS of the whole error (0: unknown)
+  };
+  std::optional<AlarmReading> last_alarm;
+  // A sensor that attribution found at fault, while it is (its newest such
+  // alarm within kSensorHoldSteps model steps of the newest sample).
+  struct SensorFault {
+    int channel = -1;
+    DataTime since{};  // first alarm of this spell
+    DataTime last{};   // newest alarm
+    std::int64_t alarms = 0;  // alarms of this spell
+  };
+  std::optional<SensorFault> sensor_fault;
+  std::int64_t sensor_alarms_total = 0;  // alarms attributed to a sensor over the monitor's life
 };
 
 class DriftMonitor {
@@ -130,10 +161,17 @@ class DriftMonitor {
   static constexpr int kBlock = 10;      // scored samples per change-test observation
   static constexpr int kWarmupBlocks = 30;  // blocks that estimate the in-control level
   static constexpr int kHistory = 1024;     // samples kept for forming earlier states
+  static constexpr int kSettle = 50;        // steps a blind estimate runs before its errors count
+  static constexpr int kSensorHoldSteps = 300;  // model steps a sensor fault stays reported after its last alarm
 
   struct Observation {
     bool scored = false;
-    bool alarm_raised = false;  // this sample raised a change-test alarm
+    // This sample raised a change-test alarm read as a change of the process
+    // (or unattributable): the drift flag is up; the caller retrains.
+    bool alarm_raised = false;
+    // This sample raised an alarm that attribution put on one sensor: the
+    // channel (feed order), else -1. No drift flag; the caller does not retrain.
+    int sensor_alarm = -1;
     double error = std::numeric_limits<double>::quiet_NaN();  // e when scored
   };
 
@@ -191,6 +229,10 @@ class DriftMonitor {
   struct Slot {
     Sample sample;
     bool scored = false;
+    // Blind estimates (drift_attribution.h) at this sample's time, per
+    // channel, and how many steps each chain has run (0: none).
+    std::vector<double> blind;
+    std::vector<int> blind_age;
   };
   // The history as a sequence sorted by time, limited to its first `size`
   // slots (alignment's StateAt reads it).
@@ -212,7 +254,13 @@ class DriftMonitor {
   // Scores slot i if the rules allow; returns whether it raised an alarm.
   bool TryScore(std::int64_t i, Observation* out);
   // e through G^k from the state before slot i; NaN when none can be formed.
+  // Fills own_sq_ and blind_sq_ for attribution.
   double Score(std::int64_t i, bool* multi);
+  // Advances the blind estimates to slot i from the one nearest `at` (the
+  // state's time, one step before) and fills blind_sq_. x_ holds the state,
+  // y_ its one-step prediction.
+  void RunBlind(std::int64_t i, DataTime at);
+  bool SensorFaultActive() const;
   void Record(double e, DataTime t, Observation* out);
   std::string DescribeUnscored() const;
 
@@ -262,6 +310,14 @@ class DriftMonitor {
   Eigen::VectorXd x_, y_;
   std::vector<double> state_;
   std::unique_ptr<ModelScratch> scratch_;
+
+  // Attribution (carried over with the change test for a successor model).
+  DriftAttribution attribution_;
+  std::vector<double> own_sq_, blind_sq_;
+  Eigen::MatrixXd blind_x_, blind_y_;
+  std::optional<DriftSnapshot::AlarmReading> last_alarm_;
+  std::optional<DriftSnapshot::SensorFault> sensor_fault_;
+  std::int64_t sensor_alarms_total_ = 0;
 };
 
 }  // namespace lyapcast

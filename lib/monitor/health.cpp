@@ -121,6 +121,7 @@ HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& mod
     }
   }
   for (const std::string& c : in.suspect_channels) judge.Add(Verdict::kAlert, "suspect sensor readings on " + c);
+  if (in.sensor_fault) judge.Add(Verdict::kAlert, "suspect sensor " + *in.sensor_fault);
   if (in.training_blocked) {
     judge.Add(Verdict::kAlert, "retraining finds no usable training pairs: " + *in.training_blocked);
   }

@@ -117,6 +117,9 @@ struct HealthInputs {
   // Channels with suspect readings (sensor screen) recently, each described
   // in words ("'x': 12 suspect readings, the last -9999 at T").
   std::vector<std::string> suspect_channels;
+  // A sensor the drift monitor found at fault (DriftSnapshot::sensor_fault),
+  // described in words ("'x' since T: ..."); absent otherwise.
+  std::optional<std::string> sensor_fault;
 };
 
 struct HealthResult {

@@ -111,6 +111,14 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
       trigger = true;
     }
   }
+  if (seen.sensor_alarm >= 0) {
+    // Retraining now would learn the fault; the sensor is reported instead
+    // (status drift.sensor_fault, health).
+    Log(SchedulerLogLevel::kWarning,
+        fmt::format("feed {}: the one-step error grew at {} and ignoring channel '{}' explains it: suspect sensor; "
+                    "no drift retrain",
+                    feed_.id, FormatRfc3339(sample.t), feed_.channels[static_cast<std::size_t>(seen.sensor_alarm)]));
+  }
   if (seen.alarm_raised && !trigger) {
     Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: drift alarm again at {}; a drift retrain ran less than "
                                               "min_interval ago",

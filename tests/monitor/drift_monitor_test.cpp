@@ -294,9 +294,10 @@ TEST(DriftMonitor, DriftFlagRisesWhenTheProcessChangesAndANewModelClearsIt) {
   DriftMonitor m(Feed());
   ASSERT_TRUE(m.SetModel(ShiftModel({0.25f, -0.5f}), 1, 0.1, kT0 - kStep, kWall0).ok());
   Process p(99);
-  // The new map moves a by an extra 0.3 s_a per step: e's RMS goes from 0.1
-  // to sqrt((0.09 + 0.02) / 2) = 0.23.
-  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 0.3 * kStd[0], -0.5};
+  // The new map moves both channels by an extra 0.3 s_c per step (a change
+  // of the process: one channel alone would read as a failing sensor, see
+  // drift_attribution_test.cpp): e's RMS goes from 0.1 to sqrt(0.09 + 0.01) = 0.32.
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 0.3 * kStd[0], -0.5 + 0.3 * kStd[1]};
   for (int i = 0; i < 400; ++i) EXPECT_FALSE(Observe(m, p.Next(v)).alarm_raised) << i;
   DriftSnapshot d = m.Snapshot(kWall0);
   EXPECT_FALSE(d.drift_flag);
@@ -327,7 +328,7 @@ TEST(DriftMonitor, DriftFlagRisesWhenTheProcessChangesAndANewModelClearsIt) {
   d = m.Snapshot(kWall0);
   EXPECT_EQ(d.alarms, 1 + more);
   EXPECT_EQ(d.flagged_at, first_t);
-  EXPECT_NEAR(*d.drift_ratio, 2.3, 0.5);
+  EXPECT_NEAR(*d.drift_ratio, 3.2, 0.5);
 
   // A model of the new map clears the flag and the per-model count; the
   // new regime is in control for it.
@@ -345,7 +346,7 @@ TEST(DriftMonitor, DriftFlagRisesWhenTheProcessChangesAndANewModelClearsIt) {
 TEST(DriftMonitor, SuccessorsCarryTheChangeTestSoFrequentRetrainsDoNotBlindIt) {
   // A model replaced every 60 samples (a 2 Hz feed retrained every 30 s)
   // never finishes a 300-sample warm-up if each new model restarts it.
-  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 0.3 * kStd[0], -0.5};
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 0.3 * kStd[0], -0.5 + 0.3 * kStd[1]};
   const auto run = [&](DriftMonitor::Handover handover) {
     DriftMonitor m(Feed());
     Process p(99);
@@ -375,7 +376,7 @@ TEST(DriftMonitor, AfterAnAlarmEvenASuccessorRestartsTheChangeTest) {
   DriftMonitor m(Feed());
   ASSERT_TRUE(m.SetModel(ShiftModel({0.25f, -0.5f}), 1, 0.1, kT0 - kStep, kWall0).ok());
   Process p(17);
-  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5};
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5 + 2.0 * kStd[1]};
   for (int i = 0; i < 350; ++i) Observe(m, p.Next(v));
   ASSERT_FALSE(m.Snapshot(kWall0).warming_up);
   Sample last;
@@ -396,7 +397,7 @@ TEST(DriftMonitor, PausedMeansNoScoringAndNoAlarm) {
   DriftMonitor m(Feed());
   ASSERT_TRUE(m.SetModel(ShiftModel({0.25f, -0.5f}), 1, 0.1, kT0 - kStep, kWall0).ok());
   Process p(5);
-  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5};
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5 + 2.0 * kStd[1]};
   for (int i = 0; i < 300; ++i) Observe(m, p.Next(v));
   const std::int64_t scored = m.Snapshot(kWall0).scored;
   m.SetPaused(true);
@@ -420,7 +421,7 @@ TEST(DriftMonitor, ResetClearsTheFlagButKeepsTheModel) {
   DriftMonitor m(Feed());
   ASSERT_TRUE(m.SetModel(ShiftModel({0.25f, -0.5f}), 4, 0.1, kT0 - kStep, kWall0).ok());
   Process p(17);
-  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5};
+  const Eigen::Vector2d v{0.25, -0.5}, changed{0.25 + 2.0 * kStd[0], -0.5 + 2.0 * kStd[1]};
   for (int i = 0; i < 350; ++i) Observe(m, p.Next(v));  // past the warm-up (30 blocks of 10)
   for (int i = 0; i < 50; ++i) Observe(m, p.Next(changed));
   ASSERT_TRUE(m.Snapshot(kWall0).drift_flag);
