@@ -20,6 +20,7 @@ std::string_view SuspectKindName(SuspectKind k) {
     case SuspectKind::kRange: return "range";
     case SuspectKind::kOutlier: return "outlier";
     case SuspectKind::kSpike: return "spike";
+    case SuspectKind::kStuck: return "stuck";
   }
   return "?";
 }
@@ -37,12 +38,17 @@ void SensorScreen::Update(Channel& ch) {
   if (!ch.rates.empty()) {
     scratch_.assign(ch.rates.begin(), ch.rates.end());
     ch.rate_scale = Median(scratch_);
+    const auto zeros = std::count(ch.rates.begin(), ch.rates.end(), 0.0);
+    ch.repeat_share = static_cast<double>(zeros) / static_cast<double>(ch.rates.size());
   }
   ch.since_update = 0;
 }
 
 void SensorScreen::Accept(Channel& ch, DataTime t, double v) {
-  if (ch.has_last && t > ch.last_t) {
+  // A run of repeats adds one zero rate, not one per repeat: the share of
+  // zeros then counts how often the channel starts repeating, which a stuck
+  // spell (accepted up to kStuckRun - 1 repeats) barely changes.
+  if (ch.has_last && t > ch.last_t && ch.repeat_run < 2) {
     const double rate = std::abs(v - ch.last_v) / Seconds(t - ch.last_t);
     if (ch.rates.size() < static_cast<std::size_t>(kHistory)) {
       ch.rates.push_back(rate);
@@ -103,6 +109,9 @@ std::optional<SuspectKind> SensorScreen::Check(Channel& ch, DataTime t, double v
   }
   ch.outlier_run = 0;
   ch.run.clear();
+  if (warm && ch.repeat_run >= kStuckRun && ch.rate_scale > 0 && ch.repeat_share <= kStuckShare) {
+    return SuspectKind::kStuck;
+  }
   if (warm && ch.has_last && t > ch.last_t && ch.rate_scale > 0) {
     const double rate = std::abs(v - ch.last_v) / Seconds(t - ch.last_t);
     if (rate > kSpikeScale * ch.rate_scale) {
@@ -124,6 +133,7 @@ std::uint64_t SensorScreen::Screen(Sample& s) {
     if (s.missing(c)) continue;
     Channel& ch = channels_[static_cast<std::size_t>(c)];
     const double v = s.values[static_cast<std::size_t>(c)];
+    ch.repeat_run = ch.has_raw && s.t > ch.raw_t && v == ch.raw_v ? ch.repeat_run + 1 : 0;
     const std::optional<SuspectKind> kind = Check(ch, s.t, v);
     const bool spike = kind == SuspectKind::kSpike;
     if (kind) {
@@ -133,6 +143,7 @@ std::uint64_t SensorScreen::Screen(Sample& s) {
       Accept(ch, s.t, v);
     }
     ch.last_raw_spike = spike;
+    ch.has_raw = true;
     ch.raw_t = s.t;
     ch.raw_v = v;
   }

@@ -18,13 +18,20 @@
 //      kShiftRun outliers in a row hold at least kShiftRun / 2 distinct
 //      values (a burst of one or two codes such as -9999 and 1e30 does not),
 //      the history restarts from them (those already marked stay marked);
-//   4. spike: its rate of change from the channel's last accepted reading
+//   4. stuck: it is the kStuckRun-th or later reading in a row equal to the
+//      one before it (bit for bit) on a channel that normally moves: warm,
+//      a median rate > 0, and at most kStuckShare of its recent accepted
+//      readings start a run of repeats (a quantized slow signal repeats
+//      often; its stuck sensor cannot be told this way and is not
+//      screened). The first kStuckRun - 1 repeats are accepted; the first
+//      reading that differs ends the run;
+//   5. spike: its rate of change from the channel's last accepted reading
 //      exceeds kSpikeScale x the median rate over recent accepted
 //      consecutive readings (a one-step innovation screen on a robust
 //      scale). A step that holds (the next reading is close to the flagged
 //      one) is accepted from then on: it costs one suspect reading.
 // Readings never enter the history once suspect. A channel that is constant
-// (MAD 0, rate 0) is not screened by 3 and 4.
+// (MAD 0, rate 0) is not screened by 3, 4 and 5.
 //
 // Not thread-safe; the writer thread calls it (SampleWriter::SetScreen).
 #pragma once
@@ -41,9 +48,9 @@
 
 namespace lyapcast {
 
-enum class SuspectKind { kBadValue, kRange, kOutlier, kSpike };
-inline constexpr int kSuspectKinds = 4;
-std::string_view SuspectKindName(SuspectKind k);  // "bad_value", "range", "outlier", "spike"
+enum class SuspectKind { kBadValue, kRange, kOutlier, kSpike, kStuck };
+inline constexpr int kSuspectKinds = 5;
+std::string_view SuspectKindName(SuspectKind k);  // "bad_value", "range", "outlier", "spike", "stuck"
 
 class SensorScreen {
  public:
@@ -53,6 +60,8 @@ class SensorScreen {
   static constexpr double kSpikeScale = 30;
   static constexpr int kShiftRun = 32;
   static constexpr int kRefresh = 512;     // accepted readings between refreshes of the robust figures
+  static constexpr int kStuckRun = 32;      // repeats in a row that make a moving channel stuck
+  static constexpr double kStuckShare = 0.05;  // at most this share of accepted readings start a repeat run
 
   // One entry per channel of the feed (empty entries: robust rules only).
   explicit SensorScreen(std::vector<ChannelQuality> channels);
@@ -72,11 +81,14 @@ class SensorScreen {
     std::vector<double> rates;   // ring of |rate| between accepted consecutive readings
     std::size_t next_value = 0, next_rate = 0;
     double median = 0, mad = 0, rate_scale = 0;
+    double repeat_share = 0;  // share of the rates ring that are 0 (one per run of repeats)
+    int repeat_run = 0;       // readings in a row equal to the one before (raw)
     int since_update = 0;
     bool has_last = false;
     DataTime last_t{};
     double last_v = 0;
     bool last_raw_spike = false;  // the previous reading was flagged a spike
+    bool has_raw = false;  // raw_t, raw_v: the previous reading, suspect or not
     DataTime raw_t{};
     double raw_v = 0;
     int outlier_run = 0;

@@ -88,6 +88,50 @@ TEST(SensorScreen, ASpikeIsSuspectAndAStepThatHoldsCostsOneReading) {
   EXPECT_EQ(screen.counts()[0][static_cast<int>(SuspectKind::kSpike)], 2);
 }
 
+TEST(SensorScreen, AStuckSensorIsSuspectAfterARunOfRepeatsAndFollowsItWhenItMovesAgain) {
+  SensorScreen screen({{}, {}});
+  int k = 0;
+  for (; k < 1000; ++k) {
+    Sample s = At(k, Sine(k));
+    ASSERT_EQ(screen.Screen(s), 0u);
+  }
+  // The sensor freezes at its last reading for 5 s (500 readings): the
+  // first kStuckRun - 1 repeats pass, the rest are suspect.
+  const double frozen = Sine(k - 1);
+  for (int j = 0; j < 500; ++j, ++k) {
+    Sample s = At(k, frozen);
+    EXPECT_EQ(screen.Screen(s), j + 1 >= SensorScreen::kStuckRun ? 0b01u : 0u) << j;
+  }
+  // It comes back: the true signal passes at once (no run of spikes), and
+  // the constant channel b, which never moves, was never called stuck.
+  for (int j = 0; j < 500; ++j, ++k) {
+    Sample s = At(k, Sine(k));
+    EXPECT_EQ(screen.Screen(s), 0u) << j;
+  }
+  EXPECT_EQ(screen.counts()[0][static_cast<int>(SuspectKind::kStuck)], 500 - SensorScreen::kStuckRun + 1);
+  EXPECT_EQ(screen.counts()[0][static_cast<int>(SuspectKind::kSpike)], 0);
+  EXPECT_EQ(screen.counts()[1], (std::array<std::int64_t, kSuspectKinds>{}));
+  // A second freeze is caught as quickly: the first one did not teach the
+  // screen that this channel repeats.
+  const double frozen_again = Sine(k - 1);
+  for (int j = 0; j < 100; ++j, ++k) {
+    Sample s = At(k, frozen_again);
+    EXPECT_EQ(screen.Screen(s), j + 1 >= SensorScreen::kStuckRun ? 0b01u : 0u) << j;
+  }
+}
+
+TEST(SensorScreen, AChannelThatOftenRepeatsIsNotCalledStuck) {
+  // A slow signal read through a coarse quantizer (steps of 0.05) repeats
+  // most readings; long runs at its turning points are normal.
+  SensorScreen screen(std::vector<ChannelQuality>(1));
+  for (int k = 0; k < 5000; ++k) {
+    Sample s;
+    s.t = DataTime{} + k * kDt;
+    s.values = {0.05 * std::round(Sine(k / 4) / 0.05)};
+    ASSERT_EQ(screen.Screen(s), 0u) << k;
+  }
+}
+
 TEST(SensorScreen, ALevelShiftWithVarietyIsAcceptedAfterARun) {
   SensorScreen screen({{}, {}});
   int k = 0;
