@@ -137,6 +137,7 @@ const char* AlarmKindName(DriftAttribution::Kind k) {
   switch (k) {
     case DriftAttribution::Kind::kProcessChange: return "process_change";
     case DriftAttribution::Kind::kSensor: return "sensor";
+    case DriftAttribution::Kind::kPending: return "sensor_pending";
     case DriftAttribution::Kind::kUnknown: break;
   }
   return "unknown";

@@ -268,10 +268,13 @@ int RunDaemon(const DaemonOptions& options) {
       const std::int64_t n = ++logged[c];
       if (n != 1 && n != 10 && n != 100 && n != 1000 && n % 10000 != 0) continue;
       const auto& counts = screens[fs.feed].counts()[c];
-      spdlog::warn("feed {}: channel {} reading {} at {} is suspect; {} suspect so far (bad_value {}, range {}, "
-                   "outlier {}, spike {}); kept but not trained on",
-                   f.id, f.channels[c], fs.sample.values[c], FormatRfc3339(fs.sample.t), n, counts[0], counts[1],
-                   counts[2], counts[3]);
+      std::string kinds;
+      for (int k = 0; k < kSuspectKinds; ++k) {
+        kinds += fmt::format("{}{} {}", k == 0 ? "" : ", ", SuspectKindName(static_cast<SuspectKind>(k)),
+                             counts[static_cast<std::size_t>(k)]);
+      }
+      spdlog::warn("feed {}: channel {} reading {} at {} is suspect; {} suspect so far ({}); kept but not trained on",
+                   f.id, f.channels[c], fs.sample.values[c], FormatRfc3339(fs.sample.t), n, kinds);
     }
   });
   const auto fail = [&](const std::string& message) {

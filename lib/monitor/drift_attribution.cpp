@@ -62,23 +62,33 @@ DriftAttribution::Verdict DriftAttribution::Judge() const {
     if (g >= kMinGrowth && g >= 0.5 * most) v.grew.push_back(c);
   }
   const double growth = std::log(*full);
-  if (growth < kMinGrowth) return v;
+  if (growth < kMinGrowth) {
+    v.kind = Kind::kPending;
+    return v;
+  }
   v.kind = Kind::kProcessChange;
   if (channels_ < 2) return v;
-  int explained = -1, count = 0;
+  int explained = -1, count = 0, grown = 0;
   for (int c = 0; c < channels_; ++c) {
-    const std::optional<double> blind = blind_[static_cast<std::size_t>(c)].Ratio(kMinReference);
-    if (!blind) return v;  // a channel whose blind estimate never settled: cannot rule it in or out
+    const Figure& b = blind_[static_cast<std::size_t>(c)];
+    const std::optional<double> blind = b.Ratio(kMinReference);
+    if (!blind) return v;  // a channel whose blind estimate never ran: cannot rule it in or out
+    // A blind estimate that does not settle (the learned map does not pull
+    // it back when the channel contracts weakly) has a reference error far
+    // above the full error's: it says nothing either way.
+    if (b.reference > kInformative * kInformative * full_.reference) continue;
     const double g = std::log(*blind);
     if (g <= kExplained * growth) {
       explained = c;
       ++count;
-    } else if (g < kUnexplained * growth) {
+    } else if (g >= kUnexplained * growth) {
+      ++grown;
+    } else {
       return v;  // partly explained: not one sensor
     }
   }
-  if (count == 1) {
-    v.kind = Kind::kSensor;
+  if (count == 1 && grown >= 1) {
+    v.kind = growth >= kSensorGrowth ? Kind::kSensor : Kind::kPending;
     v.channel = explained;
   }
   return v;

@@ -23,10 +23,24 @@
 // So at an alarm, with G the growth of the full error and g_c that of c's
 // blind error (log of the recent RMS over the reference RMS):
 //   - sensor c when exactly one channel has g_c <= kExplained * G and every
-//     other channel's blind error grew, g_d >= kUnexplained * G;
+//     other channel's blind error grew, g_d >= kUnexplained * G (at least
+//     one). A blind estimate that does not settle is left out of the
+//     judgment: its reference RMS is over kInformative times the full
+//     error's (a learned map need not pull a weakly contracting channel
+//     back; Lorenz-63's y, whose own damping is -1 against sigma = 10 for
+//     x, is one), and so is its channel: it can be neither named nor ruled
+//     out, and with too few settled estimates every alarm is a process change;
+//     When the whole error grew less than twofold (G < kSensorGrowth) the
+//     verdict is PENDING instead: a model still catching up with a real
+//     change can show the same pattern at a small growth (seen on
+//     Lorenz-63 a few seconds after a change of r). The caller neither
+//     retrains nor reports; a lasting fault alarms again, larger;
 //   - process change otherwise;
-//   - unknown while the references are warming up, or when G is too small
-//     to judge (treated like a process change by the caller).
+//   - pending also when G is below kMinGrowth: the change test saw a rise
+//     that the recent window does not show clearly enough to read (the
+//     next alarm of a lasting change will);
+//   - unknown while the references are warming up (treated like a process
+//     change by the caller).
 // Each verdict also names the channels whose own one-step error grew most
 // (log growth >= kMinGrowth and >= half the largest).
 // A channel that nothing else reads (a pure output) is unobservable this
@@ -53,11 +67,13 @@ class DriftAttribution {
   static constexpr int kRecent = 30;            // samples in the recent mean square
   static constexpr int kReferenceSpan = 1000;   // samples in the reference (EWMA span once full)
   static constexpr int kMinReference = 200;     // reference samples before any verdict
-  static constexpr double kExplained = 0.25;    // blind growth at most this share of the full growth
+  static constexpr double kExplained = 1.0 / 3;  // blind growth at most this share of the full growth
   static constexpr double kUnexplained = 0.5;   // every other blind growth at least this share
   static constexpr double kMinGrowth = 0.2;     // log growth of the full error needed to judge (~1.22x)
+  static constexpr double kInformative = 5.0;   // blind reference RMS above this x the full one: not settled
+  static constexpr double kSensorGrowth = 0.6931471805599453;  // log 2: a sensor needs the error doubled
 
-  enum class Kind { kUnknown, kProcessChange, kSensor };
+  enum class Kind { kUnknown, kProcessChange, kSensor, kPending };
   struct Verdict {
     Kind kind = Kind::kUnknown;
     int channel = -1;          // the suspect sensor (kSensor)

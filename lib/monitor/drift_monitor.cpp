@@ -300,6 +300,7 @@ void DriftMonitor::Record(double e, DataTime t, Observation* out) {
   change_.Restart();
   const DriftAttribution::Verdict verdict = attribution_.Judge();
   last_alarm_ = DriftSnapshot::AlarmReading{t, verdict.kind, verdict.channel, verdict.grew, verdict.full_ratio};
+  if (verdict.kind == DriftAttribution::Kind::kPending) return;  // wait for the next alarm
   if (verdict.kind == DriftAttribution::Kind::kSensor) {
     out->sensor_alarm = verdict.channel;
     if (!sensor_fault || sensor_fault_->channel != verdict.channel) {

@@ -53,6 +53,9 @@
 //   - one sensor at fault: Observe reports sensor_alarm = that channel, the
 //     monitor reports the sensor fault (Snapshot().sensor_fault) and raises
 //     no drift flag: retraining would learn the fault;
+//   - one sensor, but the error has not doubled yet (pending): nothing but
+//     Snapshot().last_alarm; the test restarts and a lasting fault alarms
+//     again;
 //   - otherwise (a process change, or too little evidence): the drift flag
 //     rises (with the alarm's data time) and Observe reports alarm_raised
 //     exactly once for that alarm (the caller triggers a retrain).

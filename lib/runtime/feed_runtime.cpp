@@ -33,6 +33,10 @@ struct FeedRuntime::State {
   std::optional<DataTime> last_drift_trigger;
   std::uint64_t drift_triggers = 0;
   std::vector<SuspectChannel> suspects;
+  // The current spell of sensor alarms (for logging at 1, 10, 100, ...).
+  int sensor_channel = -1;
+  DataTime sensor_last{};
+  std::int64_t sensor_spell = 0;
 };
 
 FeedRuntime::FeedRuntime(const FeedConfig& feed, std::uint32_t index, Scheduler& scheduler, SchedulerLog log)
@@ -75,11 +79,33 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
   scheduler_.OnSample(index_, sample.t);  // 1. in lockstep: a due retrain runs first
   DriftMonitor::Observation seen;
   bool trigger = false;
+  std::int64_t sensor_spell = 0;
+  struct {
+    double full_ratio = 0;
+    std::string blind;
+  } evidence;
   {
     std::lock_guard lock(mu_);
     State& s = *state_;
     SyncModelLocked();                          // 2.
     seen = s.monitor.Observe(sample, arrived);  // 3.
+    if (seen.sensor_alarm >= 0) {
+      const bool same = seen.sensor_alarm == s.sensor_channel &&
+                        sample.t - s.sensor_last <= DriftMonitor::kSensorHoldSteps * feed_.step;
+      s.sensor_spell = same ? s.sensor_spell + 1 : 1;
+      s.sensor_channel = seen.sensor_alarm;
+      s.sensor_last = sample.t;
+      sensor_spell = s.sensor_spell;
+    }
+    if (seen.sensor_alarm >= 0 || seen.alarm_raised) {
+      const DriftSnapshot d = s.monitor.Snapshot(arrived);
+      if (d.last_alarm) evidence.full_ratio = d.last_alarm->full_ratio;
+      for (std::size_t c = 0; c < d.channels.size() && c < feed_.channels.size(); ++c) {
+        const std::optional<double>& r = d.channels[c].blind_ratio;
+        evidence.blind += fmt::format("{}{} {}", c == 0 ? "" : ", ", feed_.channels[c],
+                                      r ? fmt::format("{:.2f}", *r) : std::string("-"));
+      }
+    }
     if (sample.complete() && (!s.newest_complete || sample.t >= s.newest_complete->t)) {
       s.newest_complete = sample;  // 4.
     }
@@ -111,13 +137,16 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
       trigger = true;
     }
   }
-  if (seen.sensor_alarm >= 0) {
+  if (seen.sensor_alarm >= 0 && (sensor_spell == 1 || sensor_spell == 10 || sensor_spell % 100 == 0)) {
     // Retraining now would learn the fault; the sensor is reported instead
-    // (status drift.sensor_fault, health).
+    // (status drift.sensor_fault, health). Logged at the first alarm of a
+    // spell, the 10th and every 100th: a lasting fault alarms often.
     Log(SchedulerLogLevel::kWarning,
-        fmt::format("feed {}: the one-step error grew at {} and ignoring channel '{}' explains it: suspect sensor; "
-                    "no drift retrain",
-                    feed_.id, FormatRfc3339(sample.t), feed_.channels[static_cast<std::size_t>(seen.sensor_alarm)]));
+        fmt::format("feed {}: the one-step error grew {:.2f}x at {} and ignoring channel '{}' explains it (blind "
+                    "error ratios {}): suspect sensor ({} alarm{} in a row); no drift retrain",
+                    feed_.id, evidence.full_ratio, FormatRfc3339(sample.t),
+                    feed_.channels[static_cast<std::size_t>(seen.sensor_alarm)], evidence.blind, sensor_spell,
+                    sensor_spell == 1 ? "" : "s"));
   }
   if (seen.alarm_raised && !trigger) {
     Log(SchedulerLogLevel::kInfo, fmt::format("feed {}: drift alarm again at {}; a drift retrain ran less than "
@@ -126,7 +155,10 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
   }
   if (!trigger) return;
   const std::string reason =
-      fmt::format("change test alarm at {} (one-step error {:.3g})", FormatRfc3339(sample.t), seen.error);
+      fmt::format("change test alarm at {} (one-step error {:.3g}{})", FormatRfc3339(sample.t), seen.error,
+                  evidence.full_ratio > 0
+                      ? fmt::format(", {:.2f}x its reference; blind error ratios {}", evidence.full_ratio, evidence.blind)
+                      : std::string());
   Log(SchedulerLogLevel::kWarning, fmt::format("feed {}: drift: {}; retraining", feed_.id, reason));
   auto job = scheduler_.Trigger(index_, TriggerKind::kDrift, reason, sample.t + Micros(1));
   if (!job.ok()) {

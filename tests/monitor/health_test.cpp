@@ -148,6 +148,14 @@ TEST(EvaluateHealth, DriftFlagAlerts) {
   EXPECT_EQ(r.reasons, std::vector<std::string>{"drift flag raised by the change test"});
 }
 
+TEST(EvaluateHealth, ASensorAtFaultAlertsAndNamesIt) {
+  HealthInputs in = Healthy();
+  in.sensor_fault = "'x' since T: the one-step error grew on 'y'";
+  const HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons, std::vector<std::string>{"suspect sensor 'x' since T: the one-step error grew on 'y'"});
+}
+
 TEST(EvaluateHealth, ModelAgeInLyapunovTimes) {
   HealthInputs in = Healthy();
   in.since_training_lyapunov_times = 1.99;
