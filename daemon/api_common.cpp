@@ -104,6 +104,19 @@ Result<std::optional<bool>> BoolParam(const HttpRequest& req, const std::string&
   return Status::Invalid(fmt::format("{}: expected true or false, got '{}'", name, *text));
 }
 
+Result<std::optional<std::string_view>> WordParam(const HttpRequest& req, const std::string& name,
+                                                  std::initializer_list<std::string_view> allowed) {
+  const std::string* text = Find(req, name);
+  if (text == nullptr) return std::optional<std::string_view>{};
+  std::string words;
+  for (std::string_view word : allowed) {
+    if (*text == word) return std::optional<std::string_view>(word);
+    words += words.empty() ? "" : " or ";
+    words += word;
+  }
+  return Status::Invalid(fmt::format("{}: expected {}, got '{}'", name, words, *text));
+}
+
 Result<bool> WantsCsv(const HttpRequest& req) {
   const std::string* format = Find(req, "format");
   if (format == nullptr) return req.accept.find("text/csv") != std::string::npos;

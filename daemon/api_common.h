@@ -5,6 +5,7 @@
 #include <nlohmann/json.hpp>
 
 #include <cstdint>
+#include <initializer_list>
 #include <optional>
 #include <string>
 #include <string_view>
@@ -43,6 +44,10 @@ json OptionalNumber(const std::optional<double>& v);  // null when absent or not
 [[nodiscard]] Result<std::optional<Micros>> DurationParam(const HttpRequest& req, const std::string& name);
 // true, false, 1 or 0.
 [[nodiscard]] Result<std::optional<bool>> BoolParam(const HttpRequest& req, const std::string& name);
+// One of the `allowed` words (the returned view is the matching element of
+// `allowed`, so it lives as long as the words do: pass literals).
+[[nodiscard]] Result<std::optional<std::string_view>> WordParam(const HttpRequest& req, const std::string& name,
+                                                                std::initializer_list<std::string_view> allowed);
 
 // True when the client asked for CSV: format=csv, or no format parameter
 // and an Accept naming text/csv (format=json asks for JSON whatever Accept

@@ -2,8 +2,9 @@
 //
 // Polls the daemon's HTTP API (docs/http-api.md) every POLL_MS while the tab
 // is visible and draws, per feed: the recent observed channels and the latest
-// forecast as SVG lines with the predictability horizon, the health verdict
-// and its figures, and the model history. Every piece of text from the API is
+// forecast as SVG lines with the predictability horizon, suspect readings as
+// marks beside them, the health verdict and its figures, and the model
+// history. Every piece of text from the API is
 // inserted with textContent / setAttribute, never as markup. A read token, when
 // the daemon asks for one (401), is kept in sessionStorage and sent only as an
 // Authorization header.
@@ -500,13 +501,16 @@
     const fc = r.forecast;
     if (fc && typeof fc.advisory === "string") box.appendChild(el("p", { class: "note", text: fc.advisory }));
 
+    const samples = Array.isArray(r.samples) ? r.samples : [];
+    const anySuspect = samples.some((x) => x.suspect && typeof x.suspect === "object");
     box.appendChild(el("div", { class: "legend" },
       el("span", {}, el("span", { class: "key observed" }), "observed"),
+      anySuspect ? el("span", {}, el("span", { class: "key suspect", text: "×" }),
+        "suspect reading, not used (at the plot's edge when off scale)") : null,
       fc ? el("span", {}, el("span", { class: "key forecast" }), "forecast (model v" + fc.model_version + ")") : null,
       fc ? el("span", {}, el("span", { class: "key beyond" }), "forecast past the horizon") : null,
       fc ? el("span", {}, el("span", { class: "key horizon" }), "predictability horizon") : null));
 
-    const samples = Array.isArray(r.samples) ? r.samples : [];
     const plots = el("div", { class: "plots" });
     const channels = Array.isArray(f.channels) ? f.channels : [];
     channels.forEach((ch, i) => plots.appendChild(renderChannel(r, ch, i, samples, fc)));
@@ -519,6 +523,15 @@
   function renderChannel(r, ch, i, samples, fc) {
     const newest = r.newest;
     const observed = samples.map((x) => [x.t.epoch_s - newest, Array.isArray(x.values) ? x.values[i] : null]);
+    // Suspect readings (values has null there): [x, raw reading as the API
+    // gives it, a number or "inf"/"-inf"/"nan"]. Not in the y range, so a
+    // -9999 sentinel cannot flatten the real data.
+    const suspect = [];
+    for (const x of samples) {
+      if (x.suspect && typeof x.suspect === "object" && Object.prototype.hasOwnProperty.call(x.suspect, ch.name)) {
+        suspect.push([x.t.epoch_s - newest, x.suspect[ch.name]]);
+      }
+    }
     const within = [], beyond = [];
     let horizonX = null;
     if (fc && Array.isArray(fc.points)) {
@@ -585,6 +598,19 @@
     line("beyond", "beyond", beyond);
     plot.appendChild(g);
 
+    // A cross per suspect reading, at its value when on scale, otherwise
+    // pinned to the top or bottom edge; its tooltip gives the raw reading.
+    for (const [x, rawValue] of suspect) {
+      if (!isNum(x) || x < x0 || x > x1) continue;
+      const low = isNum(rawValue) ? rawValue < y0 : rawValue === "-inf";
+      const yv = isNum(rawValue) ? clamp(rawValue, y0, y1) : (low ? y0 : y1);
+      const cx = px(x), cy = clamp(py(yv), MT + 5, H - MB - 5);
+      plot.appendChild(svg("path", { class: "suspect", "data-series": "suspect", "data-channel": ch.name,
+        "data-raw": raw(rawValue),
+        d: "M" + (cx - 5).toFixed(1) + " " + (cy - 5).toFixed(1) + "l10 10m0 -10l-10 10" },
+        svg("title", { text: "suspect reading " + raw(rawValue) + " at " + (x > 0 ? "+" : "") + num(x) + " s" })));
+    }
+
     if (horizonX !== null && horizonX >= x0 && horizonX <= x1) {
       const x = px(horizonX).toFixed(1);
       plot.appendChild(svg("line", { class: "horizon", "data-mark": "horizon", "data-seconds": fc.horizon.seconds,
@@ -599,6 +625,14 @@
       unit ? el("span", { class: "unit", text: " [" + unit + "]" }) : el("span", { class: "unit", text: " (no unit given)" }));
     if (fc && horizonX !== null && horizonX > x1) {
       head.appendChild(el("span", { class: "unit", text: " — horizon " + duration(fc.horizon.seconds) + " lies past the plotted forecast" }));
+    }
+    // The sensor screen's count for this channel since the daemon started
+    // (status `suspect`), with the newest suspect reading.
+    const sc = r.status && r.status.suspect ? r.status.suspect[ch.name] : null;
+    if (sc && sc.count > 0) {
+      head.appendChild(el("span", { class: "suspect-note", "data-field": "suspect", "data-channel": ch.name,
+        "data-value": sc.count, text: " × " + sc.count + " suspect reading" + (sc.count === 1 ? "" : "s") +
+          ", the last " + raw(sc.last_value) + " at " + timeText(sc.last) + "; not trained on or forecast from" }));
     }
     return el("div", { class: "plot-box" }, head, plot);
   }

@@ -75,7 +75,7 @@ void FeedRuntime::SyncModelLocked() {
   }
 }
 
-void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
+void FeedRuntime::OnSample(const Sample& sample, WallTime arrived, std::uint64_t added) {
   scheduler_.OnSample(index_, sample.t);  // 1. in lockstep: a due retrain runs first
   DriftMonitor::Observation seen;
   bool trigger = false;
@@ -116,7 +116,7 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
     }
     s.suspects.resize(feed_.channels.size());
     for (std::size_t c = 0; c < s.suspects.size() && c < sample.values.size(); ++c) {
-      if (!sample.suspect(static_cast<int>(c))) continue;
+      if (!sample.suspect(static_cast<int>(c)) || !((added >> c) & 1U)) continue;
       SuspectChannel& sc = s.suspects[c];
       ++sc.count;
       if (!sc.last || sample.t >= *sc.last) {
@@ -250,8 +250,11 @@ FeedRuntimes::FeedRuntimes(const Config& config, Scheduler& scheduler, Scheduler
 
 void FeedRuntimes::OnCommitted(const CommittedBatch& batch) {
   const WallTime arrived = WallNow();
-  for (const FeedSample& fs : batch.samples) {
-    if (fs.feed < feeds_.size()) feeds_[fs.feed]->OnSample(fs.sample, arrived);
+  for (std::size_t i = 0; i < batch.samples.size(); ++i) {
+    const FeedSample& fs = batch.samples[i];
+    // A batch without `added` (built by hand) counts every suspect reading.
+    const std::uint64_t added = i < batch.added.size() ? batch.added[i] : ~std::uint64_t{0};
+    if (fs.feed < feeds_.size()) feeds_[fs.feed]->OnSample(fs.sample, arrived, added);
   }
 }
 

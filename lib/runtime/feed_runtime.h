@@ -59,7 +59,10 @@ class FeedRuntime {
   FeedRuntime& operator=(const FeedRuntime&) = delete;
 
   // The per-sample order of work above. `arrived`: wall time of the commit.
-  void OnSample(const Sample& sample, WallTime arrived);
+  // `added`: the channels whose readings are new in this commit
+  // (CommittedBatch::added); only those count as suspect readings, so a
+  // merged row's earlier suspect readings are not counted twice.
+  void OnSample(const Sample& sample, WallTime arrived, std::uint64_t added);
 
   DriftSnapshot Snapshot(WallTime wall_now) const;
   double e0() const;  // the monitor's current error; NaN when unknown
@@ -81,7 +84,7 @@ class FeedRuntime {
   std::optional<StartEstimate> EstimateStart() const;
 
   // Readings the sensor screen marked suspect, per channel (feed order),
-  // as the committed samples showed them.
+  // as the committed samples showed them (each stored reading once).
   struct SuspectChannel {
     std::int64_t count = 0;
     std::optional<DataTime> last;  // data time of the newest suspect reading

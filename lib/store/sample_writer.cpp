@@ -228,7 +228,7 @@ void SampleWriter::ScreenGroup(std::vector<Submission>& group, GroupWork& w) {
 
 bool SampleWriter::StoreCandidates(GroupWork& w, CommittedBatch* batch) {
   std::vector<InsertOutcome> inserted;
-  std::vector<Sample> merged;
+  std::vector<MergedRow> merged;
   const auto started = Clock::now();
   const Status status = store_->InsertBatch(w.candidates, &inserted, &merged);
   const double seconds = std::chrono::duration<double>(Clock::now() - started).count();
@@ -261,6 +261,10 @@ bool SampleWriter::StoreCandidates(GroupWork& w, CommittedBatch* batch) {
           e.newest = std::max(e.newest, t);
         }
         ++e.count;
+        const Sample& s = w.candidates[k].sample;
+        const int channels = store_->channel_count(w.candidates[k].feed);
+        const std::uint64_t bits = channels >= 64 ? ~std::uint64_t{0} : (std::uint64_t{1} << channels) - 1;
+        batch->added.push_back((~s.missing_mask | s.suspect_mask) & bits);
         batch->samples.push_back(std::move(w.candidates[k]));
         break;
       }
@@ -269,7 +273,8 @@ bool SampleWriter::StoreCandidates(GroupWork& w, CommittedBatch* batch) {
         // had plus this sample's), so a row completed by a second source
         // is a complete state for them.
         w.results[i][j] = Accepted();
-        batch->samples.push_back({w.candidates[k].feed, std::move(merged[k])});
+        batch->added.push_back(merged[k].added);
+        batch->samples.push_back({w.candidates[k].feed, std::move(merged[k].row)});
         break;
       case InsertOutcome::kDuplicateSame:
         w.results[i][j] = Accepted();

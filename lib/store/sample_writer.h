@@ -48,9 +48,15 @@ namespace lyapcast {
 using WriteCompletion = std::function<void(std::vector<WriteOutcome>)>;
 
 // Newly stored samples of one committed transaction (identical resends and
-// rejected samples are not included).
+// rejected samples are not included). A sample merged into a row already
+// stored at its time is handed on as the whole row as stored now.
 struct CommittedBatch {
   std::vector<FeedSample> samples;
+  // One per sample: the channels this commit stored a reading for (present
+  // or suspect); all of a new row's, only the merged-in ones of a merged
+  // row. Lets a subscriber count a reading once though a merged row
+  // repeats the readings stored before.
+  std::vector<std::uint64_t> added;
 };
 
 // Wall time of each successful commit (the InsertBatch transaction with its

@@ -288,6 +288,43 @@ bool DecodeValues(std::span<const unsigned char> bytes, std::uint64_t mask, int 
   return true;
 }
 
+// The channels a sample carries a reading for: present ones and suspect
+// ones (whose raw reading stays in values).
+std::uint64_t ReadingBits(const Sample& s, int channels) {
+  return (~s.missing_mask | s.suspect_mask) & ChannelBits(channels);
+}
+
+// Merges `in` into the stored row `row` channel by channel (docs/design.md
+// "Storage"): a channel the row has no reading for takes in's reading with
+// its suspect mark; a channel both carry must hold the same raw reading bit
+// for bit, whatever the marks (a resend may be screened differently from
+// the first sending, and is still the same reading: the stored mark stays).
+// Returns the channels added, or nullopt on a conflict (row is then partly
+// changed and must not be stored).
+std::optional<std::uint64_t> MergeInto(const Sample& in, int channels, Sample* row) {
+  const std::uint64_t stored = ReadingBits(*row, channels);
+  std::uint64_t added = 0;
+  for (int c = 0; c < channels; ++c) {
+    const std::uint64_t bit = std::uint64_t{1} << c;
+    if ((ReadingBits(in, channels) & bit) == 0) continue;
+    const double v = in.values[static_cast<std::size_t>(c)];
+    if ((stored & bit) != 0) {
+      if (std::bit_cast<std::uint64_t>(row->values[static_cast<std::size_t>(c)]) != std::bit_cast<std::uint64_t>(v)) {
+        return std::nullopt;
+      }
+      continue;
+    }
+    added |= bit;
+    row->values[static_cast<std::size_t>(c)] = v;
+    if (in.suspect(c)) {
+      row->suspect_mask |= bit;  // stays missing: nothing trains on it
+    } else {
+      row->missing_mask &= ~bit;
+    }
+  }
+  return added;
+}
+
 std::string WallNowRfc3339() { return FormatRfc3339(WallNow()); }
 
 }  // namespace
@@ -383,8 +420,10 @@ Status WindowStore::PrepareStatements() {
       {&stmts->insert_sample,
        "INSERT INTO samples(feed_id, t_us, mask, vals, suspect, suspect_vals) VALUES(?1, ?2, ?3, ?4, ?5, ?6) "
        "ON CONFLICT(feed_id, t_us) DO NOTHING"},
-      {&stmts->select_sample, "SELECT mask, vals FROM samples WHERE feed_id = ?1 AND t_us = ?2"},
-      {&stmts->update_sample, "UPDATE samples SET mask = ?3, vals = ?4 WHERE feed_id = ?1 AND t_us = ?2"},
+      {&stmts->select_sample,
+       "SELECT mask, vals, suspect, suspect_vals FROM samples WHERE feed_id = ?1 AND t_us = ?2"},
+      {&stmts->update_sample,
+       "UPDATE samples SET mask = ?3, vals = ?4, suspect = ?5, suspect_vals = ?6 WHERE feed_id = ?1 AND t_us = ?2"},
       {&stmts->prune_find,
        "SELECT t_us FROM samples WHERE feed_id = ?1 AND t_us < ?2 ORDER BY t_us LIMIT 1 OFFSET ?3"},
       {&stmts->prune_delete_before, "DELETE FROM samples WHERE feed_id = ?1 AND t_us < ?2"},
@@ -532,9 +571,9 @@ Status WindowStore::RegisterFeeds(const std::vector<FeedLayout>& feeds) {
 }
 
 Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes,
-                                std::vector<Sample>* merged) {
+                                std::vector<MergedRow>* merged) {
   if (outcomes != nullptr) outcomes->clear();
-  if (merged != nullptr) merged->assign(samples.size(), Sample{});
+  if (merged != nullptr) merged->assign(samples.size(), MergedRow{});
   // Validate everything before writing so a bad sample cannot half-store a batch.
   for (size_t i = 0; i < samples.size(); ++i) {
     const FeedSample& fs = samples[i];
@@ -545,6 +584,11 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
     if (fs.sample.values.size() != static_cast<size_t>(n) || (fs.sample.missing_mask & ~ChannelBits(n)) != 0) {
       return Status::Invalid(fmt::format("sample {} of the batch: {} values and mask {:#x} for a feed of {} channels",
                                          i, fs.sample.values.size(), fs.sample.missing_mask, n));
+    }
+    if ((fs.sample.suspect_mask & ~fs.sample.missing_mask) != 0) {
+      return Status::Invalid(fmt::format("sample {} of the batch: suspect mask {:#x} has channels that are not in the "
+                                         "missing mask {:#x} (a suspect channel is also missing)",
+                                         i, fs.sample.suspect_mask, fs.sample.missing_mask));
     }
   }
 
@@ -590,39 +634,32 @@ Status WindowStore::InsertBatch(std::span<const FeedSample> samples, std::vector
         return sqlite::Error(db_, rc, what);
       }
       if (!DecodeValues(st.select_sample.ColumnBlob(1), static_cast<std::uint64_t>(st.select_sample.ColumnInt(0)),
-                        channels, &row)) {
+                        channels, &row) ||
+          !DecodeSuspect(st.select_sample.ColumnBlob(3), static_cast<std::uint64_t>(st.select_sample.ColumnInt(2)),
+                         channels, &row)) {
         return Status::Internal(fmt::format("{}: the row stored at {} does not decode", what, FormatRfc3339(row.t)));
       }
     }
-    bool conflict = false, adds = false;
-    for (int c = 0; c < channels; ++c) {
-      if (fs.sample.missing(c)) continue;
-      const double v = fs.sample.values[static_cast<std::size_t>(c)];
-      if (row.missing(c)) {
-        adds = true;
-        row.values[static_cast<std::size_t>(c)] = v;
-        row.missing_mask &= ~(std::uint64_t{1} << c);
-      } else if (std::bit_cast<std::uint64_t>(row.values[static_cast<std::size_t>(c)]) !=
-                 std::bit_cast<std::uint64_t>(v)) {
-        conflict = true;
-      }
-    }
-    if (conflict || !adds) {
-      result.push_back(conflict ? InsertOutcome::kDuplicateConflict : InsertOutcome::kDuplicateSame);
+    const std::optional<std::uint64_t> added = MergeInto(fs.sample, channels, &row);
+    if (!added || *added == 0) {
+      result.push_back(added ? InsertOutcome::kDuplicateSame : InsertOutcome::kDuplicateConflict);
       continue;
     }
     EncodeValues(row, channels, &vals);
+    EncodeSuspect(row, channels, &suspect_vals);
     {
       sqlite::ResetOnExit update_reset(st.update_sample);
       st.update_sample.BindInt(1, feed_id);
       st.update_sample.BindTime(2, row.t);
       st.update_sample.BindInt(3, static_cast<std::int64_t>(row.missing_mask));
       st.update_sample.BindBlob(4, vals);
+      st.update_sample.BindInt(5, static_cast<std::int64_t>(row.suspect_mask));
+      st.update_sample.BindBlob(6, suspect_vals);
       const int urc = st.update_sample.Step();
       if (urc != SQLITE_DONE) return sqlite::Error(db_, urc, what);
     }
     result.push_back(InsertOutcome::kMerged);
-    if (merged != nullptr) (*merged)[result.size() - 1] = std::move(row);
+    if (merged != nullptr) (*merged)[result.size() - 1] = MergedRow{std::move(row), *added};
   }
   if (Status s = txn.Commit(st.commit, what); !s.ok()) return s;
   if (outcomes != nullptr) *outcomes = std::move(result);

@@ -2,16 +2,19 @@
 //
 // Schema (versioned by PRAGMA user_version, migrated forward on open):
 //   feeds(feed_id, name, channels, step_us, created_at)
-//   samples(feed_id, t_us, mask, vals) WITHOUT ROWID, primary key (feed_id, t_us)
+//   samples(feed_id, t_us, mask, vals, suspect, suspect_vals) WITHOUT ROWID,
+//     primary key (feed_id, t_us)
 //   models(feed_id, version, status, ...)  (version 2; see ModelRegistry)
 // `vals` holds only the present channels as little-endian float64, in channel
-// order; `mask` has bit c set when channel c is missing.
+// order; `mask` has bit c set when channel c is missing. `suspect` has bit c
+// set when channel c's reading was screened suspect (then it is also set in
+// `mask`), and `suspect_vals` holds those raw readings as `vals` holds values.
 //
 // Duplicate timestamps: a sample whose (feed, t) is already stored is accepted
-// as an idempotent resend when its values and mask are identical (stored once),
-// and rejected as kDuplicateConflict when they differ (the stored one stays).
-// A client that resends after a lost connection therefore never duplicates
-// data, and conflicting data is never overwritten silently.
+// as an idempotent resend when its readings are identical (stored once), and
+// rejected as kDuplicateConflict when a reading differs (the stored one
+// stays). A client that resends after a lost connection therefore never
+// duplicates data, and conflicting data is never overwritten silently.
 //
 // Journal: WAL, synchronous=FULL (a commit survives power loss).
 // Thread safety: an instance is used by one thread at a time. The writer
@@ -46,6 +49,13 @@ struct FeedExtent {
   std::int64_t count = 0;
   DataTime oldest{};
   DataTime newest{};
+};
+
+// A row that InsertBatch merged: the whole row as stored now, and the
+// channels the merging sample added to it (each present or suspect).
+struct MergedRow {
+  Sample row;
+  std::uint64_t added = 0;
 };
 
 enum class InsertOutcome {
@@ -83,17 +93,23 @@ class WindowStore {
   int schema_version() const;
 
   // Inserts all samples in one transaction and fills outcomes[i] per sample.
+  // Requires values.size() == the feed's channels and suspect_mask within
+  // missing_mask (kInvalidArgument otherwise, nothing stored).
   // A sample at a time where the feed already has a row merges into it
   // channel by channel (channels at different rates, or two sources writing
-  // one feed): channels it adds are stored (kMerged; when `merged` is given,
-  // (*merged)[i] is the whole row as stored now), channels already stored
-  // with the same value are fine (kDuplicateSame when it adds none), and a
-  // channel stored with a different value rejects the sample
-  // (kDuplicateConflict; nothing of it is stored). Values compare bit for bit.
+  // one feed). A channel's reading is its value, or its raw reading when
+  // suspect. Readings the row lacks are stored with their suspect marks
+  // (kMerged; when `merged` is given, (*merged)[i] is the whole row as
+  // stored now, suspect marks and raw readings included, and the channels
+  // added); readings the row holds bit for bit are fine (kDuplicateSame when
+  // the sample adds none); a reading that differs from the stored one
+  // rejects the sample (kDuplicateConflict; nothing of it is stored). Only
+  // the readings compare, not the marks: a resend screened differently is
+  // the same reading, and the stored mark stays.
   // On a non-ok Status (disk full: kUnavailable; other failures: kIoError)
   // the transaction is rolled back and nothing of the batch is stored.
   [[nodiscard]] Status InsertBatch(std::span<const FeedSample> samples, std::vector<InsertOutcome>* outcomes,
-                                   std::vector<Sample>* merged = nullptr);
+                                   std::vector<MergedRow>* merged = nullptr);
 
   // Deletes at most max_rows of the feed's oldest samples with t < cutoff,
   // in one short transaction. Returns the number of rows deleted.

@@ -3,9 +3,11 @@ Chromium driven through chromedriver with python3-selenium.
 
 The real lyapcastd (lockstep) ingests a simulated Lorenz-63 stream from
 `lyapcast simulate`, so a model exists; the page must draw each channel's
-observed data and forecast as SVG lines, and show the verdict, drift ratio
-and model version that GET /v1/feeds/{id}/status reports, with the advisory
-note visible. With auth.read_token_file the page asks for the read token,
+observed data and forecast as SVG lines, mark the stream's few sentinel
+readings (-9999, a configured bad-quality code) as suspect points without
+letting them set the scale, name each channel's suspect count, and show the
+verdict, drift ratio and model version that GET /v1/feeds/{id}/status
+reports, with the advisory note visible. With auth.read_token_file the page asks for the read token,
 keeps it in sessionStorage and sends it only as an Authorization header (never
 in any URL the browser requested). Screenshots are saved to
 $LYAPCAST_ARTIFACT_DIR (else the system temp folder) and their paths printed.
@@ -44,6 +46,7 @@ LORENZ_FEED = """
     dynamics:
       equations: {{x: "s*(y - x)", y: "x*(r - z) - y", z: "x*y - b*z"}}
       constants: {{s: 10, r: 28, b: 2.6666666666666667}}
+    quality: {{x: {{bad_values: [-9999]}}}}
     model: {{hidden: [32, 32]}}
     retrain:
       lyapunov_fraction: 5
@@ -61,6 +64,9 @@ IDLE_FEED = """
     units: [m]
     step: 1s
 """
+
+
+SENTINELS = (-50, -40, -30)  # indices of stream lines whose x becomes -9999
 
 
 def config(db, feeds, extra=""):
@@ -187,6 +193,12 @@ return {
       (r) => [r.getAttribute('data-version'), r.getAttribute('data-status')]),
   no_data: Boolean(sec.querySelector('[data-field="no-data"]')),
   no_model: Boolean(sec.querySelector('[data-field="no-model"]')),
+  suspect_marks: Array.from(sec.querySelectorAll('path[data-series="suspect"]')).map(
+      (p) => [p.getAttribute('data-channel'), p.getAttribute('data-raw')]),
+  suspect_notes: Object.fromEntries(Array.from(sec.querySelectorAll('[data-field="suspect"]')).map(
+      (e) => [e.getAttribute('data-channel'), e.getAttribute('data-value')])),
+  x_observed_y: Array.from(sec.querySelectorAll('polyline[data-series="observed"][data-channel="x"]')).flatMap(
+      (p) => p.getAttribute('points').trim().split(/\s+/).map((s) => Number(s.split(',')[1]))),
   text: sec.innerText,
 };
 """
@@ -223,6 +235,10 @@ class OperatorPageTest(unittest.TestCase):
         cls.daemon = None
         try:
             lines = simulate(cls.dir, 40)
+            # Three sentinel readings of x within the plotted last second.
+            for k in SENTINELS:
+                feed, t, x, y, z = lines[k].split(",")
+                lines[k] = f"{feed},{t},-9999,{y},{z}"
             workdir = os.path.join(cls.dir, "daemon")
             os.makedirs(workdir)
             feeds = LORENZ_FEED.format(unit_x="mm") + IDLE_FEED
@@ -316,6 +332,15 @@ class OperatorPageTest(unittest.TestCase):
             self.assertIn("Lyapunov time", page["text"])
             self.assertIn(status["lyapunov"]["chosen"]["source"], page["text"])
             self.assertIn("[mm]", page["text"])  # channel units from /v1/feeds
+
+            # Suspect readings: a mark per sentinel on x's plot, none on y or
+            # z, the count from status beside x's name; the sentinels do not
+            # set x's scale (its observed line spans most of the plot's 162 px).
+            self.assertEqual(status["suspect"]["x"]["count"], len(SENTINELS), status["suspect"])
+            self.assertEqual(page["suspect_marks"], [["x", "-9999"]] * len(SENTINELS))
+            self.assertEqual(page["suspect_notes"], {"x": str(len(SENTINELS))})
+            self.assertIn(f"{len(SENTINELS)} suspect readings, the last -9999 at", page["text"])
+            self.assertGreater(max(page["x_observed_y"]) - min(page["x_observed_y"]), 100, "x's real data fill the plot")
 
             # Model history: the active version and every other version listed.
             _, models = d.http_get("/v1/feeds/lorenz/models?limit=20")

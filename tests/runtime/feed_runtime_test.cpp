@@ -232,5 +232,29 @@ TEST(FeedRuntime, ForecastsWithThePublishedModelAndTheMonitorsError) {
   EXPECT_EQ(direct->points.back().values, served->forecast.points.back().values);
 }
 
+// A suspect reading is counted once, though a second source's partial row
+// merged into its row hands the whole row (mark included) on again.
+TEST(FeedRuntime, CountsASuspectReadingOnceWhenItsRowIsMerged) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-runtime-test");
+  Rig rig(config, dir.path() / "w.db", 4096);
+  FeedSample first = testing::LorenzSamples(1, kT0)[0];
+  FeedSample second = first;
+  first.sample.values[0] = -9999;
+  first.sample.missing_mask = 0b111;  // x suspect, y and z from the other source
+  first.sample.suspect_mask = 0b001;
+  second.sample.missing_mask = 0b001;
+  rig.Send({first}, 1);
+  rig.Drain();
+  rig.Send({second}, 1);
+  rig.Drain();
+  const auto suspects = rig.runtime().Suspects();
+  ASSERT_EQ(suspects.size(), 3U);
+  EXPECT_EQ(suspects[0].count, 1);
+  EXPECT_EQ(suspects[0].last_value, -9999);
+  EXPECT_EQ(suspects[0].last, kT0);
+  EXPECT_EQ(suspects[1].count, 0);
+}
+
 }  // namespace
 }  // namespace lyapcast

@@ -270,6 +270,43 @@ TEST(SampleWriter, SubscribersSeeOnlyNewlyStoredSamples) {
   EXPECT_EQ(batches[1], (std::vector<DataTime>{Sec(101), Sec(102)}));
 }
 
+TEST(SampleWriter, SubscribersSeeAMergedRowWithItsSuspectMarksAndWhatItAdded) {
+  TempDir dir;
+  SampleWriter writer(OpenStore(dir.path() / "w.db"), 2, FastOptions());
+  // The screen marks every x of -9999 suspect, as a bad-value rule would.
+  writer.SetScreen([](FeedSample& fs) {
+    if (!fs.sample.missing(0) && fs.sample.values[0] == -9999) {
+      fs.sample.missing_mask |= 0b01;
+      fs.sample.suspect_mask |= 0b01;
+    }
+  });
+  std::mutex mu;
+  std::vector<Sample> seen;
+  std::vector<std::uint64_t> added;
+  writer.Subscribe([&](const CommittedBatch& batch) {
+    std::lock_guard lock(mu);
+    ASSERT_EQ(batch.added.size(), batch.samples.size());
+    for (const FeedSample& fs : batch.samples) seen.push_back(fs.sample);
+    added.insert(added.end(), batch.added.begin(), batch.added.end());
+  });
+  ASSERT_TRUE(writer.Start().ok());
+  FeedSample x_only = Make(Sec(1), -9999);
+  x_only.sample.missing_mask = 0b10;
+  FeedSample y_only = Make(Sec(1), 0);
+  y_only.sample.values[1] = 2.5;
+  y_only.sample.missing_mask = 0b01;
+  ASSERT_TRUE(Accepted(SubmitAndWait(writer, {x_only}).at(0)));
+  ASSERT_TRUE(Accepted(SubmitAndWait(writer, {y_only}).at(0)));
+  writer.Stop();
+  std::lock_guard lock(mu);
+  ASSERT_EQ(seen.size(), 2U);
+  EXPECT_EQ(added, (std::vector<std::uint64_t>{0b01, 0b10}));
+  EXPECT_EQ(seen[1].suspect_mask, 0b01U) << "the stored suspect mark is handed on with the merged row";
+  EXPECT_EQ(seen[1].missing_mask, 0b01U);
+  EXPECT_EQ(seen[1].values[0], -9999);
+  EXPECT_EQ(seen[1].values[1], 2.5);
+}
+
 TEST(SampleWriter, StopCommitsAndCompletesEverythingSubmitted) {
   TempDir dir;
   const fs::path db = dir.path() / "w.db";

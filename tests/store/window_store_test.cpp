@@ -425,14 +425,15 @@ TEST(WindowStoreData, PartialRowsAtOneTimeMergeChannelByChannel) {
   // A fast source writes channels 0 and 1; a slow one (a lab assay) writes
   // channel 2 at the same time, in the same batch and in a later one.
   std::vector<InsertOutcome> outcomes;
-  std::vector<Sample> merged;
+  std::vector<MergedRow> merged;
   ASSERT_TRUE(store
                   ->InsertBatch(std::vector<FeedSample>{Make(0, Sec(1), {1, 2, 0}, 0b100),
                                                         Make(0, Sec(1), {0, 0, 3}, 0b011)},
                                 &outcomes, &merged)
                   .ok());
   EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kInserted, InsertOutcome::kMerged}));
-  EXPECT_EQ(merged[1], Make(0, Sec(1), {1, 2, 3}).sample) << "the whole row as stored now";
+  EXPECT_EQ(merged[1].row, Make(0, Sec(1), {1, 2, 3}).sample) << "the whole row as stored now";
+  EXPECT_EQ(merged[1].added, 0b100U);
   InsertOk(*store, {Make(0, Sec(2), {4, 0, 0}, 0b110)});
   outcomes = InsertOk(*store, {Make(0, Sec(2), {0, 5, 0}, 0b101), Make(0, Sec(2), {4, 0, 6}, 0b010)});
   EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kMerged, InsertOutcome::kMerged}));
@@ -460,6 +461,81 @@ TEST(WindowStoreData, SuspectReadingsAreStoredAsMissingWithTheirRawValues) {
   EXPECT_EQ(Shell(dir.path() / "w.db", "SELECT mask, length(vals), suspect, length(suspect_vals) FROM samples"), "2|16|2|8");
 }
 
+// A partial row with channel `c` marked suspect (its raw reading kept).
+FeedSample MarkSuspect(FeedSample fs, int c, double raw) {
+  fs.sample.values[static_cast<size_t>(c)] = raw;
+  fs.sample.missing_mask |= std::uint64_t{1} << c;
+  fs.sample.suspect_mask |= std::uint64_t{1} << c;
+  return fs;
+}
+
+TEST(WindowStoreData, PartialRowsMergeWithTheirSuspectMarksAndRawReadings) {
+  TempDir dir;
+  auto store = OpenOrDie(dir.path() / "w.db");
+  ASSERT_NE(store, nullptr);
+  ASSERT_TRUE(store->RegisterFeeds({LoopA()}).ok());
+  std::vector<InsertOutcome> outcomes;
+  std::vector<MergedRow> merged;
+
+  // Stored: flow clean, dtemp_h suspect; a second source adds dtemp_v.
+  // The merged row keeps the stored mark and raw reading.
+  InsertOk(*store, {MarkSuspect(Make(0, Sec(1), {1, 0, 0}, 0b100), 1, -9999)});
+  ASSERT_TRUE(store->InsertBatch(std::vector<FeedSample>{Make(0, Sec(1), {0, 0, 3}, 0b011)}, &outcomes, &merged).ok());
+  EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kMerged}));
+  const Sample want1 = MarkSuspect(Make(0, Sec(1), {1, 0, 3}), 1, -9999).sample;
+  EXPECT_EQ(merged[0].row, want1) << "the whole row, suspect mark included";
+  EXPECT_EQ(merged[0].added, 0b100U);
+
+  // Stored: flow clean only; the new partial row brings a suspect dtemp_h,
+  // then a third one a suspect dtemp_v (in one batch with a clean row).
+  InsertOk(*store, {Make(0, Sec(2), {4, 0, 0}, 0b110)});
+  ASSERT_TRUE(store
+                  ->InsertBatch(std::vector<FeedSample>{MarkSuspect(Make(0, Sec(2), {0, 0, 0}, 0b101), 1, 1e30),
+                                                        MarkSuspect(Make(0, Sec(2), {0, 0, 0}, 0b011), 2, -1e30)},
+                                &outcomes, &merged)
+                  .ok());
+  EXPECT_EQ(outcomes, (std::vector<InsertOutcome>{InsertOutcome::kMerged, InsertOutcome::kMerged}));
+  const Sample want2 = MarkSuspect(MarkSuspect(Make(0, Sec(2), {4, 0, 0}), 1, 1e30), 2, -1e30).sample;
+  EXPECT_EQ(merged[0].added, 0b010U);
+  EXPECT_EQ(merged[1].row, want2);
+  EXPECT_EQ(merged[1].added, 0b100U);
+
+  const auto rows = ReadAll(*store, 0);
+  ASSERT_EQ(rows.size(), 2U);
+  EXPECT_EQ(rows[0], want1);
+  EXPECT_EQ(rows[1], want2);
+  EXPECT_EQ(rows[1].values[1], 1e30) << "the raw reading comes back";
+  EXPECT_EQ(Shell(dir.path() / "w.db",
+                  "SELECT group_concat(r, ' ') FROM (SELECT mask || '|' || length(vals) || '|' || suspect || '|' || "
+                  "length(suspect_vals) AS r FROM samples ORDER BY t_us)"),
+            "2|16|2|8 6|8|6|16");
+}
+
+TEST(WindowStoreData, ASuspectReadingConflictsLikeAValueAndARepeatIsTheSame) {
+  TempDir dir;
+  auto store = OpenOrDie(dir.path() / "w.db");
+  ASSERT_NE(store, nullptr);
+  ASSERT_TRUE(store->RegisterFeeds({LoopA()}).ok());
+  const FeedSample stored = MarkSuspect(Make(0, Sec(1), {1, 0, 0}, 0b100), 1, -9999);
+  InsertOk(*store, {stored});
+
+  // Another reading where one is stored, suspect or clean on either side.
+  auto outcomes = InsertOk(*store, {Make(0, Sec(1), {0, 5, 0}, 0b101),                           // clean vs suspect
+                                    MarkSuspect(Make(0, Sec(1), {0, 0, 0}, 0b101), 1, 1e30),     // other raw
+                                    MarkSuspect(Make(0, Sec(1), {0, 0, 0}, 0b110), 0, 7),        // suspect vs clean
+                                    MarkSuspect(Make(0, Sec(1), {0, 0, 3}, 0b001), 1, -9998)});  // adds, but conflicts
+  EXPECT_EQ(outcomes, std::vector<InsertOutcome>(4, InsertOutcome::kDuplicateConflict));
+
+  // The same readings again, also when the resend was screened differently
+  // (dtemp_h clean this time, flow suspect): the stored marks stay.
+  outcomes = InsertOk(*store, {stored, Make(0, Sec(1), {1, -9999, 0}, 0b100),
+                               MarkSuspect(Make(0, Sec(1), {0, 0, 0}, 0b110), 0, 1)});
+  EXPECT_EQ(outcomes, std::vector<InsertOutcome>(3, InsertOutcome::kDuplicateSame));
+  const auto rows = ReadAll(*store, 0);
+  ASSERT_EQ(rows.size(), 1U);
+  EXPECT_EQ(rows[0], stored.sample);
+}
+
 TEST(WindowStoreData, RejectsMalformedBatchesWithoutStoringAnything) {
   TempDir dir;
   auto store = OpenOrDie(dir.path() / "w.db");
@@ -472,6 +548,10 @@ TEST(WindowStoreData, RejectsMalformedBatchesWithoutStoringAnything) {
   EXPECT_EQ(store->InsertBatch(wrong_feed, &outcomes).code(), StatusCode::kInvalidArgument);
   const std::vector<FeedSample> wrong_mask = {Make(0, Sec(1), {1, 2, 3}, 0b1000)};
   EXPECT_EQ(store->InsertBatch(wrong_mask, &outcomes).code(), StatusCode::kInvalidArgument);
+  FeedSample suspect_not_missing = Make(0, Sec(1), {1, 2, 3});
+  suspect_not_missing.sample.suspect_mask = 0b010;  // a suspect channel must also be missing
+  EXPECT_EQ(store->InsertBatch(std::vector<FeedSample>{suspect_not_missing}, &outcomes).code(),
+            StatusCode::kInvalidArgument);
   EXPECT_EQ(store->Extent(0)->count, 0);
 }
 

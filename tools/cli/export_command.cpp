@@ -39,6 +39,7 @@ std::string NextFrom(const std::string& link) {
 struct ExportArgs {
   RemoteArgs remote;
   std::string feed, from, to, out = "-";
+  std::string suspect = "raw";  // the samples API's suspect=: raw or omit
   int page_size = 10000;
 };
 
@@ -80,8 +81,9 @@ int RunExport(const ExportArgs& a) {
   std::string page_from = FormatRfc3339(*from);
   DataTime reached = *from;
   while (true) {
-    const std::string target = fmt::format("{}/samples?from={}&to={}&limit={}&format=csv", *path, UrlEncode(page_from),
-                                           UrlEncode(FormatRfc3339(*to)), a.page_size);
+    const std::string target =
+        fmt::format("{}/samples?from={}&to={}&limit={}&format=csv&suspect={}", *path, UrlEncode(page_from),
+                    UrlEncode(FormatRfc3339(*to)), a.page_size, a.suspect);
     auto res = (*remote)->Call("GET", target, "text/csv");
     if (!res.ok()) return fail(res.status().message(), RemoteExitCode(res.status()));
     ++pages;
@@ -165,6 +167,10 @@ void AddExportCommand(CLI::App& app, int* exit_code) {
           "Pages through the daemon's stored samples of the feed with from <= t < to, oldest first, and writes\n"
           "them as ingest-format CSV lines (feed,epoch_s,values...; an empty field is a missing channel),\n"
           "exactly as stored, so `lyapcast replay` can stream them into another daemon. Progress on stderr.\n"
+          "Suspect readings (the sensor screen's bad-quality codes, out-of-range values, outliers, spikes;\n"
+          "never trained on) are written as received by default (--suspect raw): replayed into a daemon\n"
+          "with the same quality config they are screened again, and nothing the instrument sent is lost.\n"
+          "--suspect omit writes an empty field instead, for a consumer that must not see a -9999 as data.\n"
           "Times: RFC 3339 or epoch seconds. With --out the file appears only when the export is complete.\n"
           "Examples:\n"
           "  lyapcast export --feed loop-a --from 2026-01-01T00:00:00Z --to 2026-01-01T06:00:00Z --out day.csv\n"
@@ -176,6 +182,9 @@ void AddExportCommand(CLI::App& app, int* exit_code) {
   cmd->add_option("--to", args->to, "end of the range (excluded)")->required();
   cmd->add_option("--out,-o", args->out, "output file (default stdout)");
   cmd->add_option("--page-size", args->page_size, "samples per request (default 10000, the most the daemon gives)");
+  cmd->add_option("--suspect", args->suspect,
+                  "suspect readings: raw (default) writes the reading as received, omit an empty field")
+      ->check(CLI::IsMember({"raw", "omit"}));
   AddRemoteOptions(cmd, &args->remote);
   cmd->callback([args, exit_code] { *exit_code = RunExport(*args); });
 }
