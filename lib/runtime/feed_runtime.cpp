@@ -29,6 +29,7 @@ struct FeedRuntime::State {
   std::shared_ptr<const ActiveModel> model;  // the one the monitor scores with
   std::optional<Sample> newest_complete;
   std::optional<Sample> newest;                     // the newest sample, complete or not
+  std::optional<DataTime> first;                    // the oldest sample time seen
   std::vector<std::pair<DataTime, double>> last;    // per channel, its newest observation (t 0: none)
   std::optional<DataTime> last_drift_trigger;
   std::uint64_t drift_triggers = 0;
@@ -83,6 +84,7 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived) {
     if (sample.complete() && (!s.newest_complete || sample.t >= s.newest_complete->t)) {
       s.newest_complete = sample;  // 4.
     }
+    if (!s.first || sample.t < *s.first) s.first = sample.t;
     if (!s.newest || sample.t > s.newest->t) {
       s.newest = sample;
     } else if (sample.t == s.newest->t) {  // a merged row: the writer passes the whole row
@@ -161,6 +163,19 @@ std::optional<FeedRuntime::StartEstimate> FeedRuntime::EstimateStart() const {
     out.start.missing_mask &= ~(std::uint64_t{1} << c);
     out.estimated.push_back({c, Seconds(out.start.t - s.last[k].first)});
   }
+  return out;
+}
+
+FeedRuntime::ChannelActivity FeedRuntime::Activity() const {
+  std::lock_guard lock(mu_);
+  const State& s = *state_;
+  ChannelActivity out;
+  out.last.resize(feed_.channels.size());
+  for (std::size_t c = 0; c < out.last.size() && c < s.last.size(); ++c) {
+    if (s.last[c].first != DataTime{}) out.last[c] = s.last[c].first;
+  }
+  out.first = s.first;
+  if (s.newest) out.newest = s.newest->t;
   return out;
 }
 

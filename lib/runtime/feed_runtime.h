@@ -80,6 +80,16 @@ class FeedRuntime {
   };
   std::optional<StartEstimate> EstimateStart() const;
 
+  // What the runtime saw of each channel (since the daemon started): the
+  // data time of its newest usable reading (suspect readings are missing
+  // and do not count), and the oldest and newest sample times of the feed.
+  struct ChannelActivity {
+    std::vector<std::optional<DataTime>> last;  // per channel (feed order); none: no reading seen
+    std::optional<DataTime> first;              // none before the first sample
+    std::optional<DataTime> newest;
+  };
+  ChannelActivity Activity() const;
+
   // Readings the sensor screen marked suspect, per channel (feed order),
   // as the committed samples showed them.
   struct SuspectChannel {

@@ -9,6 +9,8 @@
 
 #include <gtest/gtest.h>
 
+#include <initializer_list>
+#include <limits>
 #include <random>
 
 #include "core/wall_clock.h"
@@ -230,6 +232,36 @@ TEST(FeedRuntime, ForecastsWithThePublishedModelAndTheMonitorsError) {
   auto direct = MakeForecast(*served->model->model, request);
   ASSERT_TRUE(direct.ok());
   EXPECT_EQ(direct->points.back().values, served->forecast.points.back().values);
+}
+
+// `values` at t with the channels in `missing` left out (NaN, mask bit set).
+FeedSample Partial(DataTime t, const std::vector<double>& values, std::initializer_list<int> missing) {
+  FeedSample fs;
+  fs.sample.t = t;
+  fs.sample.values = values;
+  for (int c : missing) {
+    fs.sample.values[static_cast<std::size_t>(c)] = std::numeric_limits<double>::quiet_NaN();
+    fs.sample.missing_mask |= std::uint64_t{1} << c;
+  }
+  return fs;
+}
+
+// Activity: per channel the data time of its newest usable reading (a
+// missing one does not count), and the oldest and newest sample seen.
+TEST(FeedRuntime, ActivityHasEachChannelsNewestReading) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-runtime-test");
+  Rig rig(config, dir.path() / "w.db", 4096);
+  EXPECT_FALSE(rig.runtime().Activity().newest.has_value());
+  const std::vector<FeedSample> data = testing::LorenzSamples(10, kT0);
+  rig.Send({data.begin(), data.begin() + 5}, 5);
+  rig.Send({Partial(data[5].sample.t, data[5].sample.values, {2})}, 1);
+  rig.Send({Partial(data[6].sample.t, data[6].sample.values, {1, 2})}, 1);
+  rig.Drain();
+  const FeedRuntime::ChannelActivity a = rig.runtime().Activity();
+  EXPECT_EQ(a.first, kT0);
+  EXPECT_EQ(a.newest, data[6].sample.t);
+  EXPECT_EQ(a.last, (std::vector<std::optional<DataTime>>{data[6].sample.t, data[5].sample.t, data[4].sample.t}));
 }
 
 }  // namespace
