@@ -68,6 +68,21 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
         v.config->channels[static_cast<std::size_t>(f->channel)], FormatRfc3339(f->since), grew.empty() ? "" : " on ",
         grew, v.config->channels[static_cast<std::size_t>(f->channel)], f->alarms, f->alarms == 1 ? "" : "s");
   }
+  // Silent channels: a channel not seen since the daemon started counts from
+  // the first sample it saw (at least that long without a reading).
+  const FeedRuntime::ChannelActivity activity = c.runtimes->at(feed).Activity();
+  v.channels.resize(v.config->channels.size());
+  for (std::size_t k = 0; k < v.channels.size(); ++k) {
+    ChannelView& ch = v.channels[k];
+    ch.last = k < activity.last.size() ? activity.last[k] : std::nullopt;
+    ch.period = k < v.config->period.size() ? v.config->period[k] : Micros{};
+    if (!activity.newest) continue;
+    if (ch.last) ch.age = *activity.newest - *ch.last;
+    const std::optional<DataTime> since = ch.last ? ch.last : activity.first;
+    if (!since || !ChannelSilent(*activity.newest - *since, ch.period)) continue;
+    ch.silent = true;
+    in.silent_channels.push_back({v.config->channels[k], *activity.newest - *since, ch.period});
+  }
   v.health = EvaluateHealth(v.config->health, v.model_age, in);
   return v;
 }
@@ -227,6 +242,14 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
                                       {"last", sc.last ? TimeJson(*sc.last) : json(nullptr)},
                                       {"last_value", sc.last_value}};
   }
+  json channels = json::object();
+  for (std::size_t k = 0; k < v.channels.size(); ++k) {
+    const ChannelView& ch = v.channels[k];
+    channels[v.config->channels[k]] = {{"last", ch.last ? TimeJson(*ch.last) : json(nullptr)},
+                                       {"age_s", ch.age ? json(Seconds(*ch.age)) : json(nullptr)},
+                                       {"period_s", ch.period > Micros{} ? json(Seconds(ch.period)) : json(nullptr)},
+                                       {"silent", ch.silent}};
+  }
   json chosen = nullptr;
   if (v.exponent) {
     chosen = {{"per_s", v.exponent->lambda_max},
@@ -252,6 +275,7 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
           {"model", std::move(model)},
           {"drift", std::move(drift)},
           {"suspect", std::move(suspect)},
+          {"channels", std::move(channels)},
           {"staleness", StalenessJson(v)},
           {"lyapunov", std::move(lyapunov)},
           {"cadence", std::move(cadence)},

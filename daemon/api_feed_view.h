@@ -17,6 +17,14 @@
 
 namespace lyapcast::api {
 
+// One channel's reporting, against the feed's newest sample (data time).
+struct ChannelView {
+  std::optional<DataTime> last;  // its newest usable reading since the daemon started
+  std::optional<Micros> age;     // newest sample - last; none without a reading
+  Micros period{};               // feeds[].period; 0: none declared
+  bool silent = false;           // ChannelSilent (monitor/health.h)
+};
+
 struct FeedView {
   std::uint32_t index = 0;
   const FeedConfig* config = nullptr;
@@ -28,6 +36,7 @@ struct FeedView {
   std::optional<double> since_training_lyapunov_times;
   ModelAgeThresholds model_age;  // the model-age levels in force (configured or derived)
   std::vector<FeedRuntime::SuspectChannel> suspects;  // per channel, from the sensor screen
+  std::vector<ChannelView> channels;                  // per channel (feed order)
   HealthResult health;
 };
 

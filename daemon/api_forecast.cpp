@@ -1,5 +1,6 @@
 // GET /v1/feeds/{id}/forecast: a free run of the published active model
-// from the newest complete sample (or the one at a given data time), with
+// from the newest sample with its missing channels estimated, else the
+// newest complete sample (or the one at a given data time), with
 // the predictability horizon and the staleness figures (docs/http-api.md "Forecast").
 #include <fmt/format.h>
 
@@ -75,7 +76,7 @@ namespace {
 struct ForecastParams {
   std::int64_t steps = kDefaultSteps;
   bool csv = false;
-  std::optional<DataTime> from;  // none: the newest complete sample
+  std::optional<DataTime> from;  // none: the newest sample, estimated (StartSample)
 };
 
 // steps | horizon, format, from; checked before the model so a bad
@@ -89,7 +90,7 @@ std::optional<HttpResponse> ParseParams(const FeedConfig& fc, const HttpRequest&
   const auto csv = WantsCsv(req);
   if (!csv.ok()) return FromStatus(csv.status());
   p->csv = *csv;
-  // from: absent or "latest" (the newest complete sample), else a data time.
+  // from: absent or "latest" (the newest sample, estimated), else a data time.
   const auto from_it = req.query.find("from");
   if (from_it != req.query.end() && from_it->second != "latest") {
     auto from = TimeParam(req, "from");
@@ -107,11 +108,13 @@ std::optional<HttpResponse> ParseParams(const FeedConfig& fc, const HttpRequest&
   return std::nullopt;
 }
 
-// The start: the complete sample at or shortly before `from`, else the
-// newest complete one (after a restart, before anything arrived: the newest
-// stored). An error response when there is none.
+// The start: the complete sample at or shortly before `from`; else the
+// newest sample with its missing channels estimated (FeedRuntime::
+// EstimateStart: `estimated` lists them, `model` gets the version that
+// predicted any); else the newest complete one (after a restart, before
+// anything arrived: the newest stored). An error response when there is none.
 std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed, const std::optional<DataTime>& from,
-                                        Sample* start, json* estimated) {
+                                        Sample* start, json* estimated, std::shared_ptr<const ActiveModel>* model) {
   const FeedConfig& fc = c.config->feeds[feed];
   if (from) {
     auto found = c.store->CompleteSampleAt(feed, *from, kFromLookbackSteps * fc.step);
@@ -123,15 +126,16 @@ std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed,
     *start = **found;
     return std::nullopt;
   }
-  // The newest sample, slow channels carried within their hold, when that
-  // is newer than the newest complete row.
+  // The newest sample, its missing channels carried within their hold or
+  // predicted by the model, when that is newer than the newest complete row.
   auto newest = c.runtimes->at(feed).NewestComplete();
   if (auto estimate = c.runtimes->at(feed).EstimateStart();
       estimate && (!newest || estimate->start.t > newest->t)) {
     *start = std::move(estimate->start);
+    *model = std::move(estimate->model);
     for (const FeedRuntime::EstimatedChannel& e : estimate->estimated) {
       estimated->push_back({{"channel", fc.channels[static_cast<std::size_t>(e.channel)]},
-                            {"how", "carried"},
+                            {"how", e.how == FeedRuntime::EstimatedChannel::How::kPredicted ? "predicted" : "carried"},
                             {"age_s", e.age_s}});
     }
     return std::nullopt;
@@ -197,12 +201,14 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   }
   Sample start;
   json estimated = json::array();
-  if (auto none = StartSample(c, feed, params.from, &start, &estimated)) return *none;
+  std::shared_ptr<const ActiveModel> model;  // the version that predicted part of the start, if any
+  if (auto none = StartSample(c, feed, params.from, &start, &estimated, &model)) return *none;
 
   const FeedView view = ViewFeed(c, feed, WallNow());
   // Predictability horizon from the exponent the cadence paces by.
   auto served = c.runtimes->at(feed).ForecastFrom(
-      start, params.steps, view.exponent ? std::optional<double>(view.exponent->lambda_max) : std::nullopt);
+      start, params.steps, view.exponent ? std::optional<double>(view.exponent->lambda_max) : std::nullopt,
+      std::move(model));
   if (!served.ok()) return FromStatus(served.status());
   HttpResponse r;
   if (params.csv) {

@@ -413,7 +413,7 @@ HealthConfig ReadHealth(const Value& v) {
   return c;
 }
 
-// The channel a per-channel map's key names (hold, quality), or a failure
+// The channel a per-channel map's key names (hold, period, quality), or a failure
 // naming the key and the feed's channels.
 std::size_t ChannelKey(const MapReader::Entry& e, const std::vector<std::string>& channels, std::string_view section) {
   const auto it = std::find(channels.begin(), channels.end(), e.key);
@@ -425,11 +425,13 @@ std::size_t ChannelKey(const MapReader::Entry& e, const std::vector<std::string>
   return static_cast<std::size_t>(it - channels.begin());
 }
 
-// hold: {channel: duration}, each channel of the feed at most once.
-void ReadHold(const Value& v, const std::vector<std::string>& channels, std::vector<Micros>* hold) {
+// hold or period: {channel: duration}, each channel of the feed at most
+// once, each duration > 0; `out` has one entry per channel (0: not given).
+void ReadChannelDurations(const Value& v, const std::vector<std::string>& channels, std::string_view section,
+                          std::vector<Micros>* out) {
   const MapReader m = v.MapAnyKeys();
   for (const MapReader::Entry& e : m.entries()) {
-    (*hold)[ChannelKey(e, channels, "hold")] = e.value.Duration(DurationRule::Positive());
+    (*out)[ChannelKey(e, channels, section)] = e.value.Duration(DurationRule::Positive());
   }
 }
 
@@ -462,7 +464,8 @@ void ReadQuality(const Value& v, const std::vector<std::string>& channels, std::
 // `earlier` are the feeds before this one in `list_path`, for duplicate ids.
 FeedConfig ReadFeed(const Value& v, const std::vector<FeedConfig>& earlier, const std::string& list_path) {
   const MapReader m =
-      v.Map({"id", "channels", "units", "step", "hold", "quality", "dynamics", "model", "retrain", "monitor", "health"});
+      v.Map({"id", "channels", "units", "step", "hold", "period", "quality", "dynamics", "model", "retrain", "monitor",
+             "health"});
   FeedConfig f;
   const Value id = m.Require("id", "every feed needs an id such as loop-a");
   f.id = id.Text(FeedIdAllowed());
@@ -476,7 +479,9 @@ FeedConfig ReadFeed(const Value& v, const std::vector<FeedConfig>& earlier, cons
   if (auto x = m.Get("units")) f.units = ReadUnits(*x, f.channels.size());
   if (auto x = m.Get("step")) f.step = x->Duration(DurationRule::Positive());
   f.hold.assign(f.channels.size(), Micros{});
-  if (auto x = m.Get("hold")) ReadHold(*x, f.channels, &f.hold);
+  if (auto x = m.Get("hold")) ReadChannelDurations(*x, f.channels, "hold", &f.hold);
+  f.period.assign(f.channels.size(), Micros{});
+  if (auto x = m.Get("period")) ReadChannelDurations(*x, f.channels, "period", &f.period);
   f.quality.assign(f.channels.size(), ChannelQuality{});
   if (auto x = m.Get("quality")) ReadQuality(*x, f.channels, &f.quality);
   // "dynamics:" left empty reads as no known dynamics, like a missing key.

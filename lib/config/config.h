@@ -143,6 +143,12 @@ struct FeedConfig {
   // a state when the channel has no sample near the time (a slow channel
   // such as a lab assay); 0 = never carried. From `hold: {channel: 60s}`.
   std::vector<Micros> hold;
+  // Per channel (feed order): the longest the channel is expected to go
+  // without a reading; 0 = not declared. Status and health call a channel
+  // silent after more than 3 periods of data without one (monitor/health.h).
+  // Implies no hold: a slow channel normally wants both. From
+  // `period: {channel: 5m}`.
+  std::vector<Micros> period;
   // Per channel (feed order): configured range and bad-quality sentinels
   // for the sensor screen. From `quality: {channel: {range: [lo, hi],
   // bad_values: [-9999]}}`; unset channels get the robust rules only.

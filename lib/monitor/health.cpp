@@ -99,6 +99,10 @@ std::string FormatAge(double seconds) {
   return fmt::format("{}d{}h", s / 86400, s % 86400 / 3600);
 }
 
+bool ChannelSilent(Micros age, Micros period) {
+  return period > Micros{} && static_cast<double>(age.count()) > kSilentPeriods * static_cast<double>(period.count());
+}
+
 HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& model_age, const HealthInputs& in) {
   Judge judge;
   if (!in.storage_available) {
@@ -122,6 +126,10 @@ HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& mod
   }
   for (const std::string& c : in.suspect_channels) judge.Add(Verdict::kAlert, "suspect sensor readings on " + c);
   if (in.sensor_fault) judge.Add(Verdict::kAlert, "suspect sensor " + *in.sensor_fault);
+  for (const SilentChannel& c : in.silent_channels) {
+    judge.Add(Verdict::kAlert, fmt::format("channel '{}' silent: no reading for {} (expected every {})", c.channel,
+                                           FormatAge(Seconds(c.age)), FormatDuration(c.period)));
+  }
   if (in.training_blocked) {
     judge.Add(Verdict::kAlert, "retraining finds no usable training pairs: " + *in.training_blocked);
   }

@@ -27,6 +27,8 @@
 //     (training_blocked)                             -> alert, with why
 //   - suspect readings on a channel within kSuspectRecentSteps model steps
 //     of the newest data (a failing sensor)          -> alert, per channel
+//   - a channel with a declared period silent (ChannelSilent) -> alert, per
+//     channel
 //   - since_training_lyapunov_times vs the model-age thresholds in force
 //     (ModelAgeInForce)                              -> alert / alarm
 // While paused (plant shutdown) only storage and the no-data / no-model
@@ -49,6 +51,7 @@
 #include <string>
 #include <vector>
 
+#include "core/data_time.h"
 #include "monitor/health_levels.h"
 
 namespace lyapcast {
@@ -95,6 +98,23 @@ inline constexpr double kUnscoredAlertSteps = 100;
 // steps of data) after the last one.
 inline constexpr double kSuspectRecentSteps = 300;
 
+// A channel expected to report at least once per `period` (feeds[].period)
+// is silent when more than kSilentPeriods periods of data time passed since
+// its last reading, measured against the feed's newest sample (so a feed
+// that stops altogether is the data-age check's, not every channel's).
+// Three periods let one or two readings be late or lost without an alert.
+inline constexpr double kSilentPeriods = 3;
+// `age`: data time from the channel's last reading to the feed's newest
+// sample. False when period <= 0 (none declared): fast channels are covered
+// by the data age.
+bool ChannelSilent(Micros age, Micros period);
+
+struct SilentChannel {
+  std::string channel;  // its name
+  Micros age{};         // data time without a reading, as for ChannelSilent
+  Micros period{};      // the declared period
+};
+
 struct HealthInputs {
   bool has_data = false;           // any sample of the feed stored
   bool has_model = false;          // an active model
@@ -120,6 +140,8 @@ struct HealthInputs {
   // A sensor the drift monitor found at fault (DriftSnapshot::sensor_fault),
   // described in words ("'x' since T: ..."); absent otherwise.
   std::optional<std::string> sensor_fault;
+  // Channels that ChannelSilent calls silent.
+  std::vector<SilentChannel> silent_channels;
 };
 
 struct HealthResult {

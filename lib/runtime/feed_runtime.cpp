@@ -2,10 +2,13 @@
 
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cmath>
+#include <cstdlib>
 #include <limits>
 
 #include "core/wall_clock.h"
+#include "learn/alignment.h"
 #include "schedule/retrain_details.h"
 
 namespace lyapcast {
@@ -29,6 +32,7 @@ struct FeedRuntime::State {
   std::shared_ptr<const ActiveModel> model;  // the one the monitor scores with
   std::optional<Sample> newest_complete;
   std::optional<Sample> newest;                     // the newest sample, complete or not
+  std::optional<DataTime> first;                    // the oldest sample time seen
   std::vector<std::pair<DataTime, double>> last;    // per channel, its newest observation (t 0: none)
   std::optional<DataTime> last_drift_trigger;
   std::uint64_t drift_triggers = 0;
@@ -109,6 +113,7 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived, std::uint64_t
     if (sample.complete() && (!s.newest_complete || sample.t >= s.newest_complete->t)) {
       s.newest_complete = sample;  // 4.
     }
+    if (!s.first || sample.t < *s.first) s.first = sample.t;
     if (!s.newest || sample.t > s.newest->t) {
       s.newest = sample;
     } else if (sample.t == s.newest->t) {  // a merged row: the writer passes the whole row
@@ -184,23 +189,77 @@ std::optional<Sample> FeedRuntime::NewestComplete() const {
 }
 
 std::optional<FeedRuntime::StartEstimate> FeedRuntime::EstimateStart() const {
-  std::lock_guard lock(mu_);
-  const State& s = *state_;
-  if (!s.newest) return std::nullopt;
+  std::optional<Sample> complete;
+  std::vector<std::pair<DataTime, double>> last;
   StartEstimate out;
-  out.start = *s.newest;
+  {
+    std::lock_guard lock(mu_);
+    const State& s = *state_;
+    if (!s.newest) return std::nullopt;
+    out.start = *s.newest;
+    complete = s.newest_complete;
+    last = s.last;
+  }
+  using How = EstimatedChannel::How;
+  std::uint64_t unresolved = 0;  // missing channels that cannot be carried
   for (int c = 0; c < static_cast<int>(out.start.values.size()); ++c) {
     if (!out.start.missing(c)) continue;
     const auto k = static_cast<std::size_t>(c);
     const Micros hold = k < feed_.hold.size() ? feed_.hold[k] : Micros{};
-    if (k >= s.last.size() || s.last[k].first == DataTime{} || hold <= Micros{} ||
-        out.start.t - s.last[k].first > hold) {
-      return std::nullopt;
+    if (k >= last.size() || last[k].first == DataTime{} || hold <= Micros{} || out.start.t - last[k].first > hold) {
+      unresolved |= std::uint64_t{1} << c;
+      continue;
     }
-    out.start.values[k] = s.last[k].second;
+    out.start.values[k] = last[k].second;
     out.start.missing_mask &= ~(std::uint64_t{1} << c);
-    out.estimated.push_back({c, Seconds(out.start.t - s.last[k].first)});
+    out.estimated.push_back({c, How::kCarried, Seconds(out.start.t - last[k].first)});
   }
+  if (unresolved == 0) return out;
+
+  // The rest from the model: t1 = t0 + k * step within the alignment's
+  // nearest-sample tolerance, 1 <= k <= max_gap.
+  if (!complete || complete->t >= out.start.t) return std::nullopt;
+  std::shared_ptr<const ActiveModel> model = scheduler_.active(index_);
+  const int channels = static_cast<int>(out.start.values.size());
+  if (!model || model->model->shape().channels != channels ||
+      complete->values.size() != out.start.values.size()) {
+    return std::nullopt;
+  }
+  const Micros step = feed_.step;
+  const Micros span = out.start.t - complete->t;
+  const std::int64_t steps = (span + step / 2) / step;
+  const Micros off = span - steps * step;
+  if (steps < 1 || steps > feed_.model.max_gap ||
+      std::abs(off.count()) > AlignmentOptions(step).tolerance_or_default().count()) {
+    return std::nullopt;
+  }
+  const Eigen::VectorXd x0 = Eigen::Map<const Eigen::VectorXd>(complete->values.data(), channels);
+  const FreeRun run = Rollout(*model->model, x0, steps);
+  const auto predicted = run.states.col(static_cast<Eigen::Index>(steps - 1));
+  for (int c = 0; c < channels; ++c) {
+    if (!((unresolved >> c) & 1U)) continue;
+    if (!std::isfinite(predicted(c))) return std::nullopt;
+    out.start.values[static_cast<std::size_t>(c)] = predicted(c);
+    out.start.missing_mask &= ~(std::uint64_t{1} << c);
+    out.estimated.push_back({c, How::kPredicted, Seconds(span)});
+  }
+  // Feed order, as the response lists them.
+  std::sort(out.estimated.begin(), out.estimated.end(),
+            [](const EstimatedChannel& a, const EstimatedChannel& b) { return a.channel < b.channel; });
+  out.model = std::move(model);
+  return out;
+}
+
+FeedRuntime::ChannelActivity FeedRuntime::Activity() const {
+  std::lock_guard lock(mu_);
+  const State& s = *state_;
+  ChannelActivity out;
+  out.last.resize(feed_.channels.size());
+  for (std::size_t c = 0; c < out.last.size() && c < s.last.size(); ++c) {
+    if (s.last[c].first != DataTime{}) out.last[c] = s.last[c].first;
+  }
+  out.first = s.first;
+  if (s.newest) out.newest = s.newest->t;
   return out;
 }
 
@@ -222,9 +281,10 @@ std::uint64_t FeedRuntime::drift_triggers() const {
 }
 
 Result<ServedForecast> FeedRuntime::ForecastFrom(const Sample& start, std::int64_t steps,
-                                                 std::optional<double> lambda_max) const {
+                                                 std::optional<double> lambda_max,
+                                                 std::shared_ptr<const ActiveModel> model) const {
   ServedForecast out;
-  out.model = scheduler_.active(index_);
+  out.model = model ? std::move(model) : scheduler_.active(index_);
   if (!out.model) return Status::Precondition(fmt::format("feed {} has no model yet", feed_.id));
   double e0 = this->e0();
   if (!std::isfinite(e0) && out.model->record.validation_error) e0 = *out.model->record.validation_error;

@@ -68,20 +68,46 @@ class FeedRuntime {
   double e0() const;  // the monitor's current error; NaN when unknown
   std::optional<Sample> NewestComplete() const;
 
-  // A forecast start made of the newest sample with its missing channels
-  // carried from their last values when within the channel's `hold`
-  // (config). `estimated` names each carried channel and its age. Absent
-  // when the newest sample cannot be completed that way (then the caller
-  // falls back to NewestComplete).
+  // A forecast start at the newest sample's time: its present channels as
+  // measured, and each missing channel estimated (docs/design.md "Forecast
+  // start"):
+  //   - carried: its last value, when that is at most the channel's `hold`
+  //     (config) old; carrying wins when it applies;
+  //   - predicted: from the published model run k steps, G^k(x(t0)), from
+  //     the newest complete sample x(t0), when the newest sample's time t1
+  //     is within a quarter step of t0 + k * step (the alignment rule's
+  //     nearest-sample tolerance, learn/alignment.h) with
+  //     1 <= k <= model.max_gap (the longest composition the model is
+  //     trained and scored through), and every predicted value is finite.
+  // `estimated` names each estimated channel, how, and its age. Absent when
+  // some missing channel can be neither (then the caller falls back to
+  // NewestComplete). Runs the model outside the runtime's lock.
   struct EstimatedChannel {
+    enum class How { kCarried, kPredicted };
     int channel = 0;
-    double age_s = 0;  // data time between the carried value and the start
+    How how = How::kCarried;
+    // Data time from the carried value, or from the complete sample the
+    // prediction started at, to the start.
+    double age_s = 0;
   };
   struct StartEstimate {
-    Sample start;
+    Sample start;  // complete
     std::vector<EstimatedChannel> estimated;
+    // The model version that predicted; null when nothing was predicted.
+    // Pass it to ForecastFrom so one version makes the start and the run.
+    std::shared_ptr<const ActiveModel> model;
   };
   std::optional<StartEstimate> EstimateStart() const;
+
+  // What the runtime saw of each channel (since the daemon started): the
+  // data time of its newest usable reading (suspect readings are missing
+  // and do not count), and the oldest and newest sample times of the feed.
+  struct ChannelActivity {
+    std::vector<std::optional<DataTime>> last;  // per channel (feed order); none: no reading seen
+    std::optional<DataTime> first;              // none before the first sample
+    std::optional<DataTime> newest;
+  };
+  ChannelActivity Activity() const;
 
   // Readings the sensor screen marked suspect, per channel (feed order),
   // as the committed samples showed them (each stored reading once).
@@ -96,11 +122,13 @@ class FeedRuntime {
   // previous trigger are not counted).
   std::uint64_t drift_triggers() const;
 
-  // `steps` points from `start` (complete, one value per channel) with the
-  // published model. kFailedPrecondition when the feed has no model yet;
-  // otherwise MakeForecast's errors.
+  // `steps` points from `start` (complete, one value per channel) with
+  // `model`, or the published model when `model` is null.
+  // kFailedPrecondition when the feed has no model yet; otherwise
+  // MakeForecast's errors.
   [[nodiscard]] Result<ServedForecast> ForecastFrom(const Sample& start, std::int64_t steps,
-                                                    std::optional<double> lambda_max) const;
+                                                    std::optional<double> lambda_max,
+                                                    std::shared_ptr<const ActiveModel> model = nullptr) const;
 
  private:
   struct State;

@@ -276,6 +276,24 @@ TEST(ConfigDefaults, HoldIsPerChannelAndDefaultsToNever) {
   ExpectError(FeedWith("    hold: {y: -1s}\n"), 4, "feeds[0].hold.y", {});
 }
 
+// period: parsed like hold, and independent of it (a period implies no hold).
+TEST(ConfigDefaults, PeriodIsPerChannelAndDefaultsToUndeclared) {
+  EXPECT_EQ(MustParse(FeedWith("")).feeds[0].period, (std::vector<Micros>{Micros{}, Micros{}}));
+  const Config c = MustParse(FeedWith("    period: {y: 5m}\n"));
+  EXPECT_EQ(c.feeds[0].period, (std::vector<Micros>{Micros{}, 300 * kSecond}));
+  EXPECT_EQ(c.feeds[0].hold, (std::vector<Micros>{Micros{}, Micros{}}));
+  EXPECT_EQ(MustParse(FeedWith("    hold: {y: 20m}\n    period: {x: 2, y: 5m}\n")).feeds[0].period,
+            (std::vector<Micros>{2 * kSecond, 300 * kSecond}));
+  ExpectError(FeedWith("    period: {z: 90s}\n"), 4, "feeds[0].period.z",
+              {"'z' is not a channel of this feed; period names channels (x, y)"});
+  ExpectError(FeedWith("    period: {y: 0s}\n"), 4, "feeds[0].period.y", {"must be a positive duration", "got '0s'"});
+  ExpectError(FeedWith("    period: {y: -1s}\n"), 4, "feeds[0].period.y", {"must be a positive duration"});
+  ExpectError(FeedWith("    period: {y: soon}\n"), 4, "feeds[0].period.y", {"duration"});
+  ExpectError(FeedWith("    period: {y: 1s,\n             y: 2s}\n"), 5, "feeds[0].period.y",
+              {"duplicate key (first at line 4)"});
+  ExpectError(FeedWith("    period: 5m\n"), 4, "feeds[0].period", {});
+}
+
 TEST(ConfigDefaults, QualityIsPerChannel) {
   const Config c = MustParse(FeedWith("    quality: {y: {range: [-5, 5], bad_values: [-9999, 1e30]}}\n"));
   ASSERT_EQ(c.feeds[0].quality.size(), 2u);
@@ -305,7 +323,7 @@ TEST(ConfigErrors, UnknownKeysListTheAllowedOnes) {
   ExpectError(FeedWith("    dynamics:\n      equations: {x: y, y: x}\n      constraints:\n"
                        "        - {kind: velocity, wieght: 1}\n"),
               7, "feeds[0].dynamics.constraints[0].wieght", {"allowed keys", "kind, weight, anneal"});
-  ExpectError(FeedWith("    colour: red\n"), 4, "feeds[0].colour", {"id, channels, units, step, hold, quality, dynamics"});
+  ExpectError(FeedWith("    colour: red\n"), 4, "feeds[0].colour", {"id, channels, units, step, hold, period, quality, dynamics"});
 }
 
 TEST(ConfigErrors, DuplicateKeysNameTheSecondLine) {

@@ -360,8 +360,7 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         assert len(cls.lines) == 4000, len(cls.lines)
         # Missing channels, after the first model's data (so its training
         # pairs are exactly as planned), and on the last sample that
-        # test_retrain... sends (so a forecast from "latest" must start one
-        # sample earlier).
+        # test_retrain... sends (so a forecast from "latest" predicts it).
         for i in list(range(2003, 4000, 97)) + [2998, 3499]:
             fields = cls.lines[i].split(",")
             fields[2 + i % 3] = ""
@@ -815,9 +814,15 @@ class ApiTest(unittest.TestCase, ApiAssertions):
         client.close()
         self.assertTrue(all(r.startswith("ok") for r in replies) and len(replies) == len(more), replies[-3:])
         type(self).accepted_later = len(more)
-        # The newest sample lacks a channel: "latest" is the one before it.
-        self.assertIn("", more[-1].split(","))
-        self.wait_latest(parse_ingest_csv(more[-2])[1])
+        # The newest sample lacks y, one step after a complete one: "latest"
+        # starts at it with y predicted by the model (G of the state before).
+        self.assertEqual(more[-1].split(",")[3], "")
+        self.assertNotIn("", more[-2].split(","))
+        self.wait_latest(parse_ingest_csv(more[-1])[1])
+        forecast = self.get("/v1/feeds/lorenz/forecast?steps=1").json()
+        self.assertEqual([(e["channel"], e["how"]) for e in forecast["estimated"]], [("y", "predicted")], forecast)
+        self.assertAlmostEqual(forecast["estimated"][0]["age_s"], 0.01, places=9)
+        self.assertEqual([forecast["start"][0], forecast["start"][2]], parse_ingest_csv(more[-1])[2][::2])
         self.assertGreater(time_us(self.status()["cadence"]["next_due"]), rfc_to_us("2026-01-01T00:00:35Z"))
 
         answers = []

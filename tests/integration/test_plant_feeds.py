@@ -220,6 +220,81 @@ class PlantFeedTest(unittest.TestCase):
         self.assertEqual(len(forecast["points"]), 10)
         self.assertNotIn("cannot be judged", " ".join(status["health"]["reasons"]))
 
+    def test_a_slow_channel_that_stops_reporting_is_silent_until_it_reports_again(self):
+        # z every 3 s (period: {z: 3s}) as partial rows from a second
+        # connection, as in the test above; it reports at 0 s and 3 s and then
+        # stops while x and y run on. Past 3 periods (9 s of data time) without
+        # a reading, status and health call it silent; one reading clears
+        # that. x and y declare no period and are never silent. No model is
+        # needed (min_pairs out of reach).
+        lines = self.simulate("silent.csv", "15s")
+        fast, slow = [], []
+        for k, line in enumerate(lines):
+            feed, t, x, y, z = line.split(",")
+            fast.append(f"{feed},{t},{x},{y},")
+            slow.append(f"{feed},{t},,,{z}")
+        feed = FEED.replace("    step: 10ms\n", "    step: 10ms\n    hold: {z: 4s}\n    period: {z: 3s}\n")
+        feed = feed.replace("min_pairs: 1500", "min_pairs: 1000000")
+        silent_reason = "channel 'z' silent"
+        with self.daemon("silent", feed) as d:
+            d.start()
+            self.send(d, fast[:301])  # 0 .. 3 s
+            self.send(d, [slow[0], slow[300]])
+            reporting = self.status(d)
+            self.send(d, fast[301:1301])  # on to 13 s: z's last reading 10 s old
+            stopped = self.status(d)
+            self.send(d, [slow[1200]])  # a reading at 12 s, merged into its row
+            self.send(d, fast[1301:1400])
+            resumed = self.status(d)
+        z, x = reporting["channels"]["z"], reporting["channels"]["x"]
+        self.assertEqual((z["period_s"], z["silent"], z["age_s"]), (3.0, False, 0.0), reporting["channels"])
+        self.assertEqual(z["last"]["epoch_s"], START_S + 3)
+        self.assertEqual((x["period_s"], x["silent"]), (None, False))
+
+        z, x = stopped["channels"]["z"], stopped["channels"]["x"]
+        self.assertTrue(z["silent"], stopped["channels"])
+        self.assertAlmostEqual(z["age_s"], 10.0, places=3)
+        self.assertEqual(z["last"]["epoch_s"], START_S + 3)
+        self.assertEqual((x["silent"], x["age_s"]), (False, 0.0))
+        self.assertIn("channel 'z' silent: no reading for 10s (expected every 3s)", stopped["health"]["reasons"])
+        self.assertEqual(stopped["health"]["verdict"], "alert")
+
+        z = resumed["channels"]["z"]
+        self.assertFalse(z["silent"], resumed["channels"])
+        self.assertAlmostEqual(z["age_s"], 1.99, places=3)
+        self.assertFalse([r for r in resumed["health"]["reasons"] if silent_reason in r], resumed["health"])
+
+    def test_a_channel_missing_from_the_newest_rows_is_predicted_for_the_forecast_start(self):
+        # 30 s of complete rows, then 5 rows (50 ms) without z and no hold
+        # for it: the forecast starts at the newest row with x and y as
+        # measured and z from the model run 5 steps from the newest complete
+        # row, not from that older row.
+        lines = self.simulate("dropout.csv", "30s")
+        missing = 5
+        rows = [line.split(",") for line in lines]
+        sent = lines[:-missing] + [f"{feed},{t},{x},{y}," for feed, t, x, y, _ in rows[-missing:]]
+        with self.daemon("dropout") as d:
+            d.start()
+            self.send(d, sent)
+            settled = wait_settled(d)
+            _, forecast = d.http_get("/v1/feeds/lorenz/forecast?steps=10")
+            log = d.read_log(tail=20000)
+        self.assertIsNotNone(settled["model"], f"no model:\n{log}")
+        _, t, x, y, z = rows[-1]
+        self.assertEqual(forecast["from"]["epoch_s"], float(t))
+        self.assertEqual(len(forecast["estimated"]), 1, forecast["estimated"])
+        estimate = forecast["estimated"][0]
+        self.assertEqual((estimate["channel"], estimate["how"]), ("z", "predicted"))
+        self.assertAlmostEqual(estimate["age_s"], missing * 0.01, places=6)
+        self.assertEqual(forecast["start"][:2], [float(x), float(y)])
+        z_old = float(rows[-missing - 1][4])
+        print(f"predicted z {forecast['start'][2]:.4f}, truth {float(z):.4f}, newest complete row's z {z_old:.4f}")
+        # Within 0.3 of the truth (measured: 0.09), while the newest complete
+        # row's z is more than 1 away (here 4.7: z moves fast in 50 ms).
+        self.assertGreater(abs(float(z) - z_old), 1)
+        self.assertLess(abs(forecast["start"][2] - float(z)), 0.3, forecast["start"])
+        self.assertEqual(len(forecast["points"]), 10)
+
     def test_a_sentinel_burst_is_kept_suspect_and_harms_neither_training_nor_a_later_alarm(self):
         # Channel x writes -9999 for 10 s and then 1e30 for 10 s (bad-quality
         # codes, no configuration); r steps 28 -> 38 at 60 s.

@@ -156,6 +156,34 @@ TEST(EvaluateHealth, ASensorAtFaultAlertsAndNamesIt) {
   EXPECT_EQ(r.reasons, std::vector<std::string>{"suspect sensor 'x' since T: the one-step error grew on 'y'"});
 }
 
+// More than 3 declared periods of data time without a reading: silent;
+// exactly 3 is not; no declared period never is.
+TEST(ChannelSilent, AfterMoreThanThreePeriodsAndOnlyWithAPeriod) {
+  EXPECT_FALSE(ChannelSilent(Micros{}, 300 * kSecond));
+  EXPECT_FALSE(ChannelSilent(900 * kSecond, 300 * kSecond));
+  EXPECT_TRUE(ChannelSilent(900 * kSecond + Micros(1), 300 * kSecond));
+  EXPECT_FALSE(ChannelSilent(86400 * kSecond, Micros{}));
+}
+
+TEST(EvaluateHealth, SilentChannelsAlertOneReasonEach) {
+  HealthInputs in = Healthy();
+  in.silent_channels = {{"assay", 1000 * kSecond, 5 * 60 * kSecond}, {"z", Micros(12'500'000), 3 * kSecond}};
+  HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons, (std::vector<std::string>{"channel 'assay' silent: no reading for 16m40s (expected every 5m)",
+                                                 "channel 'z' silent: no reading for 12s (expected every 3s)"}));
+  // Judged without a model too (a channel can stop before the first one).
+  in.has_model = false;
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
+  EXPECT_EQ(r.reasons.size(), 3u);
+  // Not while paused: a stopped plant's channels are all silent.
+  in.paused = true;
+  r = EvaluateHealth(kThresholds, kModelAge, in);
+  EXPECT_EQ(r.reasons, (std::vector<std::string>{"no model yet", "paused: data age, drift and model age are not judged"}))
+      << Describe(r);
+}
+
 TEST(EvaluateHealth, ModelAgeInLyapunovTimes) {
   HealthInputs in = Healthy();
   in.since_training_lyapunov_times = 1.99;

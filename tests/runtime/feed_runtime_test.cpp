@@ -9,6 +9,8 @@
 
 #include <gtest/gtest.h>
 
+#include <initializer_list>
+#include <limits>
 #include <random>
 
 #include "core/wall_clock.h"
@@ -254,6 +256,130 @@ TEST(FeedRuntime, CountsASuspectReadingOnceWhenItsRowIsMerged) {
   EXPECT_EQ(suspects[0].last_value, -9999);
   EXPECT_EQ(suspects[0].last, kT0);
   EXPECT_EQ(suspects[1].count, 0);
+}
+
+// The data time `steps` model steps plus `extra` after t.
+DataTime After(DataTime t, int steps, Micros extra = {}) { return t + steps * Micros(10'000) + extra; }
+
+// `values` at t with the channels in `missing` left out (NaN, mask bit set).
+FeedSample Partial(DataTime t, const std::vector<double>& values, std::initializer_list<int> missing) {
+  FeedSample fs;
+  fs.sample.t = t;
+  fs.sample.values = values;
+  for (int c : missing) {
+    fs.sample.values[static_cast<std::size_t>(c)] = std::numeric_limits<double>::quiet_NaN();
+    fs.sample.missing_mask |= std::uint64_t{1} << c;
+  }
+  return fs;
+}
+
+// The start estimate: present channels as measured; a missing channel within
+// its hold carried (carrying wins), any other predicted as G^k of the newest
+// complete state when the newest sample lies within a quarter step of k
+// whole steps after it, 1 <= k <= model.max_gap; otherwise none.
+TEST(FeedRuntime, StartEstimateCarriesWithinHoldAndPredictsTheRestFromTheNewestCompleteState) {
+  Config config = LorenzConfig();
+  FeedConfig& feed = config.feeds[0];
+  feed.hold = {Micros{}, Micros(15'000), Micros{}};  // y may be carried 15 ms
+  ASSERT_EQ(feed.model.max_gap, 8);
+  testing::TempDir dir("lyapcast-runtime-test");
+  Rig rig(config, dir.path() / "w.db", 4096);
+  const std::vector<FeedSample> data = testing::LorenzSamples(820, kT0);
+  rig.Send({data.begin(), data.begin() + 800}, 800);
+  rig.Drain();
+  const Sample& x0 = data[799].sample;  // the newest complete state
+  const auto model = rig.scheduler().active(0);
+  ASSERT_NE(model, nullptr);
+  auto e = rig.runtime().EstimateStart();
+  ASSERT_TRUE(e.has_value());
+  EXPECT_TRUE(e->estimated.empty()) << "a complete newest sample needs no estimate";
+  EXPECT_EQ(e->model, nullptr);
+  const auto g = [&](int k) {
+    const Eigen::VectorXd start = Eigen::Map<const Eigen::VectorXd>(x0.values.data(), 3);
+    return Rollout(*model->model, start, k).states.col(k - 1);
+  };
+  using How = FeedRuntime::EstimatedChannel::How;
+  const auto send = [&](const FeedSample& fs) {
+    rig.Send({fs}, 1);
+    rig.Drain();
+    ASSERT_EQ(rig.scheduler().active(0), model) << "no retrain in between";
+  };
+
+  // One step on, z missing: z = G(x0)_z; x and y as measured.
+  send(Partial(After(x0.t, 1), data[800].sample.values, {2}));
+  e = rig.runtime().EstimateStart();
+  ASSERT_TRUE(e.has_value());
+  EXPECT_EQ(e->start.t, After(x0.t, 1));
+  EXPECT_TRUE(e->start.complete());
+  EXPECT_EQ(e->start.values[0], data[800].sample.values[0]);
+  EXPECT_EQ(e->start.values[1], data[800].sample.values[1]);
+  EXPECT_EQ(e->start.values[2], g(1)(2));
+  ASSERT_EQ(e->estimated.size(), 1u);
+  EXPECT_EQ(e->estimated[0].channel, 2);
+  EXPECT_EQ(e->estimated[0].how, How::kPredicted);
+  EXPECT_NEAR(e->estimated[0].age_s, 0.01, 1e-9);
+  EXPECT_EQ(e->model, model);
+  // The prediction is close to the truth: a trained map's one-step error on
+  // Lorenz (z spans about 5..45) is far below the step's change.
+  EXPECT_NEAR(e->start.values[2], data[800].sample.values[2], 1.0);
+
+  // Two steps on, y and z missing: y's value of 10 ms ago is within its
+  // hold and carried although the model could predict it; z from G^2.
+  send(Partial(After(x0.t, 2), data[801].sample.values, {1, 2}));
+  e = rig.runtime().EstimateStart();
+  ASSERT_TRUE(e.has_value());
+  ASSERT_EQ(e->estimated.size(), 2u);
+  EXPECT_EQ(e->estimated[0].channel, 1);
+  EXPECT_EQ(e->estimated[0].how, How::kCarried);
+  EXPECT_NEAR(e->estimated[0].age_s, 0.01, 1e-9);
+  EXPECT_EQ(e->start.values[1], data[800].sample.values[1]);
+  EXPECT_EQ(e->estimated[1].channel, 2);
+  EXPECT_EQ(e->estimated[1].how, How::kPredicted);
+  EXPECT_NEAR(e->estimated[1].age_s, 0.02, 1e-9);
+  EXPECT_EQ(e->start.values[2], g(2)(2));
+
+  // 4 steps + 2 ms on (within the quarter-step tolerance): y is now 32 ms
+  // old, past its hold, and predicted with z through G^4.
+  send(Partial(After(x0.t, 4, Micros(2'000)), data[803].sample.values, {1, 2}));
+  e = rig.runtime().EstimateStart();
+  ASSERT_TRUE(e.has_value());
+  ASSERT_EQ(e->estimated.size(), 2u);
+  EXPECT_EQ(e->estimated[0].how, How::kPredicted);
+  EXPECT_EQ(e->estimated[1].how, How::kPredicted);
+  EXPECT_NEAR(e->estimated[1].age_s, 0.042, 1e-9);
+  EXPECT_EQ(e->start.values[1], g(4)(1));
+  EXPECT_EQ(e->start.values[2], g(4)(2));
+  // The forecast runs the version that predicted.
+  auto served = rig.runtime().ForecastFrom(e->start, 5, 0.9, e->model);
+  ASSERT_TRUE(served.ok()) << served.status().ToString();
+  EXPECT_EQ(served->model, model);
+
+  // 6 steps + 4 ms on: off the grid by more than a quarter step.
+  send(Partial(After(x0.t, 6, Micros(4'000)), data[805].sample.values, {2}));
+  EXPECT_FALSE(rig.runtime().EstimateStart().has_value());
+  // 9 steps on: further than model.max_gap (8) steps.
+  send(Partial(After(x0.t, 9), data[808].sample.values, {2}));
+  EXPECT_FALSE(rig.runtime().EstimateStart().has_value());
+  // NewestComplete, the caller's fallback, is still x0.
+  EXPECT_EQ(rig.runtime().NewestComplete()->t, x0.t);
+}
+
+// Activity: per channel the data time of its newest usable reading (a
+// missing one does not count), and the oldest and newest sample seen.
+TEST(FeedRuntime, ActivityHasEachChannelsNewestReading) {
+  const Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-runtime-test");
+  Rig rig(config, dir.path() / "w.db", 4096);
+  EXPECT_FALSE(rig.runtime().Activity().newest.has_value());
+  const std::vector<FeedSample> data = testing::LorenzSamples(10, kT0);
+  rig.Send({data.begin(), data.begin() + 5}, 5);
+  rig.Send({Partial(data[5].sample.t, data[5].sample.values, {2})}, 1);
+  rig.Send({Partial(data[6].sample.t, data[6].sample.values, {1, 2})}, 1);
+  rig.Drain();
+  const FeedRuntime::ChannelActivity a = rig.runtime().Activity();
+  EXPECT_EQ(a.first, kT0);
+  EXPECT_EQ(a.newest, data[6].sample.t);
+  EXPECT_EQ(a.last, (std::vector<std::optional<DataTime>>{data[6].sample.t, data[5].sample.t, data[4].sample.t}));
 }
 
 }  // namespace
