@@ -101,15 +101,22 @@ Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t e
   out.stddev = ((sum2 - sum.cwiseAbs2() / n) / (n - 1)).cwiseMax(0.0).cwiseSqrt();
   out.increment_scale = ((isum2 - isum.cwiseAbs2() / ni) / (ni - 1)).cwiseMax(0.0).cwiseSqrt() / dt;
   for (int k = 0; k < c; ++k) {
-    if (!(out.stddev[k] > 0) || !(out.increment_scale[k] > 0)) {
-      return Status::Invalid(fmt::format("channel {} is constant over the training data; it cannot be learned", k));
+    if (out.stddev[k] == 0) {  // constant: left out (see Normalization)
+      out.left_out |= std::uint64_t{1} << k;
+      out.stddev[k] = Normalization::kLeftOutScale * std::max(std::abs(out.mean[k]), 1.0);
+      out.increment_scale[k] = Normalization::kLeftOutIncrement;
+    } else if (!(out.stddev[k] > 0) || !(out.increment_scale[k] > 0)) {
+      return Status::Invalid(fmt::format(
+          "channel {} has no usable spread over the training data (std {:g}, increment scale {:g})", k,
+          out.stddev[k], out.increment_scale[k]));
     }
   }
   return out;
 }
 
 std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& grid,
-                                 const std::vector<Trajectory>& trajectories) {
+                                 const std::vector<Trajectory>& trajectories, const Eigen::VectorXf* scale) {
+  const Eigen::VectorXf& s = scale != nullptr ? *scale : model.stddev();
   const int c = grid.channels;
   std::vector<double> sum(static_cast<std::size_t>(c), 0.0), count(static_cast<std::size_t>(c), 0.0);
   constexpr std::size_t kChunk = 1024;
@@ -124,7 +131,7 @@ std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& 
     const double* y = grid.row(target);
     for (int k = 0; k < c; ++k) {
       if ((grid.target_missing(target) >> k) & 1U) continue;
-      const double e = (Y(k, col) - y[k]) / model.stddev()[k];
+      const double e = (Y(k, col) - y[k]) / s[k];
       sum[static_cast<std::size_t>(k)] += e * e;
       count[static_cast<std::size_t>(k)] += 1;
     }

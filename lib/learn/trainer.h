@@ -95,11 +95,22 @@ struct FitResult {
 // time scale (the k-step chord is shorter than the path of k one-step
 // increments only by such terms), so its std estimates the one-step
 // increment scale, usually slightly low. S is a scale, not a fit: the
-// network absorbs a constant factor. Fails (kInvalidArgument) when there are
-// fewer than 2 complete states, fewer than 2 such pairs, or a channel is
-// constant.
+// network absorbs a constant factor. A constant channel is left out (see
+// Normalization::left_out). Fails (kInvalidArgument) when there are fewer
+// than 2 complete states, fewer than 2 such pairs, or a channel moves but
+// its increments do not vary (an exact ramp).
 struct Normalization {
   Eigen::VectorXd mean, stddev, increment_scale;
+  // Channels constant over the data (a sensor not yet wired, a closed
+  // valve): LEFT OUT of the model rather than failing the whole fit. Their
+  // stddev is kLeftOutScale x max(|mean|, 1), so the network's input from
+  // them is ~0 and their normalized errors vanish; their increment scale is
+  // kLeftOutIncrement, so G holds them at their value (in float, exactly).
+  // A later fit on data where they move brings them in (the warm start
+  // refits the normalization).
+  std::uint64_t left_out = 0;
+  static constexpr double kLeftOutScale = 1e6;
+  static constexpr double kLeftOutIncrement = 1e-30;
 };
 [[nodiscard]] Result<Normalization> ComputeNormalization(const GridSeries& grid, std::size_t end, double dt,
                                                          int max_gap = 1);
@@ -126,8 +137,11 @@ struct Normalization {
 // the one-step error of the same model, so compare values only on the same
 // trajectories (champion/challenger does). Trajectories without a present
 // target within their horizon (or with horizon 0) are skipped. NaN for a
-// channel with no target at all.
+// channel with no target at all. `scale`, when given (one value per
+// channel, > 0), replaces the model's stddev as the error scale, so two
+// models can be compared on one scale.
 std::vector<double> OneStepError(const FlowMap<float>& model, const GridSeries& grid,
-                                 const std::vector<Trajectory>& trajectories);
+                                 const std::vector<Trajectory>& trajectories,
+                                 const Eigen::VectorXf* scale = nullptr);
 
 }  // namespace lyapcast

@@ -26,7 +26,17 @@ Judgement JudgeCandidate(const Candidate& candidate, const ActiveForJudging& act
   if (!data.judge.empty()) {
     j.candidate_per_channel = OneStepError(candidate.model, data.grid, data.judge);
     j.candidate_error = MeanOverChannels(j.candidate_per_channel);
-    if (active.model != nullptr) j.active_error = MeanOverChannels(OneStepError(*active.model, data.grid, data.judge));
+    if (active.model != nullptr) {
+      // A channel the active model left out (constant in its data: its
+      // scale is huge, its error ~0) and the candidate learned is judged on
+      // the candidate's scale, or holding it constant would always win.
+      Eigen::VectorXf scale = active.model->stddev();
+      const Eigen::VectorXf& fresh = candidate.model.stddev();
+      for (Eigen::Index k = 0; k < scale.size() && k < fresh.size(); ++k) {
+        if (scale[k] > 1e3f * fresh[k]) scale[k] = fresh[k];
+      }
+      j.active_error = MeanOverChannels(OneStepError(*active.model, data.grid, data.judge, &scale));
+    }
   }
   if (!std::isfinite(j.candidate_error)) {
     j.reason = "no held-out data to judge the candidate";

@@ -65,26 +65,6 @@ std::string DiagnoseNoPairs(std::span<const Sample> window, const GridSeries& gr
     return fmt::format("only {} of {} grid states have every channel; channel '{}' is missing from {} of them",
                        complete, present, feed.channels[worst], missing[worst]);
   }
-  // A channel that never moves.
-  for (int c = 0; c < channels; ++c) {
-    double first = std::numeric_limits<double>::quiet_NaN();
-    bool moves = false, seen = false;
-    for (const Sample& s : window) {
-      if (s.missing(c)) continue;
-      const double v = s.values[static_cast<std::size_t>(c)];
-      if (!seen) {
-        first = v;
-        seen = true;
-      } else if (v != first) {
-        moves = true;
-        break;
-      }
-    }
-    if (seen && !moves) {
-      return fmt::format("channel '{}' is constant ({:g}) over the window; it cannot be learned until it moves",
-                         feed.channels[static_cast<std::size_t>(c)], first);
-    }
-  }
   return "";
 }
 

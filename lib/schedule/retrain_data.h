@@ -64,7 +64,7 @@ struct RetrainDataOptions {
 
 // Why a window yields no usable training pairs, in words an operator can act
 // on: samples too sparse for model.max_gap, a channel missing from (nearly)
-// every state, a constant channel; empty when none of these explains it.
+// every state; empty when none of these explains it.
 std::string DiagnoseNoPairs(std::span<const Sample> window, const GridSeries& grid, const FeedConfig& feed);
 
 // `window`: the feed's samples before options.until, oldest first.

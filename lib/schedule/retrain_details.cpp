@@ -49,6 +49,7 @@ std::string ToJson(const RetrainDetails& d) {
                     {"validation_per_channel", std::move(per_channel)},
                     {"active_error", Number(d.active_error)},
                     {"refit", d.refit},
+                    {"left_out", d.left_out},
                     {"exponents", {{"data", Number(d.data_exponent)}, {"dynamics", Number(d.dynamics_exponent)}}}};
   if (d.upload) {
     const UploadDetails& u = *d.upload;
@@ -75,6 +76,11 @@ RetrainDetails ParseRetrainDetails(std::string_view text) {
   Read(doc, "selection_pairs", &d.selection_pairs);
   Read(doc, "validation_pairs", &d.validation_pairs);
   Read(doc, "refit", &d.refit);
+  if (auto it = doc.find("left_out"); it != doc.end() && it->is_array()) {
+    for (const json& name : *it) {
+      if (name.is_string()) d.left_out.push_back(name.get<std::string>());
+    }
+  }
   if (const auto it = doc.find("validation_per_channel"); it != doc.end() && it->is_array()) {
     for (const json& v : *it) {
       d.validation_per_channel.push_back(v.is_number() ? v.get<double>() : std::numeric_limits<double>::quiet_NaN());

@@ -50,6 +50,7 @@ struct RetrainDetails {
   std::vector<double> validation_per_channel;  // NaN where a channel had no target
   std::optional<double> active_error;          // the active version on the same pairs
   std::string refit;                           // why the normalization moved; empty if it did not
+  std::vector<std::string> left_out;           // constant channels left out of the model (Normalization)
   std::optional<double> data_exponent, dynamics_exponent;  // per second of data time
   std::optional<UploadDetails> upload;                     // uploaded versions only
 };

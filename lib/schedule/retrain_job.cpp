@@ -37,6 +37,14 @@ RetrainDetails DetailsOf(const RetrainInput& in, const RetrainData& data, const 
   d.validation_per_channel = judgement.candidate_per_channel;
   if (std::isfinite(judgement.active_error)) d.active_error = judgement.active_error;
   d.refit = candidate.refit;
+  if (data.normalization) {
+    for (std::size_t c = 0; c < in.feed->channels.size(); ++c) {
+      if (!((data.normalization->left_out >> c) & 1U)) continue;
+      d.left_out.push_back(in.feed->channels[c]);
+      // Its normalized errors are ~0 by construction: not a figure of skill.
+      if (c < d.validation_per_channel.size()) d.validation_per_channel[c] = std::nan("");
+    }
+  }
   d.data_exponent = in.data_exponent;
   d.dynamics_exponent = in.dynamics_exponent;
   return d;

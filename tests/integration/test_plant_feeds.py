@@ -376,6 +376,37 @@ class PlantFeedTest(unittest.TestCase):
         # reported at the end: the limit of naming a slow drift.
         self.assertIn("sensor_fault", drift)
 
+    def test_a_channel_constant_at_first_is_left_out_until_it_moves(self):
+        # A fourth channel, a valve, reads 0 for the first 40 s (closed) and
+        # then follows 0.5 x (our own scenario). The feed must not wait for
+        # it: models are trained with the valve held constant and left out,
+        # and once it moves a retrain brings it in.
+        lines = self.simulate("valve.csv", "70s")
+        for k, line in enumerate(lines):
+            feed, t, x, y, z = line.split(",")
+            valve = 0.0 if float(t) - START_S < 40 else 0.5 * float(x)
+            lines[k] = f"{feed},{t},{x},{y},{z},{valve!r}"
+        feed = FEED_NO_DYNAMICS.replace("channels: [x, y, z]", "channels: [x, y, z, valve]")
+        with self.daemon("valve", feed) as d:
+            d.start()
+            self.send(d, lines)
+            wait_settled(d)
+            status = self.status(d)
+            rows = d.sql("SELECT version, status, trained_to_us, json_extract(details, '$.left_out') FROM models "
+                         "ORDER BY version")
+            log = d.read_log(tail=20000)
+        versions = [{"version": int(v), "status": st, "trained_to": int(t) / 1e6 - START_S, "left_out": lo}
+                    for v, st, t, lo in rows]
+        promoted = [v for v in versions if v["status"] != "rejected"]
+        self.assertTrue(promoted, f"no model while the valve was closed: {versions}\n{log}")
+        first = promoted[0]
+        self.assertLess(first["trained_to"], 40, versions)
+        self.assertEqual(first["left_out"], '["valve"]', versions)
+        moved = [v for v in promoted if v["trained_to"] > 45]
+        self.assertTrue(moved and moved[-1]["left_out"] == "[]", f"the valve never joined the model: {versions}")
+        self.assertFalse([r for r in status["health"]["reasons"] if "no usable training pairs" in r], status["health"])
+        self.assertNotIn("blocked", log)
+
 
 if __name__ == "__main__":
     unittest.main()

@@ -346,6 +346,34 @@ TEST(ComputeNormalization, ConsecutiveStatesGiveBitIdenticalResultsForAnyMaxGap)
   EXPECT_EQ(one->increment_scale, eight->increment_scale);
 }
 
+TEST(ComputeNormalization, AConstantChannelIsLeftOutAndHeldAtItsValue) {
+  Dynamics dynamics = testing::MustCompile(LorenzFeed());
+  // Lorenz with z replaced by a channel stuck at 3.5 (a closed valve).
+  std::vector<Sample> samples = LorenzSamples(dynamics, 3000, 0.01);
+  for (Sample& s : samples) s.values[2] = 3.5;
+  const GridSeries grid = ResampleToGrid(samples, 3, {Micros(10'000), Micros{}});
+  auto n = ComputeNormalization(grid, 2400, 0.01);
+  ASSERT_TRUE(n.ok()) << n.status().ToString();
+  EXPECT_EQ(n->left_out, 0b100u);
+  EXPECT_EQ(n->mean[2], 3.5);
+  EXPECT_EQ(n->stddev[2], Normalization::kLeftOutScale * 3.5);
+  EXPECT_EQ(n->increment_scale[2], Normalization::kLeftOutIncrement);
+  EXPECT_GT(n->stddev[0], 1.0) << "x and y are normalized as usual";
+  // A model with it holds the channel at its value, whatever its weights.
+  auto created = FlowMap<float>::Create(3, {8}, Activation::kTanh, 0.01);
+  ASSERT_TRUE(created.ok());
+  FlowMap<float> model = std::move(created).value();
+  ASSERT_TRUE(model.SetNormalization(n->mean.cast<float>(), n->stddev.cast<float>(),
+                                     n->increment_scale.cast<float>())
+                  .ok());
+  model.InitRandom(7);
+  Eigen::MatrixXf x(3, 1), y;
+  x << 1.0f, 2.0f, 3.5f;
+  FlowMapCache<float> cache;
+  model.Forward(x, &y, &cache);
+  EXPECT_EQ(y(2, 0), 3.5f);
+}
+
 TEST(ComputeNormalization, BridgesGapsUpToMaxGapWithTheIncrementPerStep) {
   NormalizationData d;
   // Samples 5 steps apart: no consecutive states at all.
