@@ -38,6 +38,12 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
   in.data_age_s = v.drift.data_age_s;
   in.drift_ratio = v.drift.drift_ratio;
   in.drift_flag = v.drift.drift_flag;
+  if (v.drift.drift_flag && v.drift.last_alarm) {
+    for (int k : v.drift.last_alarm->grew) {
+      in.drift_grew += fmt::format("{}'{}'", in.drift_grew.empty() ? "" : ", ",
+                                   v.config->channels[static_cast<std::size_t>(k)]);
+    }
+  }
   in.since_training_lyapunov_times = v.since_training_lyapunov_times;
   if (v.drift.unscored_s) {
     in.unscored_steps = *v.drift.unscored_s / Seconds(v.config->step);

@@ -19,11 +19,15 @@ void DriftAttribution::Figure::Add(double sq, bool in_control) {
   reference += weight * (sq - reference);
 }
 
+double DriftAttribution::Figure::RecentMean() const {
+  double sum = 0;  // summed afresh: a running sum would accumulate rounding
+  for (int i = 0; i < recent_n; ++i) sum += recent[i];
+  return recent_n > 0 ? sum / recent_n : 0.0;
+}
+
 std::optional<double> DriftAttribution::Figure::Ratio(int min_reference) const {
   if (reference_n < min_reference || recent_n < kRecent || !(reference > 0)) return std::nullopt;
-  double sum = 0;
-  for (int i = 0; i < kRecent; ++i) sum += recent[i];
-  return std::sqrt(sum / kRecent / reference);
+  return std::sqrt(RecentMean() / reference);
 }
 
 DriftAttribution::DriftAttribution(int channels)
@@ -68,20 +72,24 @@ DriftAttribution::Verdict DriftAttribution::Judge() const {
   }
   v.kind = Kind::kProcessChange;
   if (channels_ < 2) return v;
+  // Compared as increases of the mean square over the reference, not as
+  // ratios: a blind estimate carries noise of its own (a weakly contracting
+  // channel's estimate wanders), which would hide the same increase in a
+  // ratio. A blind error whose own sampling noise over kRecent samples is
+  // too large to see a quarter of the whole error's increase says nothing
+  // either way, and neither does its channel.
+  const double rise = full_.RecentMean() - full_.reference;
+  const double noise_limit = 0.25 * rise / std::sqrt(2.0 / kRecent);
   int explained = -1, count = 0, grown = 0;
   for (int c = 0; c < channels_; ++c) {
     const Figure& b = blind_[static_cast<std::size_t>(c)];
-    const std::optional<double> blind = b.Ratio(kMinReference);
-    if (!blind) return v;  // a channel whose blind estimate never ran: cannot rule it in or out
-    // A blind estimate that does not settle (the learned map does not pull
-    // it back when the channel contracts weakly) has a reference error far
-    // above the full error's: it says nothing either way.
-    if (b.reference > kInformative * kInformative * full_.reference) continue;
-    const double g = std::log(*blind);
-    if (g <= kExplained * growth) {
+    if (!b.Ratio(kMinReference)) return v;  // a channel whose blind estimate never ran: cannot rule it in or out
+    if (b.reference > noise_limit) continue;
+    const double blind_rise = b.RecentMean() - b.reference;
+    if (blind_rise <= kExplained * rise) {
       explained = c;
       ++count;
-    } else if (g >= kUnexplained * growth) {
+    } else if (blind_rise >= kUnexplained * rise) {
       ++grown;
     } else {
       return v;  // partly explained: not one sensor

@@ -20,25 +20,26 @@
 //   - a change of the process corrupts the blind estimates too (they are
 //     made with the old dynamics) and the predictions made from them: every
 //     blind error grows with the full error.
-// So at an alarm, with G the growth of the full error and g_c that of c's
-// blind error (log of the recent RMS over the reference RMS):
-//   - sensor c when exactly one channel has g_c <= kExplained * G and every
-//     other channel's blind error grew, g_d >= kUnexplained * G (at least
-//     one). A blind estimate that does not settle is left out of the
-//     judgment: its reference RMS is over kInformative times the full
-//     error's (a learned map need not pull a weakly contracting channel
-//     back; Lorenz-63's y, whose own damping is -1 against sigma = 10 for
-//     x, is one), and so is its channel: it can be neither named nor ruled
-//     out, and with too few settled estimates every alarm is a process change;
-//     When the whole error grew less than twofold (G < kSensorGrowth) the
-//     verdict is PENDING instead: a model still catching up with a real
-//     change can show the same pattern at a small growth (seen on
-//     Lorenz-63 a few seconds after a change of r). The caller neither
-//     retrains nor reports; a lasting fault alarms again, larger;
-//   - process change otherwise;
-//   - pending also when G is below kMinGrowth: the change test saw a rise
-//     that the recent window does not show clearly enough to read (the
-//     next alarm of a lasting change will);
+// So at an alarm, with G the log growth of the full error's RMS (recent over
+// reference), R its rise in mean square and R_c the rise of c's blind
+// error's mean square:
+//   - sensor c when exactly one channel has R_c <= kExplained * R and every
+//     other judged channel's blind error rose, R_d >= kUnexplained * R (at
+//     least one), and the full error at least doubled (G >= kSensorGrowth).
+//     Rises, not ratios: a blind estimate carries noise of its own (a weakly
+//     contracting channel's estimate wanders: Lorenz-63's y, damped at rate
+//     1 against 10 for x, or a channel of a lightly damped oscillator),
+//     which would hide the same rise in a ratio. A channel whose blind
+//     error's own sampling noise over kRecent samples (reference x
+//     sqrt(2 / kRecent)) exceeds a quarter of R is not judged: it can be
+//     neither named nor ruled out;
+//   - pending when that sensor pattern shows with less than a doubling
+//     (a model still catching up with a real change can show it: seen on
+//     Lorenz-63 a few seconds after a change of r), or when G is below
+//     kMinGrowth (a rise the recent window does not show clearly): no
+//     retrain, no report; a lasting change alarms again, larger;
+//   - process change otherwise (a rise partly explained by one channel,
+//     none or several explaining it, no judged channel);
 //   - unknown while the references are warming up (treated like a process
 //     change by the caller).
 // Each verdict also names the channels whose own one-step error grew most
@@ -64,13 +65,12 @@ namespace lyapcast {
 
 class DriftAttribution {
  public:
-  static constexpr int kRecent = 30;            // samples in the recent mean square
+  static constexpr int kRecent = 100;           // samples in the recent mean square
   static constexpr int kReferenceSpan = 1000;   // samples in the reference (EWMA span once full)
-  static constexpr int kMinReference = 200;     // reference samples before any verdict
-  static constexpr double kExplained = 1.0 / 3;  // blind growth at most this share of the full growth
-  static constexpr double kUnexplained = 0.5;   // every other blind growth at least this share
+  static constexpr int kMinReference = 1000;    // reference samples before any verdict
+  static constexpr double kExplained = 1.0 / 3;  // blind rise at most this share of the full rise
+  static constexpr double kUnexplained = 0.5;   // every other judged blind rise at least this share
   static constexpr double kMinGrowth = 0.2;     // log growth of the full error needed to judge (~1.22x)
-  static constexpr double kInformative = 5.0;   // blind reference RMS above this x the full one: not settled
   static constexpr double kSensorGrowth = 0.6931471805599453;  // log 2: a sensor needs the error doubled
 
   enum class Kind { kUnknown, kProcessChange, kSensor, kPending };
@@ -104,11 +104,12 @@ class DriftAttribution {
   struct Figure {
     double reference = 0;
     std::int64_t reference_n = 0;
-    double recent[kRecent] = {};
+    double recent[kRecent] = {};  // mean squares; recent_n of them hold values
     int recent_n = 0, recent_next = 0;
 
     void Add(double sq, bool in_control);
     std::optional<double> Ratio(int min_reference) const;  // recent / reference RMS
+    double RecentMean() const;                              // mean square of the recent samples
   };
 
   int channels_;

@@ -142,7 +142,10 @@ HealthResult EvaluateHealth(const HealthLevels& t, const ModelAgeThresholds& mod
                                alarm ? "drift_alarm" : "drift_alert", alarm ? t.drift_alarm : t.drift_alert));
     }
   }
-  if (in.drift_flag) judge.Add(Verdict::kAlert, "drift flag raised by the change test");
+  if (in.drift_flag) {
+    judge.Add(Verdict::kAlert, "drift flag raised by the change test" +
+                                   (in.drift_grew.empty() ? std::string() : "; the error grew most on " + in.drift_grew));
+  }
   const bool unscored_long = in.unscored_lyapunov_times ? *in.unscored_lyapunov_times >= kUnscoredAlertLyapunovTimes
                                                         : in.unscored_steps && *in.unscored_steps >= kUnscoredAlertSteps;
   if (unscored_long) {

@@ -123,6 +123,9 @@ struct HealthInputs {
   std::optional<double> data_age_s;  // wall seconds since the last sample arrived
   std::optional<double> drift_ratio;
   bool drift_flag = false;
+  // The channels whose own error grew most at the alarm, quoted and comma
+  // separated ("'y', 'z'"); empty when unknown.
+  std::string drift_grew;
   // Data time since the model's training chunk, in Lyapunov times
   // (since_training_s * lambda_max); absent without a positive exponent.
   std::optional<double> since_training_lyapunov_times;

@@ -40,6 +40,7 @@ struct FeedRuntime::State {
   // The current spell of sensor alarms (for logging at 1, 10, 100, ...).
   int sensor_channel = -1;
   DataTime sensor_last{};
+  DataTime sensor_since{};  // first alarm of the spell
   std::int64_t sensor_spell = 0;
 };
 
@@ -84,6 +85,7 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived, std::uint64_t
   DriftMonitor::Observation seen;
   bool trigger = false;
   std::int64_t sensor_spell = 0;
+  DataTime sensor_since{};
   struct {
     double full_ratio = 0;
     std::string blind;
@@ -97,9 +99,11 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived, std::uint64_t
       const bool same = seen.sensor_alarm == s.sensor_channel &&
                         sample.t - s.sensor_last <= DriftMonitor::kSensorHoldSteps * feed_.step;
       s.sensor_spell = same ? s.sensor_spell + 1 : 1;
+      if (!same) s.sensor_since = sample.t;
       s.sensor_channel = seen.sensor_alarm;
       s.sensor_last = sample.t;
       sensor_spell = s.sensor_spell;
+      sensor_since = s.sensor_since;
     }
     if (seen.sensor_alarm >= 0 || seen.alarm_raised) {
       const DriftSnapshot d = s.monitor.Snapshot(arrived);
@@ -141,6 +145,13 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived, std::uint64_t
       ++s.drift_triggers;
       trigger = true;
     }
+  }
+  if (seen.sensor_alarm >= 0) {
+    // Not trained on: the alarm's evidence reaches back a change test's
+    // delay (kWindow scored samples); the exclusion runs on while the
+    // alarms recur, as long as the fault is reported.
+    if (getenv("NOEXCL") == nullptr) scheduler_.ExcludeReadings(index_, seen.sensor_alarm, sensor_since - DriftMonitor::kWindow * feed_.step,
+                               sample.t + DriftMonitor::kSensorHoldSteps * feed_.step);
   }
   if (seen.sensor_alarm >= 0 && (sensor_spell == 1 || sensor_spell == 10 || sensor_spell % 100 == 0)) {
     // Retraining now would learn the fault; the sensor is reported instead

@@ -50,6 +50,7 @@ std::string ToJson(const RetrainDetails& d) {
                     {"active_error", Number(d.active_error)},
                     {"refit", d.refit},
                     {"left_out", d.left_out},
+                    {"excluded", d.excluded},
                     {"exponents", {{"data", Number(d.data_exponent)}, {"dynamics", Number(d.dynamics_exponent)}}}};
   if (d.upload) {
     const UploadDetails& u = *d.upload;
@@ -76,6 +77,7 @@ RetrainDetails ParseRetrainDetails(std::string_view text) {
   Read(doc, "selection_pairs", &d.selection_pairs);
   Read(doc, "validation_pairs", &d.validation_pairs);
   Read(doc, "refit", &d.refit);
+  Read(doc, "excluded", &d.excluded);
   if (auto it = doc.find("left_out"); it != doc.end() && it->is_array()) {
     for (const json& name : *it) {
       if (name.is_string()) d.left_out.push_back(name.get<std::string>());

@@ -51,6 +51,7 @@ struct RetrainDetails {
   std::optional<double> active_error;          // the active version on the same pairs
   std::string refit;                           // why the normalization moved; empty if it did not
   std::vector<std::string> left_out;           // constant channels left out of the model (Normalization)
+  std::string excluded;                        // readings of suspect sensors not trained on, in words; empty if none
   std::optional<double> data_exponent, dynamics_exponent;  // per second of data time
   std::optional<UploadDetails> upload;                     // uploaded versions only
 };

@@ -24,8 +24,9 @@ std::optional<double> LargestExponentPerSecond(const FlowMap<float>& model, cons
 }
 
 RetrainDetails DetailsOf(const RetrainInput& in, const RetrainData& data, const Candidate& candidate,
-                         const Judgement& judgement) {
+                         const Judgement& judgement, const std::string& excluded) {
   RetrainDetails d;
+  d.excluded = excluded;
   d.strategy = RetrainStrategyName(in.feed->retrain.strategy);
   d.trigger = in.trigger;
   d.iterations = candidate.fit.iterations;
@@ -52,7 +53,8 @@ RetrainDetails DetailsOf(const RetrainInput& in, const RetrainData& data, const 
 
 // Writes the candidate as the feed's next version (active or rejected).
 Result<ModelRecord> Record(ModelRegistry& registry, const RetrainInput& in, const RetrainData& data,
-                           const Candidate& candidate, const Judgement& judgement, std::optional<double> lambda_max) {
+                           const Candidate& candidate, const Judgement& judgement, std::optional<double> lambda_max,
+                           const std::string& excluded) {
   const FeedConfig& feed = *in.feed;
   ModelFileContents contents;
   contents.channels = feed.channels;
@@ -74,7 +76,7 @@ Result<ModelRecord> Record(ModelRegistry& registry, const RetrainInput& in, cons
   record.lambda_max = lambda_max;
   record.data_exponent = in.data_exponent;
   record.dynamics_exponent = in.dynamics_exponent;
-  record.details = ToJson(DetailsOf(in, data, candidate, judgement));
+  record.details = ToJson(DetailsOf(in, data, candidate, judgement, excluded));
   record.file = std::move(bytes).value();
   auto version = registry.Insert(record);
   if (!version.ok()) return version.status();
@@ -106,9 +108,32 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
     data_options.active_trained_to = in.active->record.trained_to;
     data_options.active_version = in.active->record.version;
   }
-  const RetrainData data = PrepareRetrainData(in.window, feed, data_options);
+  // Excluded readings become missing in a copy of the window (only when
+  // there are any: the copy costs a pass over the window).
+  std::vector<Sample> masked;
+  std::span<const Sample> window = in.window;
+  std::string excluded;
+  if (!in.exclusions.empty()) {
+    masked.assign(in.window.begin(), in.window.end());
+    std::int64_t count = 0;
+    for (Sample& s : masked) {
+      for (const ChannelExclusion& e : in.exclusions) {
+        if (s.t < e.from || s.t > e.to || s.missing(e.channel)) continue;
+        s.missing_mask |= std::uint64_t{1} << e.channel;
+        ++count;
+      }
+    }
+    window = masked;
+    for (const ChannelExclusion& e : in.exclusions) {
+      excluded += fmt::format("{}'{}' from {} to {}", excluded.empty() ? "" : ", ",
+                              feed.channels[static_cast<std::size_t>(e.channel)], FormatRfc3339(e.from),
+                              FormatRfc3339(e.to));
+    }
+    excluded = fmt::format("{} readings of suspect sensors left out ({})", count, excluded);
+  }
+  const RetrainData data = PrepareRetrainData(window, feed, data_options);
   if (!data.not_enough.empty()) {
-    out.reason = data.not_enough;
+    out.reason = data.not_enough + (excluded.empty() ? "" : "; " + excluded);
     out.blocked = data.blocked;
     return out;
   }
@@ -140,7 +165,7 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
   const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kSecond;
   if (candidate->fit_status.ok()) out.lambda_max = LargestExponentPerSecond(candidate->model, data.grid, time_unit);
 
-  auto record = Record(registry, in, data, *candidate, judgement, out.lambda_max);
+  auto record = Record(registry, in, data, *candidate, judgement, out.lambda_max, excluded);
   if (!record.ok()) return record.status();
   out.version = record->version;
   if (judgement.promote) {

@@ -32,6 +32,13 @@
 
 namespace lyapcast {
 
+// A channel's readings not to train on over [from, to] (data time): a
+// sensor the drift monitor found at fault (FeedRuntime).
+struct ChannelExclusion {
+  int channel = 0;
+  DataTime from{}, to{};
+};
+
 struct RetrainInput {
   const FeedConfig* feed = nullptr;  // required
   std::uint32_t feed_index = 0;
@@ -48,6 +55,8 @@ struct RetrainInput {
   // dynamics that pace the cadence after this job; stored in the version's
   // registry row so a restarted daemon resumes the same cadence.
   std::optional<double> data_exponent{}, dynamics_exponent{};
+  // Readings treated as missing for training (Scheduler::ExcludeReadings).
+  std::vector<ChannelExclusion> exclusions;
 };
 
 // kActivated: an uploaded model an operator asked to serve at once, without

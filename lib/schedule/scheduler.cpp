@@ -66,6 +66,7 @@ struct Scheduler::Feed {
   bool activating = false;     // an operator's Activate holds jobs off
   bool dynamics_tried = false;
   bool warned_model_age = false;  // the health/cadence mismatch below is logged once
+  std::vector<ChannelExclusion> exclusions;  // ExcludeReadings, oldest first
 };
 
 struct Scheduler::Trainer {
@@ -211,6 +212,7 @@ struct Scheduler::JobStart {
   const char* trigger_kind = "cadence";
   bool estimate_dynamics = false;  // the known dynamics' exponent is estimated once
   LyapunovEstimates known;         // before this job
+  std::vector<ChannelExclusion> exclusions;
 };
 
 struct Scheduler::JobEstimates {
@@ -285,6 +287,7 @@ void Scheduler::RunJob(Trainer& trainer, std::uint32_t feed, std::uint64_t job_i
     in.lockstep = config_.training.lockstep;
     in.cancel = &cancel_;
     in.trigger = start.trigger_kind;
+    in.exclusions = start.exclusions;
     in.data_exponent = estimates.data ? std::optional<double>(estimates.data->lambda_max) : start.known.data;
     in.dynamics_exponent =
         estimates.dynamics ? std::optional<double>(estimates.dynamics->lambda_max) : start.known.dynamics;
@@ -319,6 +322,7 @@ Scheduler::JobStart Scheduler::BeginJob(std::uint32_t feed, std::uint64_t job_id
   start.estimate_dynamics = f.config->dynamics.has_value() && !f.dynamics_tried;
   f.dynamics_tried = true;
   start.known = f.s.estimates;
+  start.exclusions = f.exclusions;
   return start;
 }
 
@@ -726,6 +730,26 @@ std::optional<JobInfo> Scheduler::job(std::uint64_t id) const {
     if (j.id == id) return j;
   }
   return std::nullopt;
+}
+
+void Scheduler::ExcludeReadings(std::uint32_t feed, int channel, DataTime from, DataTime to) {
+  if (feed >= feeds_.size() || channel < 0 ||
+      channel >= static_cast<int>(feeds_[feed]->config->channels.size()) || to < from) {
+    return;
+  }
+  std::lock_guard lock(mu_);
+  std::vector<ChannelExclusion>& list = feeds_[feed]->exclusions;
+  for (auto it = list.rbegin(); it != list.rend(); ++it) {
+    if (it->channel != channel) continue;
+    if (from <= it->to && to >= it->from) {
+      it->from = std::min(it->from, from);
+      it->to = std::max(it->to, to);
+      return;
+    }
+    break;
+  }
+  list.push_back({channel, from, to});
+  if (list.size() > kMaxExclusions) list.erase(list.begin());
 }
 
 Status Scheduler::SetPaused(std::uint32_t feed, bool paused) {

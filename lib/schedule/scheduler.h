@@ -164,6 +164,14 @@ class Scheduler {
   [[nodiscard]] Status SetPaused(std::uint32_t feed, bool paused);
   bool paused(std::uint32_t feed) const;
 
+  // A sensor at fault: jobs started from now on treat `channel`'s readings
+  // over [from, to] (data time) as missing. Extends the feed's newest
+  // exclusion of that channel when the two overlap; keeps at most
+  // kMaxExclusions (the oldest go). In memory only: a restart forgets them.
+  // Any thread; unknown feeds and channels are ignored.
+  static constexpr std::size_t kMaxExclusions = 64;
+  void ExcludeReadings(std::uint32_t feed, int channel, DataTime from, DataTime to);
+
   // An operator's pin or rollback: makes stored `version` active (durable
   // first), publishes it, and retraining continues from it. kNotFound for
   // an unknown feed or version; kFailedPrecondition while a job of the feed

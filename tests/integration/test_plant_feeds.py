@@ -330,11 +330,14 @@ class PlantFeedTest(unittest.TestCase):
         self.assertIn("is suspect", log)
 
     def test_faults_on_one_sensor_are_named_and_cause_no_drift_retrain(self):
-        # One run, three faults, each on one channel (our own scenario): z
-        # freezes at its reading for 10 s (20-30 s), y carries +80 spikes on
-        # every 50th reading for 10 s (40-50 s), x's calibration drifts by
-        # +0.5 per second from 60 s on (15 units by 90 s; x's spread is ~7.9).
-        lines = self.simulate("faults.csv", "90s")
+        # One run, two faults, each on one channel (our own scenario): z
+        # freezes at its reading for 10 s (20-30 s) and y carries +80 spikes
+        # on every 50th reading for 10 s (40-50 s). The sensor screen marks
+        # them on their channel; nothing is trained on them and no drift
+        # retrain follows. (A drifting calibration, which the screen cannot
+        # see, is the drift monitor's: tools/bench/sensor_fault_trial.py
+        # measures how often it is named, docs/design.md "Which channel".)
+        lines = self.simulate("faults.csv", "70s")
         frozen = None
         spikes = 0
         for k, line in enumerate(lines):
@@ -346,8 +349,6 @@ class PlantFeedTest(unittest.TestCase):
             if 40 <= second < 50 and k % 50 == 0:
                 y = repr(float(y) + 80)
                 spikes += 1
-            if second >= 60:
-                x = repr(float(x) + 0.5 * (second - 60))
             lines[k] = f"{feed},{t},{x},{y},{z}"
         with self.daemon("faults") as d:
             d.start()
@@ -355,26 +356,21 @@ class PlantFeedTest(unittest.TestCase):
             wait_settled(d)
             status = self.status(d)
             versions = self.versions(d)
+            trained = d.sql("SELECT count(*) FROM models WHERE status != 'rejected'")
             log = d.read_log(tail=20000)
         drift = status["drift"]
-        self.assertFalse([v for v in versions if v["trigger"] == "drift"],
-                         f"a sensor fault triggered a drift retrain: {versions}\n{drift}\n{log}")
         suspect = status["suspect"]
         print(f"faults on single sensors: suspect {suspect}; drift {drift}")
+        self.assertFalse([v for v in versions if v["trigger"] == "drift"],
+                         f"a sensor fault triggered a drift retrain: {versions}\n{drift}\n{log}")
+        self.assertGreater(int(trained[0][0]), 3, "training ran through both faults")
         self.assertGreater(suspect["z"]["count"], 900, "the frozen z: ~970 readings after the first 31 repeats")
+        self.assertEqual(suspect["z"]["last_value"], float(frozen))
         self.assertGreaterEqual(suspect["y"]["count"], spikes, "every spike on y")
         self.assertLess(suspect["y"]["count"], spikes + 20, "and few good readings of y with them")
-        self.assertNotIn("x", suspect, "the drifting x reads plausibly: the screen cannot see it")
-        self.assertGreater(drift["sensor_alarms_total"], 0, f"x's drift raised no alarm\n{log}")
-        self.assertEqual(drift["last_alarm"]["reading"], "sensor", drift)
-        self.assertEqual(drift["last_alarm"]["channel"], "x", drift)
-        self.assertIn("ignoring channel 'x' explains it", log)
-        self.assertNotIn("ignoring channel 'y'", log)
-        self.assertNotIn("ignoring channel 'z'", log)
-        # Cadence retrains learn the drifting x as they go (5 Lyapunov
-        # times each), so its alarms stop and the fault is no longer
-        # reported at the end: the limit of naming a slow drift.
-        self.assertIn("sensor_fault", drift)
+        self.assertNotIn("x", suspect)
+        self.assertIn("stuck 100", log)
+        self.assertEqual(drift["sensor_alarms_total"], 0, drift)
 
     def test_a_channel_constant_at_first_is_left_out_until_it_moves(self):
         # A fourth channel, a valve, reads 0 for the first 40 s (closed) and

@@ -1,7 +1,7 @@
 // Attribution of a drift alarm (monitor/drift_attribution.h) through the
 // drift monitor, on a coupled linear process whose map is known exactly:
 //
-//     x' = x + A x + noise,  A = [[-0.1, 0.3], [-0.3, -0.1]]  (a damped rotation, |eigenvalues of I + A| = 0.95)
+//     x' = x + A x + noise,  A = [[-0.5, 0.5], [-0.5, -0.5]]  (a damped rotation, |eigenvalues of I + A| = 0.71)
 //
 // driven by Gaussian noise (an Ornstein-Uhlenbeck-like process). The model is
 // a FlowMap<float> built to be that map: N(x) = W2 tanh(W1 x) with W1 = eps I
@@ -25,9 +25,10 @@ constexpr Micros kStep{100'000};  // 0.1 s
 constexpr DataTime kT0 = DataTimeFromMicros(1'733'097'600'000'000);     // 2024-12-02T00:00:00Z
 constexpr WallTime kWall0 = WallTimeFromMicros(1'733'100'000'000'000);
 
-Eigen::Matrix2d Rotation(double b_from_a) {
+// A with b's equation b' = b + b_from_a a + b_self b.
+Eigen::Matrix2d Rotation(double b_from_a, double b_self = -0.5) {
   Eigen::Matrix2d a;
-  a << -0.1, 0.3, b_from_a, -0.1;
+  a << -0.5, 0.5, b_from_a, b_self;
   return a;
 }
 
@@ -69,18 +70,18 @@ struct Outcome {
   DriftSnapshot last;
 };
 
-// 600 samples of the model's own process, then `after` samples from `next`.
+// 1200 samples of the model's own process, then `after` samples from `next`.
 template <typename Next>
 Outcome RunScenario(int after, Next next) {
   DriftMonitorOptions o;
   o.channels = 2;
   o.step = kStep;
   DriftMonitor m(o);
-  EXPECT_TRUE(m.SetModel(LinearModel(Rotation(-0.3)), 1, 0.1, kT0 - kStep, kWall0).ok());
+  EXPECT_TRUE(m.SetModel(LinearModel(Rotation(-0.5)), 1, 0.1, kT0 - kStep, kWall0).ok());
   Process p(2024);
   Outcome out;
-  for (int i = 0; i < 600; ++i) {
-    const Sample smp = p.Next(Rotation(-0.3));
+  for (int i = 0; i < 1200; ++i) {
+    const Sample smp = p.Next(Rotation(-0.5));
     const auto seen = m.Observe(smp, kWall0);
     EXPECT_FALSE(seen.alarm_raised || seen.sensor_alarm >= 0) << "in control, sample " << i;
   }
@@ -100,10 +101,11 @@ Outcome RunScenario(int after, Next next) {
 }
 
 TEST(DriftAttribution, ABiasedSensorIsNamedAndRaisesNoDriftFlag) {
-  // Sensor b reads 1.0 high: b's own one-step error barely changes (its own
-  // term is -0.1 x bias), a's grows (a reads b through A[0][1] = 0.3); the
-  // whole error grows about 2.4x.
-  const Outcome o = RunScenario(300, [](Process& p, int) { return p.Next(Rotation(-0.3), {0.0, 1.0}); });
+  // Sensor b reads 1.0 high: the predictions of a (which reads b through
+  // A[0][1] = 0.5) and of b itself (its own term -0.5 x bias) are both off,
+  // so both channels' own errors grow: which channel grew does not say
+  // which sensor failed. Ignoring b explains it; ignoring a does not.
+  const Outcome o = RunScenario(300, [](Process& p, int) { return p.Next(Rotation(-0.5), {0.0, 1.0}); });
   std::printf("bias on b: sensor alarm after %d samples, process alarm %d\n", o.sensor_alarm, o.process_alarm);
   EXPECT_EQ(o.process_alarm, -1);
   ASSERT_GE(o.sensor_alarm, 0);
@@ -113,15 +115,14 @@ TEST(DriftAttribution, ABiasedSensorIsNamedAndRaisesNoDriftFlag) {
   EXPECT_EQ(o.last.sensor_fault->channel, 1);
   ASSERT_TRUE(o.last.last_alarm.has_value());
   EXPECT_EQ(o.last.last_alarm->kind, DriftAttribution::Kind::kSensor);
-  // The channel whose own error grew is a, not the faulty b: why the
-  // blind estimates are needed.
-  EXPECT_EQ(o.last.last_alarm->grew, std::vector<int>{0});
+  EXPECT_EQ(o.last.last_alarm->grew, (std::vector<int>{0, 1}));
 }
 
 TEST(DriftAttribution, AChangeInOneEquationIsAProcessChange) {
-  // Only b's equation changes (A[1][0] -0.3 -> -0.5): only b's own one-step
+  // Only b's equation changes (A[1][0] -0.5 -> -1.0, A[1][1] -0.5 -> -0.2;
+  // |eigenvalues of I + A| 0.95, still stable): only b's own one-step
   // error grows, yet the model is wrong, not the sensor.
-  const Outcome o = RunScenario(300, [](Process& p, int) { return p.Next(Rotation(-0.5)); });
+  const Outcome o = RunScenario(300, [](Process& p, int) { return p.Next(Rotation(-1.0, -0.2)); });
   std::printf("change of b's equation: process alarm after %d samples, sensor alarm %d\n", o.process_alarm,
               o.sensor_alarm);
   EXPECT_EQ(o.sensor_alarm, -1);
@@ -135,24 +136,22 @@ TEST(DriftAttribution, AChangeInOneEquationIsAProcessChange) {
 
 TEST(DriftAttribution, ASlowDriftOfOneSensorIsNamed) {
   // Calibration drift: sensor a's offset ramps by 0.004 per sample (2.0
-  // after 500 samples).
-  const Outcome o = RunScenario(500, [](Process& p, int i) { return p.Next(Rotation(-0.3), {0.004 * i, 0.0}); });
+  // after 500 samples). Early alarms, below a doubling, are pending.
+  const Outcome o = RunScenario(500, [](Process& p, int i) { return p.Next(Rotation(-0.5), {0.004 * i, 0.0}); });
   std::printf("drift of a: sensor alarm after %d samples, process alarm %d\n", o.sensor_alarm, o.process_alarm);
   EXPECT_EQ(o.process_alarm, -1);
   ASSERT_GE(o.sensor_alarm, 0);
   EXPECT_EQ(o.sensor_channel, 0);
 }
 
-TEST(DriftAttribution, ASmallSensorLikeGrowthIsPending) {
-  // Sensor b reads 0.5 high: the same pattern, but the whole error grows
-  // only about 1.5x: each alarm is pending; nothing is flagged or reported.
-  const Outcome o = RunScenario(300, [](Process& p, int) { return p.Next(Rotation(-0.3), {0.0, 0.5}); });
-  EXPECT_EQ(o.process_alarm, -1);
+TEST(DriftAttribution, ASmallBiasIsNotNamedOnWeakEvidence) {
+  // Sensor b reads 0.25 high: the whole error grows only about 1.35x and
+  // the blind errors' own noise hides whether ignoring b explains it: the
+  // alarm is read as a process change (a retrain), as without attribution.
+  const Outcome o = RunScenario(300, [](Process& p, int) { return p.Next(Rotation(-0.5), {0.0, 0.25}); });
   EXPECT_EQ(o.sensor_alarm, -1);
-  EXPECT_FALSE(o.last.drift_flag);
   ASSERT_TRUE(o.last.last_alarm.has_value()) << "the change test did alarm";
-  EXPECT_EQ(o.last.last_alarm->kind, DriftAttribution::Kind::kPending);
-  EXPECT_EQ(o.last.last_alarm->channel, 1);
+  EXPECT_EQ(o.last.last_alarm->kind, DriftAttribution::Kind::kProcessChange);
 }
 
 TEST(DriftAttribution, JudgeNeedsWarmReferences) {
@@ -172,23 +171,34 @@ TEST(DriftAttribution, JudgeNeedsWarmReferences) {
 
 TEST(DriftAttribution, OneExplainedChannelIsASensorTwoAreNot) {
   const double own[3] = {1, 1, 1};
-  const auto verdict = [&](std::vector<double> blind_before, std::vector<double> blind_after) {
+  const auto verdict = [&](double full_after, std::vector<double> blind_before, std::vector<double> blind_after) {
     DriftAttribution a(3);
     for (int i = 0; i < DriftAttribution::kMinReference; ++i) a.Add(1, own, blind_before.data(), true);
-    for (int i = 0; i < DriftAttribution::kRecent; ++i) a.Add(16, own, blind_after.data(), false);
+    for (int i = 0; i < DriftAttribution::kRecent; ++i) a.Add(full_after, own, blind_after.data(), false);
     return a.Judge();
   };
   const std::vector<double> ones{1.0, 1.0, 1.0};
-  // Full RMS ratio 4 (log 1.39): a blind growth <= 0.46 explains it, >= 0.69 does not.
-  DriftAttribution::Verdict v = verdict(ones, {1.0, 16.0, 16.0});
+  // The whole error's mean square rises 1 -> 16 (R = 15, RMS 4x): a blind
+  // rise <= 5 explains it, >= 7.5 does not.
+  DriftAttribution::Verdict v = verdict(16, ones, {1.0, 16.0, 16.0});
   EXPECT_EQ(v.kind, DriftAttribution::Kind::kSensor);
   EXPECT_EQ(v.channel, 0);
-  EXPECT_EQ(verdict(ones, {1.0, 1.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange) << "two explain it";
-  EXPECT_EQ(verdict(ones, {1.0, 3.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange)
+  EXPECT_EQ(verdict(16, ones, {1.0, 1.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange) << "two explain it";
+  EXPECT_EQ(verdict(16, ones, {1.0, 7.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange)
       << "one partly explains it";
   const double nan = std::nan("");
-  EXPECT_EQ(verdict({nan, 1.0, 1.0}, {nan, 16.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange)
-      << "a channel whose blind estimate never settled cannot be ruled in or out";
+  EXPECT_EQ(verdict(16, {nan, 1.0, 1.0}, {nan, 16.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange)
+      << "a channel whose blind estimate never ran cannot be ruled in or out";
+  // A blind error far noisier than the rise (mean square 100 against R =
+  // 15: its sampling noise over 100 samples is ~14) is not judged: channel
+  // 0 is not named, and no other explains the rise.
+  EXPECT_EQ(verdict(16, {100.0, 1.0, 1.0}, {100.0, 16.0, 16.0}).kind, DriftAttribution::Kind::kProcessChange);
+  // The sensor pattern below a doubling (RMS 1.73x), and a rise too small
+  // to read (RMS 1.18x): pending.
+  v = verdict(3, ones, {1.0, 3.0, 3.0});
+  EXPECT_EQ(v.kind, DriftAttribution::Kind::kPending);
+  EXPECT_EQ(v.channel, 0);
+  EXPECT_EQ(verdict(1.4, ones, {1.0, 1.4, 1.4}).kind, DriftAttribution::Kind::kPending);
 }
 
 }  // namespace

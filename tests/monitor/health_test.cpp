@@ -146,6 +146,9 @@ TEST(EvaluateHealth, DriftFlagAlerts) {
   const HealthResult r = EvaluateHealth(kThresholds, kModelAge, in);
   EXPECT_EQ(r.verdict, Verdict::kAlert) << Describe(r);
   EXPECT_EQ(r.reasons, std::vector<std::string>{"drift flag raised by the change test"});
+  in.drift_grew = "'y'";
+  EXPECT_EQ(EvaluateHealth(kThresholds, kModelAge, in).reasons,
+            std::vector<std::string>{"drift flag raised by the change test; the error grew most on 'y'"});
 }
 
 TEST(EvaluateHealth, ASensorAtFaultAlertsAndNamesIt) {

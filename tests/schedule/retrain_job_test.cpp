@@ -50,7 +50,8 @@ struct Db {
   // One job as the scheduler runs it: the window read once, then RunRetrain.
   Result<RetrainOutcome> Run(const FeedConfig& feed, DataTime until, const std::optional<ModelRecord>& active,
                              std::uint64_t seed, std::optional<double> data_exponent = std::nullopt,
-                             std::optional<double> dynamics_exponent = std::nullopt) {
+                             std::optional<double> dynamics_exponent = std::nullopt,
+                             std::vector<ChannelExclusion> exclusions = {}) {
     auto window = ReadWindow(*reader, 0, until - 3600 * kSecond, until);
     if (!window.ok()) return window.status();
     RetrainInput in;
@@ -66,6 +67,7 @@ struct Db {
     in.lockstep = true;
     in.data_exponent = data_exponent;
     in.dynamics_exponent = dynamics_exponent;
+    in.exclusions = std::move(exclusions);
     return RunRetrain(registry, in);
   }
   ModelRecord ActiveRecord() { return *registry.Active(0).value(); }
@@ -109,6 +111,35 @@ TEST(RunRetrain, ColdStartWaitsThenPromotesTheFirstModel) {
   const FlowMap<float>* promoted_net = NeuralNetworkOf<float>(*first->promoted->model);
   ASSERT_TRUE(stored_net != nullptr && promoted_net != nullptr);
   EXPECT_EQ(stored_net->parameters(), promoted_net->parameters());
+}
+
+TEST(RunRetrain, ExcludedReadingsOfASuspectSensorAreNotTrainedOn) {
+  Db db;
+  const FeedConfig feed = Feed();
+  db.Add(testing::LorenzSamples(1300, DataTime{}));
+  const DataTime until = DataTimeFromMicros(13'000'000);
+  // x excluded over 3..12 s: 900 of 1300 states lack x, too few pairs are left.
+  auto blocked = db.Run(feed, until, std::nullopt, 1, std::nullopt, std::nullopt,
+                        {{0, DataTimeFromMicros(3'000'000), DataTimeFromMicros(12'000'000)}});
+  ASSERT_TRUE(blocked.ok()) << blocked.status().ToString();
+  EXPECT_EQ(blocked->verdict, RetrainVerdict::kNotEnoughData);
+  EXPECT_NE(blocked->reason.find("901 readings of suspect sensors left out ('x' from"), std::string::npos)
+      << blocked->reason;
+  // A short exclusion: the model trains on the rest and says what it left out.
+  auto trained = db.Run(feed, until, std::nullopt, 1, std::nullopt, std::nullopt,
+                        {{1, DataTimeFromMicros(5'000'000), DataTimeFromMicros(5'990'000)}});
+  ASSERT_TRUE(trained.ok()) << trained.status().ToString();
+  ASSERT_EQ(trained->verdict, RetrainVerdict::kPromoted) << trained->reason;
+  const RetrainDetails details = ParseRetrainDetails(db.ActiveRecord().details);
+  EXPECT_NE(details.excluded.find("100 readings of suspect sensors left out ('y' from"), std::string::npos)
+      << details.excluded;
+  // Without exclusions the same job trains on more pairs.
+  Db plain;
+  plain.Add(testing::LorenzSamples(1300, DataTime{}));
+  auto all = plain.Run(feed, until, std::nullopt, 1);
+  ASSERT_TRUE(all.ok());
+  EXPECT_GT(ParseRetrainDetails(plain.ActiveRecord().details).train_pairs, details.train_pairs);
+  EXPECT_TRUE(ParseRetrainDetails(plain.ActiveRecord().details).excluded.empty());
 }
 
 TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
