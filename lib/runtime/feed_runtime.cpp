@@ -150,7 +150,7 @@ void FeedRuntime::OnSample(const Sample& sample, WallTime arrived, std::uint64_t
     // Not trained on: the alarm's evidence reaches back a change test's
     // delay (kWindow scored samples); the exclusion runs on while the
     // alarms recur, as long as the fault is reported.
-    if (getenv("NOEXCL") == nullptr) scheduler_.ExcludeReadings(index_, seen.sensor_alarm, sensor_since - DriftMonitor::kWindow * feed_.step,
+    scheduler_.ExcludeReadings(index_, seen.sensor_alarm, sensor_since - DriftMonitor::kWindow * feed_.step,
                                sample.t + DriftMonitor::kSensorHoldSteps * feed_.step);
   }
   if (seen.sensor_alarm >= 0 && (sensor_spell == 1 || sensor_spell == 10 || sensor_spell % 100 == 0)) {
