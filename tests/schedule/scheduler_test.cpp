@@ -8,6 +8,7 @@
 // continues from it, and a restart resumes the cadence from the newest
 // trained version.
 // Data: Lorenz-63 (constants of docs/references.md "Systems") from the project's RK4.
+#include "schedule/retrain_details.h"
 #include "schedule/scheduler.h"
 
 #include <gtest/gtest.h>
@@ -297,6 +298,27 @@ TEST(Scheduler, PausedFeedsDoNotRetrainAndResumeCatchesUp) {
   for (int i = 0; i < 4000 && !rig.scheduler().active(0); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(5));
   ASSERT_NE(rig.scheduler().active(0), nullptr) << "resuming ran the due retrain";
   EXPECT_TRUE(rig.Logged("paused: no retraining until resumed"));
+}
+
+TEST(Scheduler, ReadingsOfASensorAtFaultAreLeftOutOfLaterJobs) {
+  Config config = LorenzConfig();
+  testing::TempDir dir("lyapcast-scheduler-test");
+  Rig rig(config, dir.path() / "w.db", /*lockstep=*/true, 4096);
+  // Two overlapping spells of channel y merge into one; x gets its own;
+  // nonsense (unknown channel, reversed interval) is ignored.
+  rig.scheduler().ExcludeReadings(0, 1, DataTimeFromMicros(2'000'000), DataTimeFromMicros(3'000'000));
+  rig.scheduler().ExcludeReadings(0, 1, DataTimeFromMicros(2'500'000), DataTimeFromMicros(4'000'000));
+  rig.scheduler().ExcludeReadings(0, 0, DataTimeFromMicros(5'000'000), DataTimeFromMicros(5'500'000));
+  rig.scheduler().ExcludeReadings(0, 7, DataTimeFromMicros(0), DataTimeFromMicros(1'000'000));
+  rig.scheduler().ExcludeReadings(0, 2, DataTimeFromMicros(1'000'000), DataTimeFromMicros(0));
+  rig.Send(testing::LorenzSamples(1200, DataTime{}), 100);
+  rig.Drain();
+  ASSERT_NE(rig.scheduler().active(0), nullptr);
+  const RetrainDetails details = ParseRetrainDetails(rig.scheduler().active(0)->record.details);
+  // 10 ms samples: y over [2 s, 4 s] is 201 readings, x over [5 s, 5.5 s] 51.
+  EXPECT_EQ(details.excluded,
+            "252 readings of suspect sensors left out ('y' from 1970-01-01T00:00:02.000000Z to "
+            "1970-01-01T00:00:04.000000Z, 'x' from 1970-01-01T00:00:05.000000Z to 1970-01-01T00:00:05.500000Z)");
 }
 
 TEST(Scheduler, AnOperatorActivatesAnOlderVersionAndRetrainingContinuesFromIt) {
