@@ -294,7 +294,9 @@ TEST(FeedRuntime, StartEstimateCarriesWithinHoldAndPredictsTheRestFromTheNewestC
   ASSERT_TRUE(e.has_value());
   EXPECT_TRUE(e->estimated.empty()) << "a complete newest sample needs no estimate";
   EXPECT_EQ(e->model, nullptr);
-  const auto g = [&](int k) {
+  // G^k(x0), evaluated into a vector of its own (a column of the rollout
+  // would refer into the rollout, a temporary).
+  const auto g = [&](int k) -> Eigen::VectorXd {
     const Eigen::VectorXd start = Eigen::Map<const Eigen::VectorXd>(x0.values.data(), 3);
     return Rollout(*model->model, start, k).states.col(k - 1);
   };
