@@ -7,6 +7,7 @@ import math
 import os
 import shutil
 import subprocess
+import sys
 import tempfile
 import threading
 import unittest
@@ -263,10 +264,34 @@ class SendTest(unittest.TestCase):
 
 
 def sqlite_rows(db, query):
-    """Runs a query with the sqlite3 shell (read-only); returns (exit code, rows, stderr)."""
-    out = subprocess.run([SQLITE3, "-readonly", "-separator", "|", db, query], capture_output=True, text=True,
-                         timeout=60)
-    return out.returncode, [line.split("|") for line in out.stdout.splitlines()], out.stderr
+    """Runs a query with the sqlite3 shell (read-only); returns (exit code, rows, stderr).
+
+    Under full CI load the shell has been seen to stall for the whole
+    timeout on a finished backup file (cause not yet known; alone it takes
+    milliseconds). Then what the process waits on and the files beside the
+    database are printed, and the query runs once more."""
+    for attempt in (1, 2):
+        proc = subprocess.Popen([SQLITE3, "-readonly", "-separator", "|", db, query], stdin=subprocess.DEVNULL,
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        try:
+            stdout, stderr = proc.communicate(timeout=60)
+            return proc.returncode, [line.split("|") for line in stdout.splitlines()], stderr
+        except subprocess.TimeoutExpired:
+            diagnosis = {}
+            for name in ("wchan", "stack", "status"):
+                try:
+                    with open(f"/proc/{proc.pid}/{name}") as f:
+                        diagnosis[name] = f.read().strip()[:2000]
+                except OSError as e:
+                    diagnosis[name] = str(e)
+            folder = os.path.dirname(db)
+            listing = sorted((n, os.path.getsize(os.path.join(folder, n))) for n in os.listdir(folder))
+            proc.kill()
+            proc.communicate()
+            print(f"sqlite3 stalled 60 s on {db} ({query}), attempt {attempt}: {diagnosis}; files {listing}",
+                  file=sys.stderr)
+            if attempt == 2:
+                raise
 
 
 def sample_counts(db):
