@@ -47,6 +47,7 @@ Status DriftMonitor::SetModel(std::shared_ptr<const ForecastModel> model, std::i
   }
   model_ = std::move(model);
   scratch_ = model_ != nullptr ? model_->NewScratch() : nullptr;
+  blind_scratch_ = model_ != nullptr ? model_->NewScratch() : nullptr;
   version_ = version;
   validation_error_ = validation_error;
   trained_to_ = trained_to;
@@ -213,7 +214,7 @@ void DriftMonitor::RunBlind(std::int64_t i, DataTime at) {
       blind_x_(c, c) = parent->blind[static_cast<std::size_t>(c)];
     }
   }
-  model_->StepBatch(blind_x_, &blind_y_, *scratch_);
+  model_->StepBatch(blind_x_, &blind_y_, *blind_scratch_);
   const Eigen::VectorXd& scale = model_->error_scale();
   for (int c = 0; c < channels_; ++c) {
     const auto uc = static_cast<std::size_t>(c);

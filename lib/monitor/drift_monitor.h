@@ -318,6 +318,9 @@ class DriftMonitor {
   DriftAttribution attribution_;
   std::vector<double> own_sq_, blind_sq_;
   Eigen::MatrixXd blind_x_, blind_y_;
+  // Its own scratch: a model's buffers are kept for one batch size, and the
+  // blind batch (channels columns) alternates with Step's single column.
+  std::unique_ptr<ModelScratch> blind_scratch_;
   std::optional<DriftSnapshot::AlarmReading> last_alarm_;
   std::optional<DriftSnapshot::SensorFault> sensor_fault_;
   std::int64_t sensor_alarms_total_ = 0;
