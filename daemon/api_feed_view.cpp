@@ -9,6 +9,20 @@
 #include "store/sample_writer.h"
 
 namespace lyapcast::api {
+namespace {
+
+// "'y', 'z'": the channels whose own error grew most at the newest alarm
+// (empty without one), for the health reasons.
+std::string GrewAtLastAlarm(const FeedConfig& f, const DriftSnapshot& d) {
+  std::string out;
+  if (!d.last_alarm) return out;
+  for (int k : d.last_alarm->grew) {
+    out += fmt::format("{}'{}'", out.empty() ? "" : ", ", f.channels[static_cast<std::size_t>(k)]);
+  }
+  return out;
+}
+
+}  // namespace
 
 FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
   FeedView v;
@@ -38,12 +52,8 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
   in.data_age_s = v.drift.data_age_s;
   in.drift_ratio = v.drift.drift_ratio;
   in.drift_flag = v.drift.drift_flag;
-  if (v.drift.drift_flag && v.drift.last_alarm) {
-    for (int k : v.drift.last_alarm->grew) {
-      in.drift_grew += fmt::format("{}'{}'", in.drift_grew.empty() ? "" : ", ",
-                                   v.config->channels[static_cast<std::size_t>(k)]);
-    }
-  }
+  const std::string grew = GrewAtLastAlarm(*v.config, v.drift);
+  if (v.drift.drift_flag) in.drift_grew = grew;
   in.since_training_lyapunov_times = v.since_training_lyapunov_times;
   if (v.drift.unscored_s) {
     in.unscored_steps = *v.drift.unscored_s / Seconds(v.config->step);
@@ -62,12 +72,6 @@ FeedView ViewFeed(const ApiContext& c, std::uint32_t feed, WallTime wall_now) {
                                               sc.count, sc.last_value, FormatRfc3339(*sc.last)));
   }
   if (const auto& f = v.drift.sensor_fault) {
-    std::string grew;
-    if (v.drift.last_alarm) {
-      for (int k : v.drift.last_alarm->grew) {
-        grew += fmt::format("{}'{}'", grew.empty() ? "" : ", ", v.config->channels[static_cast<std::size_t>(k)]);
-      }
-    }
     in.sensor_fault = fmt::format(
         "'{}' since {}: the one-step error grew{}{} and predicting without '{}' explains it ({} alarm{}); no drift "
         "retrain",
