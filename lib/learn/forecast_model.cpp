@@ -73,6 +73,7 @@ NeuralFlowMap<T>::NeuralFlowMap(FlowMap<T> map, std::vector<ChannelRole> roles) 
   shape_.roles = roles.empty() ? AllStateRoles(shape_.channels) : std::move(roles);
   shape_.dt = map_.dt();
   error_scale_ = map_.stddev().template cast<double>();
+  training_mean_ = map_.mean().template cast<double>();
 }
 
 template <typename T>

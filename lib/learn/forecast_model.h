@@ -66,6 +66,10 @@ class ForecastModel {
   // Per-channel scale of normalized errors ((prediction - value) / scale):
   // the drift monitor's and the trainer's one-step error use it. All > 0.
   virtual const Eigen::VectorXd& error_scale() const = 0;
+  // The per-channel mean of the data the model was fitted on (its
+  // normalization centre): a state on its attractor's range, where a run
+  // starts when no measured state is at hand.
+  virtual const Eigen::VectorXd& training_mean() const = 0;
 
   virtual std::unique_ptr<ModelScratch> NewScratch() const = 0;
 
@@ -98,6 +102,7 @@ class NeuralFlowMap final : public ForecastModel {
   std::string_view family() const override { return "neural_flow_map"; }
   // The flow map's per-channel stddev() s, as double.
   const Eigen::VectorXd& error_scale() const override { return error_scale_; }
+  const Eigen::VectorXd& training_mean() const override { return training_mean_; }
   std::unique_ptr<ModelScratch> NewScratch() const override;
   void Step(const Eigen::VectorXd& x, Eigen::VectorXd* next, ModelScratch& scratch) const override;
   void StepBatch(const Eigen::MatrixXd& X, Eigen::MatrixXd* Y, ModelScratch& scratch) const override;
@@ -111,6 +116,7 @@ class NeuralFlowMap final : public ForecastModel {
   FlowMap<T> map_;
   ModelShape shape_;
   Eigen::VectorXd error_scale_;
+  Eigen::VectorXd training_mean_;
 };
 
 extern template class NeuralFlowMap<float>;

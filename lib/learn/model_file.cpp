@@ -20,6 +20,10 @@ namespace {
 
 constexpr std::uint8_t kActivationTanh = 0;
 constexpr std::uint8_t kActivationSilu = 1;
+constexpr std::uint8_t kFamilyNeural = 0;      // format version 3 family codes
+constexpr std::uint8_t kFamilyPolynomial = 1;
+
+using PolynomialPtr = std::shared_ptr<const PolynomialMap>;
 
 // ---- writing ---------------------------------------------------------------
 
@@ -59,6 +63,38 @@ Status CheckModel(const FlowMap<T>& map) {
   if (map.empty()) return Status::Invalid("the model is empty (no network)");
   if (!AllFinite(map.parameters())) return Status::Invalid("the model has non-finite weights or mu");
   return Status::Ok();
+}
+
+Status CheckModel(const PolynomialPtr& map) {
+  if (map == nullptr) return Status::Invalid("the model is empty (no polynomial map)");
+  return Status::Ok();  // PolynomialMap::Create checked its values
+}
+
+template <typename T>
+int ChannelsOf(const FlowMap<T>& map) {
+  return map.empty() ? 0 : map.channels();
+}
+int ChannelsOf(const PolynomialPtr& map) { return map == nullptr ? 0 : map->shape().channels; }
+
+void PutStepAndUnit(std::string* out, const ModelFileContents& contents) {
+  PutU64(out, static_cast<std::uint64_t>(contents.step_micros.count()));
+  PutU64(out, static_cast<std::uint64_t>(contents.time_unit_micros.count()));
+}
+
+// Version 3, family 1: everything up to the metadata.
+void PutPolynomial(std::string* out, const PolynomialMap& map, const ModelFileContents& contents) {
+  PutU8(out, kFamilyPolynomial);
+  PutU32(out, static_cast<std::uint32_t>(contents.channels.size()));
+  for (const std::string& name : contents.channels) PutStr(out, name);
+  PutU32(out, static_cast<std::uint32_t>(map.features().degree()));
+  PutU64(out, std::bit_cast<std::uint64_t>(map.shape().dt));
+  PutStepAndUnit(out, contents);
+  const Eigen::Index c = map.shape().channels;
+  PutValues(out, map.mean().data(), c);
+  PutValues(out, map.stddev().data(), c);
+  PutValues(out, map.increment_scale().data(), c);
+  PutU64(out, static_cast<std::uint64_t>(map.readout().size()));
+  PutValues(out, map.readout().data(), map.readout().size());
 }
 
 template <typename T>
@@ -168,6 +204,25 @@ struct Architecture {
   double dt = 0;
 };
 
+Status ReadChannelNames(Reader* r, std::uint64_t max_channels, std::vector<std::string>* out) {
+  const std::uint64_t c = r->Count(4, 4, "channel count");
+  if (!r->ok()) return r->error();
+  if (c < 1 || c > max_channels) {
+    return Status::Corruption(fmt::format("channel count {} is outside [1, {}]", c, max_channels));
+  }
+  std::set<std::string> seen;
+  for (std::uint64_t i = 0; i < c; ++i) {
+    std::string name = r->Str(fmt::format("name of channel {}", i));
+    if (!r->ok()) return r->error();
+    if (!IsValidChannelName(name)) {
+      return Status::Corruption(fmt::format("channel {} has an invalid name ({} bytes)", i, name.size()));
+    }
+    if (!seen.insert(name).second) return Status::Corruption(fmt::format("channel name '{}' repeats", name));
+    out->push_back(std::move(name));
+  }
+  return Status::Ok();
+}
+
 Status ReadArchitecture(Reader* r, Architecture* a) {
   const std::uint8_t scalar = r->U8("scalar type");
   const std::uint8_t activation = r->U8("activation");
@@ -180,21 +235,7 @@ Status ReadArchitecture(Reader* r, Architecture* a) {
   }
   a->scalar_bytes = scalar;
   a->activation = activation == kActivationTanh ? Activation::kTanh : Activation::kSilu;
-  const std::uint64_t c = r->Count(4, 4, "channel count");
-  if (!r->ok()) return r->error();
-  if (c < 1 || c > static_cast<std::uint64_t>(kMaxMlpWidth)) {
-    return Status::Corruption(fmt::format("channel count {} is outside [1, {}]", c, kMaxMlpWidth));
-  }
-  std::set<std::string> seen;
-  for (std::uint64_t i = 0; i < c; ++i) {
-    std::string name = r->Str(fmt::format("name of channel {}", i));
-    if (!r->ok()) return r->error();
-    if (!IsValidChannelName(name)) {
-      return Status::Corruption(fmt::format("channel {} has an invalid name ({} bytes)", i, name.size()));
-    }
-    if (!seen.insert(name).second) return Status::Corruption(fmt::format("channel name '{}' repeats", name));
-    a->channels.push_back(std::move(name));
-  }
+  if (Status st = ReadChannelNames(r, static_cast<std::uint64_t>(kMaxMlpWidth), &a->channels); !st.ok()) return st;
   const std::uint64_t h = r->Count(4, 4, "hidden layer count");
   if (!r->ok()) return r->error();
   if (h + 1 > static_cast<std::uint64_t>(kMaxMlpLayers)) {
@@ -257,8 +298,7 @@ Status ReadModel(Reader* r, const Architecture& a, FlowMap<T>* out, ModelFilePro
 }
 
 Status CheckContents(const ModelFileContents& contents) {
-  const int c = std::visit(
-      [](const auto& map) { return map.empty() ? 0 : map.channels(); }, contents.model);
+  const int c = std::visit([](const auto& map) { return ChannelsOf(map); }, contents.model);
   if (c == 0) return Status::Invalid("the model is empty (no network)");
   if (static_cast<int>(contents.channels.size()) != c) {
     return Status::Invalid(fmt::format("{} channel names for a model with {} channels", contents.channels.size(), c));
@@ -281,7 +321,7 @@ Status CheckContents(const ModelFileContents& contents) {
     }
   }
   if (!contents.roles.empty() && contents.roles != AllStateRoles(c)) {
-    // Every family stored today is a flow map, which predicts all channels.
+    // Every family stored today predicts all its channels.
     return Status::Invalid(fmt::format("{} channel roles for {} channels; a flow map's channels are all 'state'",
                                        contents.roles.size(), c));
   }
@@ -321,6 +361,52 @@ Status ReadRoles(Reader* r, std::size_t channels, std::vector<ChannelRole>* out,
   return Status::Ok();
 }
 
+Status ReadStepAndUnit(Reader* r, ModelFileContents* contents) {
+  contents->step_micros = Micros(static_cast<std::int64_t>(r->U64("data step")));
+  contents->time_unit_micros = Micros(static_cast<std::int64_t>(r->U64("time unit")));
+  if (!r->ok()) return r->error();
+  if (contents->step_micros <= Micros{} || contents->time_unit_micros <= Micros{}) {
+    return Status::Corruption(fmt::format("data step ({} us) and time unit ({} us) must be > 0",
+                                          contents->step_micros.count(), contents->time_unit_micros.count()));
+  }
+  return Status::Ok();
+}
+
+// Version 3, family 1, up to the metadata.
+Status ReadPolynomial(Reader* r, ModelFileContents* contents, ModelFileProblem* problem) {
+  if (Status st = ReadChannelNames(r, 64, &contents->channels); !st.ok()) return st;
+  const int c = static_cast<int>(contents->channels.size());
+  const std::uint32_t degree = r->U32("polynomial degree");
+  const double dt = std::bit_cast<double>(r->U64("dt"));
+  if (!r->ok()) return r->error();
+  Result<PolynomialFeatures> features = PolynomialFeatures::Create(c, static_cast<int>(std::min(degree, 64U)));
+  if (!features.ok()) return Status::Corruption("inconsistent polynomial map: " + features.status().message());
+  if (Status st = ReadStepAndUnit(r, contents); !st.ok()) return st;
+  Eigen::VectorXd m(c), s(c), S(c);
+  r->Values(m.data(), c, "channel means");
+  r->Values(s.data(), c, "channel stds");
+  r->Values(S.data(), c, "increment scales");
+  const std::uint64_t p = r->U64("readout value count");
+  if (!r->ok()) return r->error();
+  const auto expected = static_cast<std::uint64_t>(features.value().size()) * static_cast<std::uint64_t>(c);
+  if (p != expected) {
+    return Status::Corruption(fmt::format("readout value count {} does not match degree {} in {} channels, which "
+                                          "needs {}",
+                                          p, degree, c, expected));
+  }
+  Eigen::MatrixXd W(features.value().size(), c);
+  r->Values(W.data(), W.size(), "readout");
+  if (!r->ok()) return r->error();
+  if (!m.allFinite() || !s.allFinite() || !S.allFinite() || !W.allFinite() || !std::isfinite(dt)) {
+    *problem = ModelFileProblem::kNonFinite;
+    return Status::Corruption("non-finite normalization, dt or readout value in a polynomial map");
+  }
+  auto map = PolynomialMap::Create(std::move(features).value(), dt, m, s, S, std::move(W));
+  if (!map.ok()) return Status::Corruption("inconsistent polynomial map: " + map.status().message());
+  contents->model = std::move(map).value();
+  return Status::Ok();
+}
+
 std::string ErrnoText(int e) { return std::strerror(e); }
 
 }  // namespace
@@ -337,13 +423,24 @@ std::uint64_t Fnv1a64(std::string_view bytes) {
 Result<std::string> Serialize(const ModelFileContents& contents) {
   if (Status st = CheckContents(contents); !st.ok()) return st;
   std::string out(kModelFileMagic, sizeof kModelFileMagic);
-  PutU32(&out, kModelFileVersion);
+  const auto* polynomial = std::get_if<PolynomialPtr>(&contents.model);
+  // A neural flow map is written as version 2, which older builds read.
+  PutU32(&out, polynomial != nullptr ? 3 : 2);
   PutU32(&out, kModelFileHeaderLength);
   PutU64(&out, 0);  // body length, patched below
-  std::visit([&](const auto& map) { PutModel(&out, map, contents.channels); }, contents.model);
-  PutU64(&out, static_cast<std::uint64_t>(contents.step_micros.count()));
-  PutU64(&out, static_cast<std::uint64_t>(contents.time_unit_micros.count()));
-  std::visit([&](const auto& map) { PutValuesOf(&out, map); }, contents.model);
+  if (polynomial != nullptr) {
+    PutPolynomial(&out, **polynomial, contents);
+  } else {
+    std::visit(
+        [&](const auto& map) {
+          if constexpr (!std::is_same_v<std::decay_t<decltype(map)>, PolynomialPtr>) {
+            PutModel(&out, map, contents.channels);
+            PutStepAndUnit(&out, contents);
+            PutValuesOf(&out, map);
+          }
+        },
+        contents.model);
+  }
   PutU32(&out, static_cast<std::uint32_t>(contents.metadata.size()));
   for (const auto& [key, value] : contents.metadata) {
     PutStr(&out, key);
@@ -406,7 +503,7 @@ Result<ModelFileContents> ParseModelFile(std::string_view bytes, ModelFileProble
     return Status::Corruption("model file format version 0 does not exist");
   }
   if (header_length != kModelFileHeaderLength) {
-    return Status::Corruption(fmt::format("header length {} is not {} (format versions 1 and 2)", header_length,
+    return Status::Corruption(fmt::format("header length {} is not {} (format versions 1 to 3)", header_length,
                                           kModelFileHeaderLength));
   }
   const std::uint64_t actual_body = bytes.size() - kMin;
@@ -431,28 +528,35 @@ Result<ModelFileContents> ParseModelFile(std::string_view bytes, ModelFileProble
   }
 
   Reader r(bytes.substr(kModelFileHeaderLength, body_length), kModelFileHeaderLength);
-  Architecture arch;
-  if (Status st = ReadArchitecture(&r, &arch); !st.ok()) return st;
+  std::uint8_t family = kFamilyNeural;
+  if (version >= 3) {
+    family = r.U8("model family");
+    if (!r.ok()) return r.error();
+    if (family != kFamilyNeural && family != kFamilyPolynomial) {
+      return Status::Corruption(fmt::format("model family code {} is unknown (0 neural flow map, 1 polynomial map)",
+                                            family));
+    }
+  }
   ModelFileContents contents;
-  contents.step_micros = Micros(static_cast<std::int64_t>(r.U64("data step")));
-  contents.time_unit_micros = Micros(static_cast<std::int64_t>(r.U64("time unit")));
-  if (!r.ok()) return r.error();
-  if (contents.step_micros <= Micros{} || contents.time_unit_micros <= Micros{}) {
-    return Status::Corruption(fmt::format("data step ({} us) and time unit ({} us) must be > 0",
-                                          contents.step_micros.count(), contents.time_unit_micros.count()));
-  }
-  Status st;
-  if (arch.scalar_bytes == 4) {
-    FlowMap<float> map;
-    st = ReadModel(&r, arch, &map, problem);
-    contents.model = std::move(map);
+  if (family == kFamilyPolynomial) {
+    if (Status st = ReadPolynomial(&r, &contents, problem); !st.ok()) return st;
   } else {
-    FlowMap<double> map;
-    st = ReadModel(&r, arch, &map, problem);
-    contents.model = std::move(map);
+    Architecture arch;
+    if (Status st = ReadArchitecture(&r, &arch); !st.ok()) return st;
+    if (Status st = ReadStepAndUnit(&r, &contents); !st.ok()) return st;
+    Status st;
+    if (arch.scalar_bytes == 4) {
+      FlowMap<float> map;
+      st = ReadModel(&r, arch, &map, problem);
+      contents.model = std::move(map);
+    } else {
+      FlowMap<double> map;
+      st = ReadModel(&r, arch, &map, problem);
+      contents.model = std::move(map);
+    }
+    if (!st.ok()) return st;
+    contents.channels = std::move(arch.channels);
   }
-  if (!st.ok()) return st;
-  contents.channels = std::move(arch.channels);
   if (Status meta = ReadMetadata(&r, &contents.metadata); !meta.ok()) return meta;
   // Version 1 ends at the metadata: its channels are all state.
   const Status roles =
@@ -485,9 +589,44 @@ Result<std::shared_ptr<const ForecastModel>> MakeForecastModel(const ModelFileCo
     if (!made.ok()) return made.status();
     return std::shared_ptr<const ForecastModel>(std::move(made).value());
   };
+  if (const auto* p = std::get_if<PolynomialPtr>(&contents.model)) {
+    if (*p == nullptr) return Status::Invalid("the model is empty (no polynomial map)");
+    if (roles != AllStateRoles(static_cast<int>(contents.channels.size()))) {
+      return Status::Invalid("a polynomial map's channels are all 'state'");
+    }
+    return std::shared_ptr<const ForecastModel>(*p);
+  }
   if (const auto* f = std::get_if<FlowMap<float>>(&contents.model)) return wrap(*f);
   const auto& d = std::get<FlowMap<double>>(contents.model);
   return scalar == ModelScalar::kFloat32 ? wrap(d.Cast<float>()) : wrap(d);
+}
+
+double ModelFileContents::dt() const {
+  if (const auto* p = std::get_if<PolynomialPtr>(&model)) return *p ? (*p)->shape().dt : 0.0;
+  return std::visit(
+      [](const auto& map) -> double {
+        if constexpr (std::is_same_v<std::decay_t<decltype(map)>, PolynomialPtr>) {
+          return 0.0;  // handled above
+        } else {
+          return map.empty() ? 0.0 : map.dt();
+        }
+      },
+      model);
+}
+
+Status SetFileModel(const std::shared_ptr<const ForecastModel>& model, ModelFileContents* contents) {
+  if (model == nullptr) return Status::Invalid("no model to store");
+  if (const FlowMap<float>* f = NeuralNetworkOf<float>(*model)) {
+    contents->model = *f;
+  } else if (const FlowMap<double>* d = NeuralNetworkOf<double>(*model)) {
+    contents->model = *d;
+  } else if (auto p = std::dynamic_pointer_cast<const PolynomialMap>(model)) {
+    contents->model = std::move(p);
+  } else {
+    return Status::Invalid(fmt::format("model family '{}' cannot be stored in a model file", model->family()));
+  }
+  contents->roles = model->shape().roles;
+  return Status::Ok();
 }
 
 Status SaveModel(const std::filesystem::path& path, const ModelFileContents& contents) {

@@ -78,6 +78,7 @@ class PolynomialMap final : public ForecastModel {
   std::string_view family() const override { return "polynomial_map"; }
   // s, as the neural flow map: normalized errors are comparable across families.
   const Eigen::VectorXd& error_scale() const override { return std_; }
+  const Eigen::VectorXd& training_mean() const override { return mean_; }
   std::unique_ptr<ModelScratch> NewScratch() const override;
   void Step(const Eigen::VectorXd& x, Eigen::VectorXd* next, ModelScratch& scratch) const override;
   void StepBatch(const Eigen::MatrixXd& X, Eigen::MatrixXd* Y, ModelScratch& scratch) const override;

@@ -23,10 +23,11 @@ Result<std::shared_ptr<const ActiveModel>> MakeActiveModel(ModelRecord record) {
   return std::shared_ptr<const ActiveModel>(std::move(active));
 }
 
-std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, FlowMap<float> model, Micros time_unit) {
+std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, std::shared_ptr<const ForecastModel> model,
+                                                   Micros time_unit) {
   auto active = std::make_shared<ActiveModel>();
   active->record = std::move(record);
-  active->model = std::make_shared<const NeuralFlowMap<float>>(std::move(model));
+  active->model = std::move(model);
   active->time_unit = time_unit;
   return active;
 }

@@ -29,9 +29,10 @@ struct ActiveModel {
 // naming the version when the bytes are not a readable model file.
 [[nodiscard]] Result<std::shared_ptr<const ActiveModel>> MakeActiveModel(ModelRecord record);
 
-// From a model already in memory (a job's promoted candidate, all channels
-// state): no decoding. Requires !model.empty().
-std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, FlowMap<float> model, Micros time_unit);
+// From a model already in memory (a job's promoted candidate, an upload):
+// no decoding. Requires model != null.
+std::shared_ptr<const ActiveModel> MakeActiveModel(ModelRecord record, std::shared_ptr<const ForecastModel> model,
+                                                   Micros time_unit);
 
 // The flow map behind an active model, for a warm start (null for model
 // families that are not a float flow map).

@@ -94,13 +94,12 @@ std::optional<Eigen::VectorXd> NewestCompleteState(const GridSeries& grid) {
   return std::nullopt;
 }
 
-std::optional<double> ModelExponent(const FlowMap<float>& model, const Eigen::VectorXd& x0, Micros time_unit) {
+std::optional<double> ModelExponent(const ForecastModel& model, const Eigen::VectorXd& x0, Micros time_unit) {
   SpectrumOptions o;
   o.exponents = 1;
-  o.steps = std::clamp(static_cast<long>(200.0 / model.dt()), 1000L, 20000L);
+  o.steps = std::clamp(static_cast<long>(200.0 / model.shape().dt), 1000L, 20000L);
   o.transient_steps = o.steps / 10;
-  const NeuralFlowMap<float> wrapped(model);
-  auto e = LyapunovSpectrum(ModelMapStep(wrapped), x0, o);
+  auto e = LyapunovSpectrum(ModelMapStep(model), x0, o);
   if (!e.ok()) return std::nullopt;
   return e->exponents[0] / Seconds(time_unit);
 }

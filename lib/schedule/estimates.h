@@ -19,6 +19,7 @@
 #include "core/sample.h"
 #include "core/status.h"
 #include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "learn/pairs.h"
 
 namespace lyapcast {
@@ -50,6 +51,6 @@ std::optional<Eigen::VectorXd> NewestCompleteState(const GridSeries& grid);
 // (200 model time units, 1 000 to 20 000 steps, after a tenth of that as
 // transient), per second of data time (`time_unit`: data time per model time
 // unit). nullopt when the run fails (e.g. it blows up).
-std::optional<double> ModelExponent(const FlowMap<float>& model, const Eigen::VectorXd& x0, Micros time_unit);
+std::optional<double> ModelExponent(const ForecastModel& model, const Eigen::VectorXd& x0, Micros time_unit);
 
 }  // namespace lyapcast

@@ -4,6 +4,8 @@
 
 #include <cmath>
 
+#include "learn/model_error.h"
+
 namespace lyapcast {
 namespace {
 
@@ -23,19 +25,23 @@ Judgement JudgeCandidate(const Candidate& candidate, const ActiveForJudging& act
     j.reason = "fit failed: " + candidate.fit_status.message();
     return j;
   }
+  if (candidate.model == nullptr) {
+    j.reason = "no candidate model";
+    return j;
+  }
   if (!data.judge.empty()) {
-    j.candidate_per_channel = OneStepError(candidate.model, data.grid, data.judge);
+    j.candidate_per_channel = ModelOneStepError(*candidate.model, data.grid, data.judge);
     j.candidate_error = MeanOverChannels(j.candidate_per_channel);
     if (active.model != nullptr) {
       // A channel the active model left out (constant in its data: its
       // scale is huge, its error ~0) and the candidate learned is judged on
       // the candidate's scale, or holding it constant would always win.
-      Eigen::VectorXf scale = active.model->stddev();
-      const Eigen::VectorXf& fresh = candidate.model.stddev();
+      Eigen::VectorXd scale = active.model->error_scale();
+      const Eigen::VectorXd& fresh = candidate.model->error_scale();
       for (Eigen::Index k = 0; k < scale.size() && k < fresh.size(); ++k) {
-        if (scale[k] > 1e3f * fresh[k]) scale[k] = fresh[k];
+        if (scale[k] > 1e3 * fresh[k]) scale[k] = fresh[k];
       }
-      j.active_error = MeanOverChannels(OneStepError(*active.model, data.grid, data.judge, &scale));
+      j.active_error = MeanOverChannels(ModelOneStepError(*active.model, data.grid, data.judge, &scale));
     }
   }
   if (!std::isfinite(j.candidate_error)) {

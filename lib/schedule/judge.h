@@ -18,7 +18,7 @@
 #include <string>
 #include <vector>
 
-#include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "schedule/retrain_data.h"
 #include "schedule/training_strategy.h"
 
@@ -33,7 +33,7 @@ struct Judgement {
 };
 
 struct ActiveForJudging {
-  const FlowMap<float>* model = nullptr;  // null: no active model (a first model)
+  const ForecastModel* model = nullptr;  // null: no active model (a first model)
   std::int64_t version = 0;
 };
 

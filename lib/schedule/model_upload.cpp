@@ -86,7 +86,7 @@ Status CheckShape(const ModelFileContents& c, const FeedConfig& feed, const std:
     return Status::Invalid(fmt::format("the model's time unit is {} but feed '{}' uses {} (dynamics.time_unit){}",
                                        FormatDuration(c.time_unit_micros), feed.id, FormatDuration(unit), note));
   }
-  const double dt = std::visit([](const auto& map) { return static_cast<double>(map.dt()); }, c.model);
+  const double dt = c.dt();
   const double want = Seconds(feed.step) / Seconds(unit);
   if (!(std::abs(dt - want) <= 1e-9 * want)) {
     *problem = UploadProblem::kWrongStep;
@@ -186,8 +186,7 @@ Result<ValidatedUpload> ValidateUpload(std::string bytes, const FeedConfig& feed
   out.file_feed = Metadata(*contents, "feed");
   if (Status s = CheckShape(*contents, feed, OtherFeedNote(out.file_feed, feed), &kind); !s.ok()) return fail(s);
   if (const auto* d = std::get_if<FlowMap<double>>(&contents->model)) {
-    out.model = d->Cast<float>();
-    const auto& m = out.model;
+    const FlowMap<float> m = d->Cast<float>();
     const bool finite = m.parameters().array().isFinite().all() && m.mean().array().isFinite().all() &&
                         m.stddev().array().isFinite().all() && m.increment_scale().array().isFinite().all();
     if (!finite) {
@@ -195,9 +194,13 @@ Result<ValidatedUpload> ValidateUpload(std::string bytes, const FeedConfig& feed
       return fail(Status::Invalid("a float64 value of the model does not fit in float32, the precision the daemon "
                                   "serves in"));
     }
-  } else {
-    out.model = std::get<FlowMap<float>>(contents->model);
   }
+  auto served = MakeForecastModel(*contents, ModelScalar::kFloat32);
+  if (!served.ok()) {
+    kind = UploadProblem::kBadFile;
+    return fail(Status::Invalid("bad model file: " + served.status().message()));
+  }
+  out.model = std::move(served).value();
   out.source = Metadata(*contents, "source");
   out.trained_from = MetadataTime(*contents, "trained_from");
   out.trained_to = MetadataTime(*contents, "trained_to");
@@ -217,10 +220,9 @@ Result<UploadOutcome> RunUpload(ModelRegistry& registry, const UploadInput& in) 
   const RetrainData data = JudgeData(in, &judged_on);
   Candidate candidate;
   candidate.model = up.model;
-  const FlowMap<float>* active_network = in.active ? WarmStartNetwork(*in.active) : nullptr;
   const std::int64_t active_version = in.active ? in.active->record.version : 0;
-  const Judgement j =
-      JudgeCandidate(candidate, {active_network, active_version}, data, feed.retrain.promote_tolerance);
+  const Judgement j = JudgeCandidate(candidate, {in.active ? in.active->model.get() : nullptr, active_version}, data,
+                                     feed.retrain.promote_tolerance);
 
   UploadOutcome out;
   out.candidate_error = j.candidate_error;
@@ -248,8 +250,8 @@ Result<UploadOutcome> RunUpload(ModelRegistry& registry, const UploadInput& in) 
   // The start of the model's own run: the newest complete state, or its
   // training mean when the daemon has no data yet.
   const std::optional<Eigen::VectorXd> newest = NewestCompleteState(data.grid);
-  const Eigen::VectorXd x0 = newest ? *newest : Eigen::VectorXd(up.model.mean().cast<double>());
-  out.lambda_max = ModelExponent(up.model, x0, time_unit);
+  const Eigen::VectorXd x0 = newest ? *newest : up.model->training_mean();
+  out.lambda_max = ModelExponent(*up.model, x0, time_unit);
 
   ModelRecord record;
   record.feed = in.feed_index;

@@ -81,7 +81,9 @@ const char* UploadProblemCode(UploadProblem p);
 struct ValidatedUpload {
   std::string file;  // the bytes as uploaded (stored verbatim)
   ModelFileContents contents;
-  FlowMap<float> model;  // the file's map in float (a float64 file rounded), as the daemon serves it
+  // The file's model as the daemon serves it: a neural flow map in float (a
+  // float64 file rounded), a polynomial map as stored. Never null.
+  std::shared_ptr<const ForecastModel> model;
   std::string file_feed;  // metadata "feed" ("" when absent)
   std::string source;     // metadata "source" ("" when absent)
   std::optional<DataTime> trained_from, trained_to;  // metadata, when RFC 3339

@@ -16,7 +16,7 @@
 namespace lyapcast {
 namespace {
 
-std::optional<double> LargestExponentPerSecond(const FlowMap<float>& model, const GridSeries& grid,
+std::optional<double> LargestExponentPerSecond(const ForecastModel& model, const GridSeries& grid,
                                                Micros time_unit) {
   const std::optional<Eigen::VectorXd> x0 = NewestCompleteState(grid);
   if (!x0) return std::nullopt;
@@ -60,7 +60,7 @@ Result<ModelRecord> Record(ModelRegistry& registry, const RetrainInput& in, cons
   contents.channels = feed.channels;
   contents.step_micros = feed.step;
   contents.time_unit_micros = feed.dynamics ? feed.dynamics->time_unit : kSecond;
-  contents.model = candidate.model;
+  if (Status s = SetFileModel(candidate.model, &contents); !s.ok()) return s;
   contents.metadata = {{"feed", feed.id}, {"trained_to", FormatRfc3339(in.until)}};
   auto bytes = Serialize(contents);
   if (!bytes.ok()) return bytes.status();
@@ -140,8 +140,7 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
 
   TrainingContext context;
   context.feed = &feed;
-  const FlowMap<float>* active_network = in.active ? WarmStartNetwork(*in.active) : nullptr;
-  context.warm = active_network;
+  context.warm = in.active ? WarmStartNetwork(*in.active) : nullptr;
   context.seed = in.seed;
   context.lockstep = in.lockstep;
   context.cancel = in.cancel;
@@ -155,7 +154,7 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
   }
 
   const Judgement judgement = JudgeCandidate(
-      *candidate, {active_network, in.active ? in.active->record.version : 0}, data,
+      *candidate, {in.active ? in.active->model.get() : nullptr, in.active ? in.active->record.version : 0}, data,
       feed.retrain.promote_tolerance);
   out.candidate_error = judgement.candidate_error;
   out.active_error = judgement.active_error;
@@ -163,7 +162,9 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
   out.fit = candidate->fit;
   out.verdict = judgement.promote ? RetrainVerdict::kPromoted : RetrainVerdict::kRejected;
   const Micros time_unit = feed.dynamics ? feed.dynamics->time_unit : kSecond;
-  if (candidate->fit_status.ok()) out.lambda_max = LargestExponentPerSecond(candidate->model, data.grid, time_unit);
+  if (candidate->fit_status.ok() && candidate->model != nullptr) {
+    out.lambda_max = LargestExponentPerSecond(*candidate->model, data.grid, time_unit);
+  }
 
   auto record = Record(registry, in, data, *candidate, judgement, out.lambda_max, excluded);
   if (!record.ok()) return record.status();

@@ -72,7 +72,7 @@ Result<Candidate> SupervisedStrategy::Train(const RetrainData& data, const Train
   Candidate out;
   auto start = StartingModel(data, context, &out.refit);
   if (!start.ok()) return start.status();
-  out.model = std::move(start).value();
+  FlowMap<float> model = std::move(start).value();
 
   FitOptions o = SupervisedFitOptions(feed.retrain, context);
   std::optional<Dynamics> dynamics;
@@ -90,7 +90,8 @@ Result<Candidate> SupervisedStrategy::Train(const RetrainData& data, const Train
   set.train = data.train;
   set.validation = data.selection;
   set.validation_begin = data.heldout_begin;
-  auto fit = Fit(out.model, data.grid, set, o, context.progress);
+  auto fit = Fit(model, data.grid, set, o, context.progress);
+  out.model = std::make_shared<const NeuralFlowMap<float>>(std::move(model));
   if (fit.ok()) {
     out.fit = std::move(fit).value();
   } else {

@@ -24,6 +24,7 @@
 #include "config/config.h"
 #include "core/status.h"
 #include "learn/flow_map.h"
+#include "learn/forecast_model.h"
 #include "learn/trainer.h"
 #include "schedule/retrain_data.h"
 
@@ -39,7 +40,7 @@ struct TrainingContext {
 };
 
 struct Candidate {
-  FlowMap<float> model;
+  std::shared_ptr<const ForecastModel> model;  // null only when the fit failed before a model existed
   FitResult fit;
   Status fit_status;       // not ok: the fit failed or diverged (the candidate is rejected)
   std::string refit;       // why the warm start's normalization was moved; empty if it was not

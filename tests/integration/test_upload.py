@@ -250,9 +250,9 @@ class UploadTest(unittest.TestCase):
         self.assert_refused("lorenz", b"", 400, "empty-body", ["empty"])
         self.assert_refused("lorenz", b"GIF89a" + b"\0" * 100, 400, "bad-model-file", ["LYAPMODL"])
         newer = bytearray(good)
-        newer[8:12] = (3).to_bytes(4, "little")
+        newer[8:12] = (4).to_bytes(4, "little")
         self.assert_refused("lorenz", reseal(newer), 400, "unsupported-format-version",
-                            ["format version 3 is newer"])
+                            ["format version 4 is newer"])
         # Another feed's shape, and the same channels at another step.
         self.assert_refused("rig", good, 400, "wrong-channels",
                             ["the model has 3 channels (x, y, z) but feed 'rig' has 2 (x, v)",

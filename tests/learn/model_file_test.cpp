@@ -437,3 +437,119 @@ TEST(ModelFileCorruption, RandomInputsNeverCrash) {
 
 }  // namespace
 }  // namespace lyapcast
+
+namespace lyapcast {
+namespace {
+
+ModelFileContents PolynomialContents() {
+  auto features = PolynomialFeatures::Create(3, 3);
+  EXPECT_TRUE(features.ok());
+  auto map = PolynomialMap::Create(features.value(), 0.01, Eigen::Vector3d(0.5, -1.0, 23.5),
+                                   Eigen::Vector3d(7.9, 9.0, 8.6), Eigen::Vector3d(0.75, 1.2, 1.0 / 3.0),
+                                   testing::RandomMatrix(20, 3, 77, -2.0, 2.0));
+  EXPECT_TRUE(map.ok());
+  ModelFileContents c;
+  c.channels = {"x", "y", "z"};
+  c.step_micros = Micros(10'000);
+  c.model = std::move(map).value();
+  c.metadata = {{"feed", "lorenz"}};
+  return c;
+}
+
+const PolynomialMap& PolynomialOf(const ModelFileContents& c) {
+  return *std::get<std::shared_ptr<const PolynomialMap>>(c.model);
+}
+
+TEST(ModelFilePolynomial, RoundTripIsBitExactAsVersionThree) {
+  const ModelFileContents c = PolynomialContents();
+  const std::string bytes = Bytes(c);
+  std::uint32_t version = 0;
+  std::memcpy(&version, bytes.data() + 8, 4);
+  EXPECT_EQ(version, 3U) << "a polynomial map is written as version 3";
+  EXPECT_EQ(static_cast<unsigned char>(bytes[24]), 1) << "family code 1 opens the body";
+  auto back = Deserialize(bytes);
+  ASSERT_TRUE(back.ok()) << back.status().ToString();
+  EXPECT_FALSE(back->is_neural());
+  EXPECT_EQ(back->family(), "polynomial_map");
+  EXPECT_EQ(back->channels, c.channels);
+  EXPECT_EQ(back->step_micros, c.step_micros);
+  EXPECT_EQ(back->dt(), 0.01);
+  const PolynomialMap& a = PolynomialOf(c);
+  const PolynomialMap& b = PolynomialOf(*back);
+  EXPECT_EQ(b.features().degree(), 3);
+  EXPECT_EQ(b.readout(), a.readout());
+  EXPECT_EQ(b.mean(), a.mean());
+  EXPECT_EQ(b.stddev(), a.stddev());
+  EXPECT_EQ(b.increment_scale(), a.increment_scale());
+  EXPECT_EQ(Bytes(*back), bytes);
+  auto served = MakeForecastModel(*back, ModelScalar::kFloat32);
+  ASSERT_TRUE(served.ok());
+  EXPECT_EQ(served.value()->family(), "polynomial_map") << "a polynomial map always runs in double";
+  // A neural flow map stays version 2, which older builds read.
+  const std::string neural = Bytes(SampleContents<float>());
+  std::memcpy(&version, neural.data() + 8, 4);
+  EXPECT_EQ(version, 2U);
+}
+
+TEST(ModelFilePolynomial, SetFileModelStoresEitherFamily) {
+  const ModelFileContents c = PolynomialContents();
+  ModelFileContents d;
+  d.channels = c.channels;
+  d.step_micros = c.step_micros;
+  d.metadata = c.metadata;
+  ASSERT_TRUE(SetFileModel(std::get<std::shared_ptr<const PolynomialMap>>(c.model), &d).ok());
+  EXPECT_EQ(Bytes(d), Bytes([&] {
+              ModelFileContents e = c;
+              e.roles = AllStateRoles(3);
+              return e;
+            }()));
+  ASSERT_TRUE(SetFileModel(std::make_shared<const NeuralFlowMap<float>>(SampleMap<float>()), &d).ok());
+  EXPECT_TRUE(d.is_float32());
+  EXPECT_FALSE(SetFileModel(nullptr, &d).ok());
+}
+
+TEST(ModelFilePolynomial, DamagedFilesAreRefusedWithTheirKind) {
+  const std::string good = Bytes(PolynomialContents());
+  for (size_t cut = 0; cut < good.size(); cut += 5) EXPECT_FALSE(Deserialize(good.substr(0, cut)).ok()) << cut;
+  for (size_t at = 0; at < good.size(); ++at) {
+    std::string bad = good;
+    bad[at] ^= 0x21;
+    EXPECT_FALSE(Deserialize(bad).ok()) << "flipped byte " << at;
+  }
+  ModelFileProblem problem = ModelFileProblem::kNone;
+  std::string bad = good;
+  bad[24] = 7;  // family code
+  Reseal(&bad);
+  auto r = Deserialize(bad, &problem);
+  ASSERT_FALSE(r.ok());
+  EXPECT_NE(r.status().message().find("family code 7"), std::string::npos) << r.status().message();
+  EXPECT_EQ(problem, ModelFileProblem::kMalformed);
+  // The degree (after the family byte and three one-letter names): 9 is
+  // beyond what a polynomial map may have.
+  constexpr size_t kDegreeAt = 24 + 1 + 4 + 3 * (4 + 1);
+  bad = good;
+  PutU32At(&bad, kDegreeAt, 9);
+  Reseal(&bad);
+  r = Deserialize(bad, &problem);
+  ASSERT_FALSE(r.ok());
+  EXPECT_NE(r.status().message().find("degree 9"), std::string::npos) << r.status().message();
+  // Degree 2 needs 10 x 3 readout values, not the 20 x 3 stored.
+  bad = good;
+  PutU32At(&bad, kDegreeAt, 2);
+  Reseal(&bad);
+  r = Deserialize(bad, &problem);
+  ASSERT_FALSE(r.ok());
+  EXPECT_NE(r.status().message().find("readout value count 60"), std::string::npos) << r.status().message();
+  // A NaN in the readout (its first value, after dt, step, unit, m, s, S and the count).
+  constexpr size_t kReadoutAt = kDegreeAt + 4 + 8 + 8 + 8 + 3 * 8 * 3 + 8;
+  bad = good;
+  const std::uint64_t nan = 0x7ff8000000000000ull;
+  std::memcpy(bad.data() + kReadoutAt, &nan, 8);
+  Reseal(&bad);
+  r = Deserialize(bad, &problem);
+  ASSERT_FALSE(r.ok());
+  EXPECT_EQ(problem, ModelFileProblem::kNonFinite) << r.status().message();
+}
+
+}  // namespace
+}  // namespace lyapcast

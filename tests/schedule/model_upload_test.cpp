@@ -44,7 +44,7 @@ FlowMap<T> PoorMap(int channels = 3, double dt = 0.01) {
   return map;
 }
 
-ModelFileContents ContentsFor(const FeedConfig& feed, std::variant<FlowMap<float>, FlowMap<double>> map) {
+ModelFileContents ContentsFor(const FeedConfig& feed, decltype(ModelFileContents::model) map) {
   ModelFileContents c;
   c.channels = feed.channels;
   c.step_micros = feed.step;
@@ -99,11 +99,13 @@ TEST(ValidateUpload, AcceptsAFileOfTheFeedAndReadsItsMetadata) {
   EXPECT_EQ(v->trained_to, DataTimeFromMicros(5'000'000));
   EXPECT_EQ(v->trained_from, DataTime{});
   EXPECT_EQ(v->validation_error, 0.25);
-  EXPECT_EQ(v->model.parameters(), PoorMap().parameters());
+  ASSERT_NE(NeuralNetworkOf<float>(*v->model), nullptr);
+  EXPECT_EQ(NeuralNetworkOf<float>(*v->model)->parameters(), PoorMap().parameters());
   // A float64 file is served in float.
   auto wide = ValidateUpload(Bytes(ContentsFor(feed, PoorMap<double>())), feed);
   ASSERT_TRUE(wide.ok()) << wide.status().ToString();
-  EXPECT_EQ(wide->model.parameters(), PoorMap<double>().Cast<float>().parameters());
+  ASSERT_NE(NeuralNetworkOf<float>(*wide->model), nullptr);
+  EXPECT_EQ(NeuralNetworkOf<float>(*wide->model)->parameters(), PoorMap<double>().Cast<float>().parameters());
 }
 
 TEST(ValidateUpload, RefusesDamagedFilesWithTheirKind) {
@@ -131,7 +133,7 @@ TEST(ValidateUpload, RefusesDamagedFilesWithTheirKind) {
   Reseal(&bad);
   r = Refuse(bad, feed);
   EXPECT_EQ(r.problem, UploadProblem::kFormatVersion);
-  EXPECT_NE(r.message.find("format version 3"), std::string::npos) << r.message;
+  EXPECT_NE(r.message.find("format version " + std::to_string(kModelFileVersion + 1)), std::string::npos) << r.message;
   // The first channel mean (3 one-letter names, one hidden layer): NaN.
   constexpr size_t kMeanAt = 24 + 1 + 1 + 4 + 3 * (4 + 1) + 4 + 4 + 8 + 8 + 8;
   bad = good;

@@ -247,7 +247,7 @@ TEST(RunRetrain, ACandidateNoBetterThanTheActiveModelIsNotPromotedMoreOftenThanC
     RetrainData first, second;
     const Candidate active = train(stretch(800), 1000 + k, &first);
     const Candidate candidate = train(stretch(800), 2000 + k, &second);
-    const Judgement j = JudgeCandidate(candidate, {&active.model, 1}, second, 0.0);
+    const Judgement j = JudgeCandidate(candidate, {active.model.get(), 1}, second, 0.0);
     ASSERT_TRUE(std::isfinite(j.candidate_error) && std::isfinite(j.active_error)) << j.reason;
     promoted += j.promote;
   }

@@ -77,17 +77,14 @@ int RunLyapunov(const LyapunovArgs& a) {
     auto file = LoadModel(a.model);
     if (!file.ok()) return PrintError(kCmd, file.status().message()), kExitUsage;
     const double per_second = 1.0 / Seconds(file->time_unit_micros);
-    const auto estimate = std::visit(
-        [&](const auto& model) {
-          const NeuralFlowMap<typename std::decay_t<decltype(model)>::Mat::Scalar> wrapped(model);
-          const MapStep step = ModelMapStep(wrapped);
-          Eigen::VectorXd x0 = start && start->size() == model.channels() ? *start : model.mean().template cast<double>();
-          SpectrumOptions o;
-          o.steps = static_cast<long>(a.time_units / model.dt());
-          o.transient_steps = o.steps / 10;
-          return LyapunovSpectrum(step, x0, o);
-        },
-        file->model);
+    auto model = MakeForecastModel(*file);
+    if (!model.ok()) return PrintError(kCmd, "model: " + model.status().message()), kExitUsage;
+    const ForecastModel& m = *model.value();
+    const Eigen::VectorXd x0 = start && start->size() == m.shape().channels ? *start : m.training_mean();
+    SpectrumOptions o;
+    o.steps = static_cast<long>(a.time_units / m.shape().dt);
+    o.transient_steps = o.steps / 10;
+    const auto estimate = LyapunovSpectrum(ModelMapStep(m), x0, o);
     if (!estimate.ok()) return PrintError(kCmd, "model: " + estimate.status().message()), kExitFailure;
     rows.push_back({"model (QR on G's Jacobian)", estimate->exponents[0] * per_second,
                     Spectrum(estimate->exponents, per_second),

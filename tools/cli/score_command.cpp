@@ -18,6 +18,7 @@
 
 #include "cli_common.h"
 #include "commands.h"
+#include "learn/model_error.h"
 #include "learn/model_file.h"
 #include "learn/pairs.h"
 #include "learn/trainer.h"
@@ -177,17 +178,12 @@ int RunScore(const ScoreArgs& a) {
            kExitUsage;
   }
 
-  // OneStepError is the trainer's float measure; a float64 model is rounded to float for it.
-  const FlowMap<float> model = std::visit(
-      [](const auto& m) -> FlowMap<float> {
-        if constexpr (std::is_same_v<std::decay_t<decltype(m)>, FlowMap<float>>) {
-          return m;
-        } else {
-          return m.template Cast<float>();
-        }
-      },
-      file->model);
-  const std::vector<double> error = OneStepError(model, grid, set.train);
+  // The trainer's measure: a neural flow map in float (a float64 model is
+  // rounded to float for it), a polynomial map in double.
+  auto served = MakeForecastModel(*file, ModelScalar::kFloat32);
+  if (!served.ok()) return PrintError(kCmd, served.status().message()), kExitUsage;
+  const ForecastModel& model = *served.value();
+  const std::vector<double> error = ModelOneStepError(model, grid, set.train);
   // Mean over channels, as FitResult::validation_error; a channel with no
   // target in range (missing throughout) is left out of the mean.
   double overall = 0;
@@ -231,7 +227,7 @@ int RunScore(const ScoreArgs& a) {
                   static_cast<long long>(channel_pairs[k]));
     } else {
       std::printf("  %-16s %10.3e %10lld   %.4g%s\n", names[k].c_str(), error[k],
-                  static_cast<long long>(channel_pairs[k]), error[k] * static_cast<double>(model.stddev()[c]),
+                  static_cast<long long>(channel_pairs[k]), error[k] * model.error_scale()[c],
                   unit.c_str());
     }
   }
