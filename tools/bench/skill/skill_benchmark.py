@@ -294,7 +294,7 @@ def main():
     p.add_argument("--horizon", type=float, default=25, help="longest forecast in Lyapunov times (VPT cap)")
     p.add_argument("--lyap-length", type=float, default=1000,
                    help="Lyapunov times integrated to compute each largest exponent")
-    p.add_argument("--esn-trials", type=int, default=24, help="reservoirs tried by the random search")
+    p.add_argument("--esn-trials", type=int, default=16, help="reservoirs tried by the random search")
     p.add_argument("--esn-sizes", default="500,1000", help="reservoir sizes the search draws from")
     p.add_argument("--esn-warmup", type=int, default=500, help="steps the ESN listens before a forecast")
     p.add_argument("--val-starts", type=int, default=20, help="forecast starts on the validation slice")
@@ -383,13 +383,32 @@ def main():
             print(line)
     out["wall_s"] = time.time() - started
     print(f"wall time {out['wall_s']:.0f} s")
-    line = json.dumps(out, separators=(",", ":"))
+    bad = not_finite(out)
+    line = json.dumps(out, separators=(",", ":"), allow_nan=False) if not bad else json.dumps(out)
     if a.out_json:
         with open(a.out_json, "w") as f:
             f.write(line + "\n")
     print(line)
     if tmp:
         tmp.cleanup()
+    if bad:
+        # The ctest smoke relies on this: every figure of every method finite.
+        log(f"not finite: {', '.join(bad)}")
+        sys.exit(1)
+
+
+def not_finite(out):
+    bad = []
+    for name, e in out["systems"].items():
+        for key in ("lyapunov_computed", "lyapunov_time"):
+            if not math.isfinite(e[key]):
+                bad.append(f"{name} {key}")
+        for cond, r in e["conditions"].items():
+            for k in METHODS:
+                for key in ("vpt_mean", "vpt_median", "one_step", "train_s"):
+                    if not math.isfinite(r[k][key]):
+                        bad.append(f"{name} {cond} {k} {key}")
+    return bad
 
 
 if __name__ == "__main__":
