@@ -283,7 +283,8 @@ def print_condition(name, cond, res):
 
 
 def main():
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0], formatter_class=argparse.RawDescriptionHelpFormatter,
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0],
+                                formatter_class=argparse.RawDescriptionHelpFormatter,
                                 epilog="\n".join(__doc__.splitlines()[1:]))
     p.add_argument("--systems", default=",".join(SYSTEMS), help=f"comma list of {', '.join(SYSTEMS)}")
     p.add_argument("--conditions", default="clean,noisy")
