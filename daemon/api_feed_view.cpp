@@ -6,6 +6,7 @@
 #include <cmath>
 
 #include "runtime/feed_runtime.h"
+#include "schedule/retrain_details.h"
 #include "store/sample_writer.h"
 
 namespace lyapcast::api {
@@ -216,7 +217,14 @@ json StatusJson(const ApiContext& c, const FeedView& v) {
   json model = nullptr;
   if (v.model) {
     const ModelRecord& r = v.model->record;
+    // Which family serves and why: what the job fitted (family_note) and,
+    // under model.family auto, why that family won (family_choice).
+    const RetrainDetails details = ParseRetrainDetails(r.details);
+    std::string why = details.family_choice;
+    if (!details.family_note.empty()) why += (why.empty() ? "" : "; ") + details.family_note;
     model = {{"version", r.version},
+             {"family", std::string(v.model->model->family())},
+             {"family_reason", why.empty() ? json(nullptr) : json(why)},
              {"trained_from", TimeJson(r.trained_from)},
              {"trained_to", TimeJson(r.trained_to)},
              {"validation_error", OptionalNumber(r.validation_error)},

@@ -387,7 +387,8 @@
       level(st.data_age_s, th.data_age_alert_s, th.data_age_alarm_s)));
 
     figs.push(figure("model-version", "Active model", m ? "v" + m.version : "none yet", m ? m.version : null,
-      m ? "trained on data up to " + timeText(m.trained_to) + "; validation error " + num(m.validation_error)
+      m ? (m.family ? String(m.family).replace(/_/g, " ") + (m.family_reason ? " (" + m.family_reason + ")" : "") + "; " : "") +
+          "trained on data up to " + timeText(m.trained_to) + "; validation error " + num(m.validation_error)
         : "the first model is trained once the window holds enough data", null));
 
     figs.push(figure("model-age", "Model age (wall time)", duration(st.model_age_s), st.model_age_s,

@@ -9,6 +9,7 @@
 #include <yaml-cpp/yaml.h>
 
 #include <algorithm>
+#include <charconv>
 
 #include "config/yaml_reader.h"
 #include "core/sample.h"  // kMaxChannels
@@ -318,8 +319,34 @@ DynamicsConfig ReadDynamics(const Value& v, const std::vector<std::string>& chan
 }
 
 ModelConfig ReadModel(const Value& v) {
-  const MapReader m = v.Map({"hidden", "activation", "rollout", "max_gap"});
+  const MapReader m = v.Map({"family", "degree", "hidden", "activation", "rollout", "max_gap"});
   ModelConfig c;
+  if (auto x = m.Get("family")) {
+    const char* const allowed = "neural, polynomial or auto";
+    const std::string f = x->Text(allowed);
+    if (f == "neural") {
+      c.family = ModelFamily::kNeural;
+    } else if (f == "polynomial") {
+      c.family = ModelFamily::kPolynomial;
+    } else if (f == "auto") {
+      c.family = ModelFamily::kAuto;
+    } else {
+      x->FailMustBe(allowed);
+    }
+  }
+  if (auto x = m.Get("degree")) {
+    const char* const allowed = "auto or a polynomial degree from 1 to 6";
+    const std::string text = x->Text(allowed);
+    int degree = 0;
+    const auto [end, ec] = std::from_chars(text.data(), text.data() + text.size(), degree);
+    if (text == "auto") {
+      c.degrees = {2, 3, 4};
+    } else if (ec == std::errc() && end == text.data() + text.size() && degree >= 1 && degree <= 6) {
+      c.degrees = {degree};
+    } else {
+      x->FailMustBe(allowed);
+    }
+  }
   if (auto x = m.Get("hidden")) {
     const char* const allowed = "a list of at least one hidden layer width >= 1, e.g. [64, 64]";
     const std::vector<Value> items = x->List(allowed);
@@ -573,6 +600,15 @@ Config ParseOrThrow(std::string_view yaml, const std::filesystem::path& source, 
 std::string Endpoint::ToString() const {
   if (host.find(':') != std::string::npos) return fmt::format("[{}]:{}", host, port);
   return fmt::format("{}:{}", host, port);
+}
+
+const char* ModelFamilyName(ModelFamily f) {
+  switch (f) {
+    case ModelFamily::kNeural: return "neural";
+    case ModelFamily::kPolynomial: return "polynomial";
+    case ModelFamily::kAuto: return "auto";
+  }
+  return "?";
 }
 
 const char* RetrainStrategyName(RetrainStrategy s) {

@@ -92,7 +92,17 @@ struct DynamicsConfig {
   std::vector<ConstraintConfig> constraints;
 };
 
+// Which kind of one-step map a feed's retraining fits (docs/design.md
+// "Model families"): the neural flow map, the polynomial map, or both with
+// the better one on held-out pairs.
+enum class ModelFamily { kNeural, kPolynomial, kAuto };
+const char* ModelFamilyName(ModelFamily f);  // "neural", "polynomial", "auto"
+
 struct ModelConfig {
+  ModelFamily family = ModelFamily::kNeural;
+  // Polynomial degrees tried (the best on held-out pairs wins); model.degree
+  // in the config: one degree, or auto = {2, 3, 4}.
+  std::vector<int> degrees = {2, 3, 4};
   std::vector<int> hidden = {64, 64};  // hidden layer widths
   Activation activation = Activation::kTanh;
   // Unrolled steps trained on contiguous data; longest composition G^k trained

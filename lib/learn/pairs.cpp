@@ -161,4 +161,42 @@ TrajectorySet BuildTrajectories(const GridSeries& grid, const TrajectoryOptions&
   return out;
 }
 
+namespace {
+
+bool IsPair(const GridSeries& grid, std::size_t i) {
+  return i + 1 < grid.size() && i + 1 < grid.segment_end(i) && grid.complete(i) && grid.complete(i + 1) &&
+         grid.target_missing(i + 1) == 0;
+}
+
+OneStepPairs Collect(const GridSeries& grid, const std::vector<std::size_t>& starts) {
+  OneStepPairs p;
+  const int c = grid.channels;
+  p.from.resize(c, static_cast<Eigen::Index>(starts.size()));
+  p.to.resize(c, static_cast<Eigen::Index>(starts.size()));
+  for (std::size_t k = 0; k < starts.size(); ++k) {
+    p.from.col(static_cast<Eigen::Index>(k)) = Eigen::Map<const Eigen::VectorXd>(grid.row(starts[k]), c);
+    p.to.col(static_cast<Eigen::Index>(k)) = Eigen::Map<const Eigen::VectorXd>(grid.row(starts[k] + 1), c);
+  }
+  return p;
+}
+
+}  // namespace
+
+OneStepPairs OneStepPairsIn(const GridSeries& grid, std::size_t begin, std::size_t end) {
+  std::vector<std::size_t> starts;
+  for (std::size_t i = begin; i + 1 < std::min(end, grid.size()); ++i) {
+    if (IsPair(grid, i)) starts.push_back(i);
+  }
+  return Collect(grid, starts);
+}
+
+OneStepPairs OneStepPairsOf(const GridSeries& grid, const std::vector<Trajectory>& trajectories) {
+  std::vector<std::size_t> starts;
+  for (const Trajectory& t : trajectories) {
+    const auto i = static_cast<std::size_t>(t.start);
+    if (t.horizon >= 1 && IsPair(grid, i)) starts.push_back(i);
+  }
+  return Collect(grid, starts);
+}
+
 }  // namespace lyapcast

@@ -33,6 +33,8 @@
 // Pure functions; thread-safe.
 #pragma once
 
+#include "core/eigen.h"  // first, instead of <Eigen/Core>: see there
+
 #include <cstdint>
 #include <span>
 #include <vector>
@@ -95,5 +97,19 @@ struct TrajectorySet {
 };
 
 TrajectorySet BuildTrajectories(const GridSeries& grid, const TrajectoryOptions& options);
+
+// One-step pairs for a model fitted by least squares (learn/polynomial_map.h):
+// grid points i, i + 1 in one segment, both complete, the target's channels
+// all formed from samples (none carried).
+struct OneStepPairs {
+  Eigen::MatrixXd from, to;  // channels x N: to.col(i) is one model step after from.col(i)
+  std::size_t size() const { return static_cast<std::size_t>(from.cols()); }
+};
+
+// Every such pair with begin <= i and i + 1 < end.
+OneStepPairs OneStepPairsIn(const GridSeries& grid, std::size_t begin, std::size_t end);
+// The first step of each given trajectory, where it is such a pair.
+OneStepPairs OneStepPairsOf(const GridSeries& grid, const std::vector<Trajectory>& trajectories);
+
 
 }  // namespace lyapcast

@@ -49,6 +49,9 @@ std::string ToJson(const RetrainDetails& d) {
                     {"validation_per_channel", std::move(per_channel)},
                     {"active_error", Number(d.active_error)},
                     {"refit", d.refit},
+                    {"family", d.family},
+                    {"family_note", d.family_note},
+                    {"family_choice", d.family_choice},
                     {"left_out", d.left_out},
                     {"excluded", d.excluded},
                     {"exponents", {{"data", Number(d.data_exponent)}, {"dynamics", Number(d.dynamics_exponent)}}}};
@@ -77,6 +80,9 @@ RetrainDetails ParseRetrainDetails(std::string_view text) {
   Read(doc, "selection_pairs", &d.selection_pairs);
   Read(doc, "validation_pairs", &d.validation_pairs);
   Read(doc, "refit", &d.refit);
+  Read(doc, "family", &d.family);
+  Read(doc, "family_note", &d.family_note);
+  Read(doc, "family_choice", &d.family_choice);
   Read(doc, "excluded", &d.excluded);
   if (auto it = doc.find("left_out"); it != doc.end() && it->is_array()) {
     for (const json& name : *it) {

@@ -50,6 +50,9 @@ struct RetrainDetails {
   std::vector<double> validation_per_channel;  // NaN where a channel had no target
   std::optional<double> active_error;          // the active version on the same pairs
   std::string refit;                           // why the normalization moved; empty if it did not
+  std::string family;         // the stored model's family (ForecastModel::family); empty in older rows
+  std::string family_note;    // what was fitted, in words (polynomial: degree, ridge, pairs); may be empty
+  std::string family_choice;  // model.family auto: which family won and why; empty otherwise
   std::vector<std::string> left_out;           // constant channels left out of the model (Normalization)
   std::string excluded;                        // readings of suspect sensors not trained on, in words; empty if none
   std::optional<double> data_exponent, dynamics_exponent;  // per second of data time

@@ -8,6 +8,7 @@
 #include "core/wall_clock.h"
 #include "learn/model_file.h"
 #include "schedule/estimates.h"
+#include "schedule/family_choice.h"
 #include "schedule/judge.h"
 #include "schedule/retrain_data.h"
 #include "schedule/retrain_details.h"
@@ -38,6 +39,9 @@ RetrainDetails DetailsOf(const RetrainInput& in, const RetrainData& data, const 
   d.validation_per_channel = judgement.candidate_per_channel;
   if (std::isfinite(judgement.active_error)) d.active_error = judgement.active_error;
   d.refit = candidate.refit;
+  if (candidate.model != nullptr) d.family = std::string(candidate.model->family());
+  d.family_note = candidate.family_note;
+  d.family_choice = candidate.family_choice;
   if (data.normalization) {
     for (std::size_t c = 0; c < in.feed->channels.size(); ++c) {
       if (!((data.normalization->left_out >> c) & 1U)) continue;
@@ -145,7 +149,7 @@ Result<RetrainOutcome> RunRetrain(ModelRegistry& registry, const RetrainInput& i
   context.lockstep = in.lockstep;
   context.cancel = in.cancel;
   context.progress = progress;
-  auto candidate = MakeTrainingStrategy(feed.retrain.strategy)->Train(data, context);
+  auto candidate = TrainCandidate(data, context);
   if (!candidate.ok()) return candidate.status();
   if (candidate->fit_status.ok() && candidate->fit.stop == FitStop::kCancelled) {
     out.verdict = RetrainVerdict::kCancelled;

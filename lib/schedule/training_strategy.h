@@ -44,6 +44,8 @@ struct Candidate {
   FitResult fit;
   Status fit_status;       // not ok: the fit failed or diverged (the candidate is rejected)
   std::string refit;       // why the warm start's normalization was moved; empty if it was not
+  std::string family_note;  // what was fitted, in words (polynomial: degree, ridge, pairs); may be empty
+  std::string family_choice;  // model.family auto: which family won on the selection pairs and why
 };
 
 class TrainingStrategy {

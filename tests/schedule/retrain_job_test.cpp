@@ -171,6 +171,62 @@ TEST(RunRetrain, WarmStartRecordsParentAndBothErrorsAndRejectsAWorseCandidate) {
   EXPECT_EQ(db.ActiveRecord().version, active_before);
 }
 
+// model.family: a polynomial map is fitted, judged, stored (format version
+// 3) and served like a neural one; auto keeps the better family on the
+// selection pairs and says why; a neural candidate then still replaces a
+// polynomial active model only when the judge says it is no worse.
+TEST(RunRetrain, PolynomialAndAutoFamiliesAreTrainedJudgedStoredAndServed) {
+  Db db;
+  FeedConfig feed = Feed();
+  feed.model.family = ModelFamily::kPolynomial;
+  db.Add(testing::LorenzSamples(1500, DataTime{}));
+  auto first = db.Run(feed, DataTimeFromMicros(15'000'000), std::nullopt, 1);
+  ASSERT_TRUE(first.ok()) << first.status().ToString();
+  ASSERT_EQ(first->verdict, RetrainVerdict::kPromoted) << first->reason;
+  ASSERT_NE(first->promoted, nullptr);
+  EXPECT_EQ(first->promoted->model->family(), "polynomial_map");
+  // Lorenz-63 at 10 ms: the exact fit's one-step error is far below a
+  // short neural fit's (measured 1.4e-7 of the channel std in
+  // tests/learn/polynomial_map_test.cpp on the same system).
+  EXPECT_LT(first->candidate_error, 1e-5);
+  RetrainDetails details = ParseRetrainDetails(db.ActiveRecord().details);
+  EXPECT_EQ(details.family, "polynomial_map");
+  EXPECT_NE(details.family_note.find("polynomial degree"), std::string::npos) << details.family_note;
+  EXPECT_TRUE(details.family_choice.empty());
+  // Stored and decoded again: the same map.
+  auto stored = MakeActiveModel(db.ActiveRecord());
+  ASSERT_TRUE(stored.ok()) << stored.status().ToString();
+  EXPECT_EQ((*stored)->model->family(), "polynomial_map");
+  ASSERT_TRUE(first->lambda_max.has_value());
+  // The model's exponent on Lorenz-63: 0.9056 (Sprott 2003), +-10 % for a
+  // learned map (common practice, docs/references.md).
+  EXPECT_NEAR(*first->lambda_max, 0.9056, 0.09);
+
+  // auto on the next chunk: both fitted, the polynomial map wins on clean
+  // Lorenz data and the reason gives both figures.
+  feed.model.family = ModelFamily::kAuto;
+  db.Add(testing::LorenzSamples(500, DataTimeFromMicros(15'000'000)));
+  auto second = db.Run(feed, DataTimeFromMicros(20'000'000), db.ActiveRecord(), 2);
+  ASSERT_TRUE(second.ok()) << second.status().ToString();
+  EXPECT_TRUE(std::isfinite(second->active_error));
+  details = ParseRetrainDetails(db.registry.Get(0, *second->version)->details);
+  EXPECT_EQ(details.family, "polynomial_map");
+  EXPECT_NE(details.family_choice.find("polynomial map chosen (one-step error on"), std::string::npos)
+      << details.family_choice;
+  EXPECT_NE(details.family_choice.find("neural "), std::string::npos) << details.family_choice;
+
+  // neural against a polynomial active model: a short neural fit is far
+  // worse on the judge pairs and is rejected; the polynomial map serves on.
+  feed.model.family = ModelFamily::kNeural;
+  const std::int64_t serving = db.ActiveRecord().version;
+  db.Add(testing::LorenzSamples(500, DataTimeFromMicros(20'000'000)));
+  auto third = db.Run(feed, DataTimeFromMicros(25'000'000), db.ActiveRecord(), 3);
+  ASSERT_TRUE(third.ok()) << third.status().ToString();
+  EXPECT_EQ(third->verdict, RetrainVerdict::kRejected) << third->reason;
+  EXPECT_EQ(db.ActiveRecord().version, serving);
+  EXPECT_EQ(ParseRetrainDetails(db.registry.Get(0, *third->version)->details).family, "neural_flow_map");
+}
+
 TEST(RunRetrain, RecordsTheCadenceEstimatesExactlyForARestart) {
   Db db;
   const FeedConfig feed = Feed();

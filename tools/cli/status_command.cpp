@@ -43,6 +43,10 @@ void PrintBlock(const json& s, const std::string& id) {
     if (auto age = Number(st ? Field(*st, "model_age_s") : nullptr)) line += fmt::format(", {} old", Age(age));
     if (auto e = Number(Field(*model, "validation_error"))) line += fmt::format(", validation error {}", Num(e));
     std::printf("  model     %s\n", line.c_str());
+    if (const std::string family = Text(Field(*model, "family")); !family.empty()) {
+      const std::string why = Text(Field(*model, "family_reason"));
+      std::printf("  family    %s%s\n", family.c_str(), why.empty() ? "" : (": " + why).c_str());
+    }
     const auto since = Number(st ? Field(*st, "since_training_s") : nullptr);
     if (since || since_lt) {
       const std::string in_lt = since_lt ? fmt::format(" = {} Lyapunov times", Num(since_lt)) : "";
