@@ -35,8 +35,8 @@ What each method gets at a forecast start:
         [--starts 50] [--iterations 20000] [--seed 1] [--out-json FILE]
 
 Needs /usr/bin/python3 with Debian's numpy and scipy, and the lyapcast CLI
-(env LYAPCAST_CLI, default /work/bin-snapshot/lyapcast, else
-build/tools/cli/lyapcast under the repository). Human-readable lines on
+(env LYAPCAST_CLI, default build/tools/cli/lyapcast under the
+repository). Human-readable lines on
 stdout, progress on stderr, one JSON line last."""
 
 import argparse
@@ -72,19 +72,17 @@ def log(msg):
 
 
 def default_cli():
-    for p in (os.environ.get("LYAPCAST_CLI"), "/work/bin-snapshot/lyapcast",
-              os.path.join(ROOT, "build", "tools", "cli", "lyapcast")):
-        if p and os.path.exists(p):
-            return p
-    return os.environ.get("LYAPCAST_CLI", "/work/bin-snapshot/lyapcast")
+    return os.environ.get("LYAPCAST_CLI") or os.path.join(ROOT, "build", "tools", "cli", "lyapcast")
 
 
 # ----------------------------------------------------------------- lyapcast
 class Lyapcast:
     """lyapcast through its CLI, offline, on files in `work`."""
 
-    def __init__(self, cli, work, system, iterations, seed):
+    def __init__(self, cli, work, system, iterations, seed, family="auto"):
         self.cli, self.work, self.system, self.iterations, self.seed = cli, work, system, iterations, seed
+        self.family = family
+        self.chosen = None  # the family lyapcast train wrote
         self.dt_us = round(system.dt * 1e6)
         self.feed = system.name.replace("_", "-")
         self.config = os.path.join(work, f"{self.feed}.yaml")
@@ -126,8 +124,11 @@ feeds:
         self.model = os.path.join(self.work, f"{self.feed}-{tag}.model")
         t0 = time.time()
         out = self._run(["train", "--config", self.config, "--feed", self.feed, "--csv", csv, "--out", self.model,
-                         "--iterations", str(self.iterations), "--seed", str(self.seed)], "train")
+                         "--iterations", str(self.iterations), "--seed", str(self.seed), "--family", self.family],
+                        "train")
         wall = time.time() - t0
+        m = re.search(r"model written to .* \((\w+)\)", out)
+        self.chosen = m.group(1) if m else None
         m = re.search(r"trained (\d+) iterations in ([0-9.]+) s", out)
         return wall, (float(m.group(2)) if m else wall)
 
@@ -219,12 +220,12 @@ def run_condition(a, sysm, cond, clean, lyap_time, cli, work, sys_index):
            "train_samples": int(observed[:train_end].sum()), "fit_samples": int(observed[:fit_end].sum())}
     tag = f"{sysm.name} {cond}"
 
-    log(f"{tag}: lyapcast train ({a.iterations} iterations)")
-    lc = Lyapcast(cli, work, sysm, a.iterations, a.seed)
+    log(f"{tag}: lyapcast train (family {a.family}, {a.iterations} iterations)")
+    lc = Lyapcast(cli, work, sysm, a.iterations, a.seed, a.family)
     wall, fit_s = lc.train(np.where(observed[:, None], obs, 0.0), observed, train_end, cond)
     r = scores(lc.forecast(obs, starts, horizon), truth, std, sysm.dt, lyap_time)
     r.update(one_step=float(np.mean(lc.one_step(obs, idx, clean, cond) / std)), train_s=wall, fit_s=fit_s,
-             select_s=0.0, gets="the observed state at the start")
+             select_s=0.0, gets="the observed state at the start", family=lc.chosen)
     res["lyapcast"] = r
 
     log(f"{tag}: ESN random search ({a.esn_trials} reservoirs x {len(bl.RIDGE_BETAS)} ridge values)")
@@ -275,6 +276,8 @@ def print_condition(name, cond, res):
     for k in METHODS:
         r = res[k]
         s = bl._fmt(r["settings"]) if "settings" in r else f"{r.get('fit_s', 0):.1f} s of fit"
+        if r.get("family"):
+            s += f"; served {r['family']}"
         print(f"    {LABEL[k]:<9} {r['vpt_mean']:9.2f} {r['vpt_median']:7.2f} {r['capped']:6d} {r['one_step']:9.2e} "
               f"{r['train_s']:7.1f} {r['select_s']:8.1f}  {s}")
     ratio = res["ratio_vpt_mean"]
@@ -290,6 +293,8 @@ def main():
     p.add_argument("--conditions", default="clean,noisy")
     p.add_argument("--starts", type=int, default=50, help="forecast starts over the test slice")
     p.add_argument("--iterations", type=int, default=20000, help="lyapcast train --iterations")
+    p.add_argument("--family", default="auto", choices=["neural", "polynomial", "auto"],
+                   help="lyapcast train --family (default auto: the daemon's choice between its families)")
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--length", type=float, default=400, help="series length in Lyapunov times")
     p.add_argument("--horizon", type=float, default=25, help="longest forecast in Lyapunov times (VPT cap)")
@@ -338,7 +343,7 @@ def main():
           f"{'/'.join(map(str, a.esn_sizes))} nodes; {a.starts} starts; series {a.length:g} Lyapunov times, "
           f"horizon {a.horizon:g}; seed {a.seed}; CLI {cli}")
     out = {"benchmark": "forecast_skill", "settings": {
-        "systems": names, "conditions": conditions, "starts": a.starts, "iterations": a.iterations, "seed": a.seed,
+        "systems": names, "conditions": conditions, "starts": a.starts, "iterations": a.iterations, "family": a.family, "seed": a.seed,
         "length_lyapunov_times": a.length, "horizon_lyapunov_times": a.horizon, "lyap_length": a.lyap_length,
         "esn_trials": a.esn_trials, "esn_sizes": a.esn_sizes, "esn_warmup": a.esn_warmup, "val_starts": a.val_starts,
         "quick": a.quick, "noise": NOISE, "drop": DROP, "train_share": TRAIN_SHARE,
@@ -381,7 +386,8 @@ def main():
                 f" {r[k]['vpt_mean']:6.2f} ({r[k]['vpt_median']:4.1f})" for k in METHODS)
             line += f" {r['ratio_vpt_mean']:6.2f}" if r["ratio_vpt_mean"] is not None else f" {'n/a':>6}"
             line += "".join(f" {r[k]['one_step']:15.2e}" for k in METHODS)
-            print(line)
+            family = r["lyapcast"].get("family")
+            print(line + (f"  lyapcast served {family}" if family else ""))
     out["wall_s"] = time.time() - started
     print(f"wall time {out['wall_s']:.0f} s")
     bad = not_finite(out)
