@@ -340,7 +340,7 @@ ModelConfig ReadModel(const Value& v) {
     int degree = 0;
     const auto [end, ec] = std::from_chars(text.data(), text.data() + text.size(), degree);
     if (text == "auto") {
-      c.degrees = {2, 3, 4};
+      c.degrees = {2, 3, 4, 5, 6};
     } else if (ec == std::errc() && end == text.data() + text.size() && degree >= 1 && degree <= 6) {
       c.degrees = {degree};
     } else {

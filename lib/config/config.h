@@ -101,8 +101,8 @@ const char* ModelFamilyName(ModelFamily f);  // "neural", "polynomial", "auto"
 struct ModelConfig {
   ModelFamily family = ModelFamily::kNeural;
   // Polynomial degrees tried (the best on held-out pairs wins); model.degree
-  // in the config: one degree, or auto = {2, 3, 4}.
-  std::vector<int> degrees = {2, 3, 4};
+  // in the config: one degree, or auto = {2, ..., 6}.
+  std::vector<int> degrees = {2, 3, 4, 5, 6};
   std::vector<int> hidden = {64, 64};  // hidden layer widths
   Activation activation = Activation::kTanh;
   // Unrolled steps trained on contiguous data; longest composition G^k trained

@@ -4,6 +4,8 @@
 #include <cmath>
 #include <limits>
 
+#include <fmt/format.h>
+
 #include "learn/least_squares.h"
 
 namespace lyapcast {
@@ -197,8 +199,11 @@ Result<PolynomialFit> FitPolynomialMap(double dt, const Eigen::VectorXd& mean, c
   Eigen::MatrixXd Phi, Y, pred;
   for (int degree : options.degrees) {
     Result<PolynomialFeatures> features = PolynomialFeatures::Create(static_cast<int>(c), degree);
-    if (!features.ok()) {
-      last_error = features.status().message();
+    if (!features.ok() || 5 * static_cast<Eigen::Index>(features.value().size()) > X.cols()) {
+      last_error = features.ok() ? fmt::format("degree {} has {} monomials for {} pairs (at most a fifth of the pairs)",
+                                               degree, features.value().size(), X.cols())
+                                 : features.status().message();
+      best.skipped.push_back(degree);
       continue;
     }
     PolynomialRegressionProblem(features.value(), dt, mean, stddev, increment_scale, X, X_next, &Phi, &Y);

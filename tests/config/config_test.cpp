@@ -134,7 +134,7 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_EQ(f.model.hidden, (std::vector<int>{64, 64}));
   EXPECT_EQ(f.model.activation, Activation::kTanh);
   EXPECT_EQ(f.model.family, ModelFamily::kNeural);
-  EXPECT_EQ(f.model.degrees, (std::vector<int>{2, 3, 4}));
+  EXPECT_EQ(f.model.degrees, (std::vector<int>{2, 3, 4, 5, 6}));
   EXPECT_EQ(f.model.rollout, 4);
   EXPECT_EQ(f.model.max_gap, 8);
   EXPECT_DOUBLE_EQ(f.retrain.lyapunov_fraction, 0.5);

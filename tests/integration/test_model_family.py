@@ -66,3 +66,48 @@ class ModelFamilyTest(unittest.TestCase):
 
 if __name__ == "__main__":
     unittest.main()
+
+
+class OfflineFamilyTest(unittest.TestCase):
+    """lyapcast train --family and forecast --history, offline on files."""
+
+    def setUp(self):
+        self.plant = plant.PlantFeedTest("test_jittered_feeds_flag_a_parameter_change")
+        self.plant.setUp()
+        self.addCleanup(self.plant.doCleanups)
+        self.dir = self.plant.dir
+
+    def test_train_families_and_a_start_fitted_to_history(self):
+        lines = self.plant.simulate("offline.csv", "60s")
+        cfg = os.path.join(self.dir, "sim.yaml")
+        data = os.path.join(self.dir, "offline.csv")
+        model = os.path.join(self.dir, "poly.model")
+        out = run_cli("train", "-c", cfg, "--csv", data, "-o", model, "--family", "polynomial", "--no-constraints")
+        self.assertRegex(out.stdout, r"polynomial map: degree \d, ridge \S+ chosen of \d+ candidates")
+        self.assertIn("(polynomial_map)", out.stdout)
+        auto = run_cli("train", "-c", cfg, "--csv", data, "-o", os.path.join(self.dir, "auto.model"), "--family",
+                       "auto", "--iterations", "200", "--no-constraints")
+        self.assertRegex(auto.stdout, r"family auto: polynomial map chosen \(one-step validation error on \d+ pairs")
+        bad = run_cli("train", "-c", cfg, "--csv", data, "-o", model, "--family", "spline", code=2)
+        self.assertIn("--family", bad.stderr)
+        # A start fitted to 31 rows (0.3 s, one value missing): the command
+        # reads the file, fits and says how well; how much closer to the
+        # truth such a start is: tests/learn/history_fit_test.cpp.
+        rows = [line.split(",")[2:] for line in lines[3000:3031]]
+        history = os.path.join(self.dir, "history.csv")
+        with open(history, "w") as f:
+            f.write("# x,y,z one model step apart, oldest first\n")
+            for k, r in enumerate(rows):
+                f.write(",".join("" if (k == 10 and c == 1) else v for c, v in enumerate(r)) + "\n")
+        fitted = run_cli("forecast", "--model", model, "--history", history, "--steps", "2")
+        self.assertRegex(fitted.stderr, r"start fitted to 31 history rows \(92 values\): misfit RMS \S+ of the channel std")
+        self.assertEqual(len(fitted.stdout.strip().splitlines()), 3)
+        plain = run_cli("forecast", "--model", model, "--from", ",".join(rows[-1]), "--steps", "2")
+        self.assertEqual(len(plain.stdout.strip().splitlines()), 3)
+        # Refusals name the file and line.
+        with open(history, "a") as f:
+            f.write("1,2\n")
+        short = run_cli("forecast", "--model", model, "--history", history, code=2)
+        self.assertIn("line 33: 2 values, the model has 3 channels", short.stderr)
+        both = run_cli("forecast", "--model", model, code=2)
+        self.assertIn("--from STATE", both.stderr)

@@ -186,7 +186,7 @@ TEST(PolynomialMap, FitOnTheRk4MapPrefersAHigherDegree) {
   auto fit = FitPolynomialMap(dt, s.mean, s.stddev, s.increment, X, Xn, V, Vn);
   ASSERT_TRUE(fit.ok()) << fit.status().message();
   EXPECT_GT(fit.value().degree, 2);
-  EXPECT_EQ(fit.value().candidates, 15);
+  EXPECT_EQ(fit.value().candidates, 30);
   EXPECT_LT(fit.value().validation_error, 1e-6) << "degree " << fit.value().degree;
   PolynomialFitOptions two;
   two.degrees = {2};

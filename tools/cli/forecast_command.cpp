@@ -11,19 +11,21 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <fstream>
 #include <variant>
 
 #include "cli_common.h"
 #include "commands.h"
 #include "learn/model_file.h"
 #include "remote_common.h"
+#include "learn/history_fit.h"
 #include "runtime/forecast.h"
 
 namespace lyapcast::cli {
 namespace {
 
 struct ForecastArgs {
-  std::string model, from, start;
+  std::string model, from, start, history;
   int steps = 100;
   // The remote form.
   std::string feed, horizon;
@@ -47,10 +49,53 @@ void PrintOfflineForecast(const lyapcast::Forecast& f, bool absolute) {
   }
 }
 
+// The --history file: one row per model step, oldest first, the newest
+// row being the start; comma-separated values in the model's channel order,
+// an empty field for a missing value; '#' lines are comments.
+Result<Eigen::MatrixXd> ReadHistory(const std::string& path, std::size_t channels) {
+  std::ifstream in(path);
+  if (!in) return Status::NotFound(path + ": cannot open the history file");
+  std::vector<Eigen::VectorXd> rows;
+  std::string line;
+  for (int number = 1; std::getline(in, line); ++number) {
+    if (line.empty() || line[0] == '#') continue;
+    Eigen::VectorXd row(static_cast<Eigen::Index>(channels));
+    std::size_t field = 0, begin = 0;
+    for (;; ++field) {
+      const std::size_t end = line.find(',', begin);
+      const std::string text = line.substr(begin, end == std::string::npos ? std::string::npos : end - begin);
+      if (field >= channels) {
+        return Status::Invalid(fmt::format("{} line {}: more than {} values (one per channel)", path, number, channels));
+      }
+      if (text.empty()) {
+        row[static_cast<Eigen::Index>(field)] = std::nan("");
+      } else {
+        const std::string what = fmt::format("{} line {} value {}", path, number, field + 1);
+        auto v = ParseNumberList(text, 1, what.c_str());
+        if (!v.ok()) return v.status();
+        row[static_cast<Eigen::Index>(field)] = (*v)[0];
+      }
+      if (end == std::string::npos) break;
+      begin = end + 1;
+    }
+    if (field + 1 != channels) {
+      return Status::Invalid(fmt::format("{} line {}: {} values, the model has {} channels", path, number, field + 1,
+                                         channels));
+    }
+    rows.push_back(std::move(row));
+  }
+  if (rows.size() < 2) return Status::Invalid(path + ": a history needs at least two rows");
+  Eigen::MatrixXd out(static_cast<Eigen::Index>(channels), static_cast<Eigen::Index>(rows.size()));
+  for (std::size_t k = 0; k < rows.size(); ++k) out.col(static_cast<Eigen::Index>(k)) = rows[k];
+  return out;
+}
+
 int RunForecast(const ForecastArgs& a) {
   constexpr const char* kCmd = "forecast";
-  if (a.from.empty()) {
-    return PrintError(kCmd, "--from is required with --model: the starting state, one number per channel"), kExitUsage;
+  if (a.from.empty() == a.history.empty()) {
+    return PrintError(kCmd, "--model needs --from STATE (the starting state, one number per channel) or --history "
+                            "FILE (the recent states, fitted; see --help), one of them"),
+           kExitUsage;
   }
   for (const auto& [given, name] :
        {std::pair{a.horizon_given, "--horizon"}, std::pair{a.json_given, "--json"}, std::pair{a.url_given, "--url"},
@@ -62,8 +107,6 @@ int RunForecast(const ForecastArgs& a) {
   }
   auto file = LoadModel(a.model);
   if (!file.ok()) return PrintError(kCmd, file.status().message()), kExitUsage;
-  auto from = ParseNumberList(a.from, file->channels.size(), "--from");
-  if (!from.ok()) return PrintError(kCmd, from.status().message()), kExitUsage;
   if (a.steps < 1) return PrintError(kCmd, "--steps must be at least 1"), kExitUsage;
   DataTime start{};
   const bool absolute = !a.start.empty();
@@ -74,11 +117,27 @@ int RunForecast(const ForecastArgs& a) {
   }
   auto model = MakeForecastModel(*file);
   if (!model.ok()) return PrintError(kCmd, a.model + ": " + model.status().message()), kExitUsage;
+  Eigen::VectorXd from_state;
+  if (!a.history.empty()) {
+    auto history = ReadHistory(a.history, file->channels.size());
+    if (!history.ok()) return PrintError(kCmd, history.status().message()), kExitUsage;
+    auto fit = FitStateToHistory(**model, *history, (*model)->error_scale());
+    if (!fit.ok()) return PrintError(kCmd, a.history + ": " + fit.status().message()), kExitUsage;
+    std::fprintf(stderr, "start fitted to %lld history rows (%d values): misfit RMS %.3g of the channel std (from "
+                 "the oldest row as given: %.3g), %d iterations\n",
+                 static_cast<long long>(history->cols()), fit->observations, fit->rms_after, fit->rms_before,
+                 fit->iterations);
+    from_state = fit->start;
+  } else {
+    auto from = ParseNumberList(a.from, file->channels.size(), "--from");
+    if (!from.ok()) return PrintError(kCmd, from.status().message()), kExitUsage;
+    from_state = Eigen::Map<const Eigen::VectorXd>(from->data(), static_cast<Eigen::Index>(from->size()));
+  }
   // No exponent and no live error offline: the forecast's horizon stays
   // empty and is not printed.
   ForecastRequest request;
   request.from = start;
-  request.start = *from;
+  request.start.assign(from_state.data(), from_state.data() + from_state.size());
   request.step = file->step_micros;
   request.steps = a.steps;
   auto forecast = MakeForecast(**model, request);
@@ -260,17 +319,25 @@ void AddForecastCommand(CLI::App& app, int* exit_code) {
           "                and print CSV (step, time, channels); time is seconds after the start, or absolute\n"
           "                epoch seconds with --start. (`lyapcast train` writes model files, and so does\n"
           "                GET /v1/feeds/{id}/models/{v}/file.)\n"
+          "                Or from --history FILE: the recent states one model step apart (CSV rows of one\n"
+          "                value per channel, oldest first, empty for missing; the last row is the start): the\n"
+          "                start is the model trajectory that fits them best (least squares over the rows),\n"
+          "                so sensor noise in the newest sample is not amplified from the first step.\n"
           "Forecasts are advisory; plant safety systems, local codes and licensed practice govern.\n"
           "Examples:\n"
           "  lyapcast forecast --feed loop-a --horizon 30s\n"
           "  lyapcast forecast --feed loop-a --steps 200 --from 2026-01-01T00:20:00Z --csv > f.csv\n"
-          "  lyapcast forecast --model loop-a.model --from 1.2,-0.4,20 --steps 200\n") +
+          "  lyapcast forecast --model loop-a.model --from 1.2,-0.4,20 --steps 200\n"
+          "  lyapcast forecast --model loop-a.model --history last-50-rows.csv --steps 200\n") +
       kRemoteFooter);
   cmd->add_option("--feed", args->feed, "remote form: the feed id on the daemon");
   cmd->add_option("--model,-m", args->model, "offline form: model file (from lyapcast train or the daemon)");
   cmd->add_option("--from", args->from,
                   "--model: starting state, one number per channel in the model's order; --feed: the data time to "
                   "start at (RFC 3339 or epoch seconds; default latest)");
+  cmd->add_option("--history", args->history,
+                  "--model: CSV of the recent states (one row per model step, oldest first, the last is the start); "
+                  "the start is fitted to them instead of --from");
   CLI::Option* steps = cmd->add_option("--steps", args->steps, "number of model steps (default 100)");
   CLI::Option* horizon = cmd->add_option("--horizon", args->horizon,
                                          "--feed: forecast this much data time, e.g. 30s (instead of --steps)");

@@ -268,7 +268,7 @@ void AddTrainCommand(CLI::App& app, int* exit_code) {
                   "neural, polynomial, or auto (both; the lower one-step validation error wins); default "
                   "model.family")
       ->check(CLI::IsMember({"neural", "polynomial", "auto"}));
-  cmd->add_option("--degree", args->degree, "polynomial degree 1 to 6, or auto (2 to 4, chosen on the validation "
+  cmd->add_option("--degree", args->degree, "polynomial degree 1 to 6, or auto (2 to 6, chosen on the validation "
                                             "span); default model.degree")
       ->check(CLI::IsMember({"auto", "1", "2", "3", "4", "5", "6"}));
   cmd->callback([args, exit_code] { *exit_code = RunTrain(*args); });
