@@ -15,13 +15,16 @@ import test_plant_feeds as plant
 FEED_AUTO = plant.FEED_NO_DYNAMICS.replace("model: {hidden: [32, 32]}", "model: {hidden: [32, 32], family: auto}")
 
 
-class ModelFamilyTest(unittest.TestCase):
+class PlantRig(unittest.TestCase):
     def setUp(self):
         # The plant-feed tests' Lorenz feed, simulator call and daemon setup.
         self.plant = plant.PlantFeedTest("test_jittered_feeds_flag_a_parameter_change")
         self.plant.setUp()
         self.addCleanup(self.plant.doCleanups)
         self.dir = self.plant.dir
+
+
+class ModelFamilyTest(PlantRig):
 
     def test_auto_serves_the_polynomial_map_on_lorenz_and_says_why(self):
         self.assertIn("family: auto", FEED_AUTO)
@@ -68,14 +71,8 @@ if __name__ == "__main__":
     unittest.main()
 
 
-class OfflineFamilyTest(unittest.TestCase):
+class OfflineFamilyTest(PlantRig):
     """lyapcast train --family and forecast --history, offline on files."""
-
-    def setUp(self):
-        self.plant = plant.PlantFeedTest("test_jittered_feeds_flag_a_parameter_change")
-        self.plant.setUp()
-        self.addCleanup(self.plant.doCleanups)
-        self.dir = self.plant.dir
 
     def test_train_families_and_a_start_fitted_to_history(self):
         lines = self.plant.simulate("offline.csv", "60s")

@@ -9,16 +9,11 @@
 #include <random>
 
 #include "learn/polynomial_map.h"
+#include "learn/learn_test_util.h"
 #include "physics/integrators.h"
 
 namespace lyapcast {
 namespace {
-
-void Lorenz(const double* x, double* dxdt) {  // s = 10, r = 28, b = 8/3 (Sprott 2003)
-  dxdt[0] = 10.0 * (x[1] - x[0]);
-  dxdt[1] = x[0] * (28.0 - x[2]) - x[1];
-  dxdt[2] = x[0] * x[1] - 8.0 / 3.0 * x[2];
-}
 
 // The Euler map of Lorenz-63 at dt, as an exact polynomial map (degree 2,
 // fitted without noise: see polynomial_map_test.cpp), and a trajectory of it.
@@ -29,12 +24,12 @@ struct Rig {
   Eigen::VectorXd std;
 
   Rig() {
-    Eigen::VectorXd x = IntegrateRk4(Lorenz, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
+    Eigen::VectorXd x = IntegrateRk4(testing::Lorenz63, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
     traj.resize(3, 4001);
     for (int i = 0; i <= 4000; ++i) {
       traj.col(i) = x;
       Eigen::Vector3d f;
-      Lorenz(x.data(), f.data());
+      testing::Lorenz63(x.data(), f.data());
       x += kDt * f;
     }
     const Eigen::VectorXd mean = traj.rowwise().mean();

@@ -31,6 +31,14 @@ inline Eigen::VectorXd RandomVector(Eigen::Index n, std::uint64_t seed, double l
   return RandomMatrix(n, 1, seed, lo, hi);
 }
 
+// Lorenz-63 with s = 10, r = 28, b = 8/3 (Sprott 2003), as a right-hand
+// side for physics/integrators.h.
+inline void Lorenz63(const double* x, double* dxdt) {
+  dxdt[0] = 10.0 * (x[1] - x[0]);
+  dxdt[1] = x[0] * (28.0 - x[2]) - x[1];
+  dxdt[2] = x[0] * x[1] - 8.0 / 3.0 * x[2];
+}
+
 // MSE = mean((Y - target)^2) over all elements; dY = 2 (Y - target) / n.
 inline double MseLoss(const Eigen::MatrixXd& Y, const Eigen::MatrixXd& target, Eigen::MatrixXd* dY = nullptr) {
   const double n = static_cast<double>(Y.size());

@@ -11,18 +11,13 @@
 
 #include "learn/least_squares.h"
 #include "learn/polynomial_map.h"
+#include "learn/learn_test_util.h"
 #include "physics/integrators.h"
 #include "support/python_reference.h"
 #include "support/temp_dir.h"
 
 namespace lyapcast {
 namespace {
-
-void Lorenz(const double* x, double* dxdt) {  // s = 10, r = 28, b = 8/3 (Sprott 2003)
-  dxdt[0] = 10.0 * (x[1] - x[0]);
-  dxdt[1] = x[0] * (28.0 - x[2]) - x[1];
-  dxdt[2] = x[0] * x[1] - 8.0 / 3.0 * x[2];
-}
 
 void Put(std::ostream& out, const char* key, const Eigen::MatrixXd& m) {
   out << key;
@@ -35,11 +30,11 @@ void Put(std::ostream& out, const char* key, const Eigen::MatrixXd& m) {
 TEST(LeastSquaresReference, RidgeSolveEqualsNumpyLstsq) {
   const double dt = 0.01;
   const int n = 1500;
-  Eigen::VectorXd x = IntegrateRk4(Lorenz, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
+  Eigen::VectorXd x = IntegrateRk4(testing::Lorenz63, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
   Eigen::MatrixXd X(3, n), Xn(3, n);
   for (int i = 0; i < n; ++i) {
     X.col(i) = x;
-    Rk4Step(Lorenz, x, dt);
+    Rk4Step(testing::Lorenz63, x, dt);
     Xn.col(i) = x;
   }
   auto features = PolynomialFeatures::Create(3, 4);

@@ -15,26 +15,19 @@ namespace {
 
 using testing::RandomMatrix;
 
-// Lorenz-63, s = 10, r = 28, b = 8/3 (Sprott 2003).
-void Lorenz(const double* x, double* dxdt) {
-  dxdt[0] = 10.0 * (x[1] - x[0]);
-  dxdt[1] = x[0] * (28.0 - x[2]) - x[1];
-  dxdt[2] = x[0] * x[1] - 8.0 / 3.0 * x[2];
-}
-
 // n + 1 states one step apart, on the attractor; `euler` uses x + dt f(x)
 // (a polynomial of degree 2) instead of RK4.
 Eigen::MatrixXd Trajectory(int n, double dt, bool euler) {
-  Eigen::VectorXd x = IntegrateRk4(Lorenz, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
+  Eigen::VectorXd x = IntegrateRk4(testing::Lorenz63, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
   Eigen::MatrixXd out(3, n + 1);
   out.col(0) = x;
   for (int i = 1; i <= n; ++i) {
     if (euler) {
       Eigen::Vector3d f;
-      Lorenz(x.data(), f.data());
+      testing::Lorenz63(x.data(), f.data());
       x += dt * f;
     } else {
-      Rk4Step(Lorenz, x, dt);
+      Rk4Step(testing::Lorenz63, x, dt);
     }
     out.col(i) = x;
   }
