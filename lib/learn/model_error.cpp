@@ -23,6 +23,7 @@ std::vector<double> ModelOneStepError(const ForecastModel& model, const GridSeri
   for (const Trajectory& t : trajectories) {
     const auto start = static_cast<std::size_t>(t.start);
     if (grid.size() == 0) break;
+    if (start >= grid.size() || !grid.complete(start)) continue;  // trajectories start from complete states
     const std::size_t last = std::min(start + static_cast<std::size_t>(std::max(t.horizon, 0)), grid.size() - 1);
     std::size_t target = 0;
     for (std::size_t j = start + 1; j <= last && target == 0; ++j) {
@@ -46,6 +47,45 @@ std::vector<double> ModelOneStepError(const ForecastModel& model, const GridSeri
   for (std::size_t k = 0; k < out.size(); ++k) {
     out[k] = count[k] > 0 ? std::sqrt(sum[k] / count[k]) : std::numeric_limits<double>::quiet_NaN();
   }
+  return out;
+}
+
+ValidSteps ModelValidSteps(const ForecastModel& model, const GridSeries& grid, std::size_t begin, std::size_t end,
+                           const Eigen::VectorXd& scale, int max_starts, int max_steps, double threshold) {
+  ValidSteps out;
+  end = std::min(end, grid.size());
+  if (begin + 1 >= end || max_starts < 1) return out;
+  const int c = grid.channels;
+  const std::size_t span = end - begin;
+  const std::size_t stride = std::max<std::size_t>(span / static_cast<std::size_t>(max_starts), 1);
+  auto scratch = model.NewScratch();
+  Eigen::VectorXd x(c), y(c);
+  double total = 0;
+  for (std::size_t s = begin; s + 1 < end && out.starts < max_starts; s += stride) {
+    if (!grid.complete(s)) continue;
+    const std::size_t stop = std::min(end, grid.segment_end(s));
+    x = Eigen::Map<const Eigen::VectorXd>(grid.row(s), c);
+    int valid = 0;
+    bool failed = false;
+    for (std::size_t k = s + 1; k < stop && valid < max_steps; ++k) {
+      model.Step(x, &y, *scratch);
+      x = y;
+      if (grid.complete(k) && grid.target_missing(k) == 0) {
+        const double e = std::sqrt(
+            ((x - Eigen::Map<const Eigen::VectorXd>(grid.row(k), c)).cwiseQuotient(scale)).squaredNorm() / c);
+        if (!(e <= threshold)) {  // NaN fails too
+          failed = true;
+          break;
+        }
+      }
+      ++valid;
+    }
+    if (valid == 0 && !failed && s + 1 >= stop) continue;  // no room after this start
+    ++out.starts;
+    out.capped += failed ? 0 : 1;
+    total += valid;
+  }
+  out.mean = out.starts > 0 ? total / out.starts : 0.0;
   return out;
 }
 

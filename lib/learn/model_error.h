@@ -23,4 +23,23 @@ std::vector<double> ModelOneStepError(const ForecastModel& model, const GridSeri
                                       const std::vector<Trajectory>& trajectories,
                                       const Eigen::VectorXd* scale = nullptr);
 
+// Multi-step skill on held-out data, in the manner of the valid prediction
+// time (the time until the normalized error first exceeds a threshold;
+// Vlachas et al., Neural Networks 126 (2020) 191): from each of up to
+// `max_starts` complete grid states evenly spread over [begin, end), the
+// model runs free, and each later grid point of the same segment (before
+// `end`) whose channels are all present is compared with the run; the
+// count of model steps until sqrt(mean_c ((run_c - value_c) / scale_c)^2)
+// first exceeds `threshold` is that start's score (the steps to the end of
+// the data or to max_steps when it never does). One-step error cannot
+// separate two models at the noise floor of noisy data; this can.
+struct ValidSteps {
+  double mean = 0;     // mean over starts of the valid steps
+  int starts = 0;      // starts scored
+  int capped = 0;      // starts whose run stayed valid to the end of their data or max_steps
+};
+ValidSteps ModelValidSteps(const ForecastModel& model, const GridSeries& grid, std::size_t begin, std::size_t end,
+                           const Eigen::VectorXd& scale, int max_starts = 50, int max_steps = 5000,
+                           double threshold = 0.5);
+
 }  // namespace lyapcast

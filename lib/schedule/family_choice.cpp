@@ -28,6 +28,12 @@ double SelectionError(const Candidate& c, const RetrainData& data) {
 
 std::string Figure(double e) { return std::isfinite(e) ? fmt::format("{:.3g}", e) : std::string("no fit"); }
 
+// Mean valid steps of free runs over the selection span; -1 for a failed fit.
+double SelectionSteps(const Candidate& c, const RetrainData& data) {
+  if (!c.fit_status.ok() || c.model == nullptr || !data.normalization) return -1;
+  return ModelValidSteps(*c.model, data.grid, data.heldout_begin, data.judge_begin, data.normalization->stddev).mean;
+}
+
 }  // namespace
 
 Result<Candidate> TrainCandidate(const RetrainData& data, const TrainingContext& context) {
@@ -40,9 +46,13 @@ Result<Candidate> TrainCandidate(const RetrainData& data, const TrainingContext&
   if (!polynomial.ok()) return neural;
   const double n = SelectionError(*neural, data);
   const double p = SelectionError(*polynomial, data);
-  const std::string figures = fmt::format("one-step error on {} selection pairs: polynomial {}, neural {}",
-                                          data.selection.size(), Figure(p), Figure(n));
-  if (p < n) {
+  const double n_steps = SelectionSteps(*neural, data);
+  const double p_steps = SelectionSteps(*polynomial, data);
+  const std::string figures =
+      fmt::format("free runs valid for {:.1f} steps (polynomial) vs {:.1f} (neural) on the selection span; "
+                  "one-step error on {} selection pairs: polynomial {}, neural {}",
+                  p_steps, n_steps, data.selection.size(), Figure(p), Figure(n));
+  if (p_steps > n_steps || (p_steps == n_steps && p < n)) {
     polynomial->family_choice = "polynomial map chosen (" + figures + ")";
     // The neural fit's figures stay in the log; the record describes what is stored.
     return polynomial;

@@ -2,12 +2,17 @@
 // "Model families"):
 //   neural      the training strategy's neural flow map (training_strategy.h);
 //   polynomial  the polynomial map (polynomial_training.h);
-//   auto        both; the one with the lower one-step error on the selection
-//               pairs (the held-out half each fit may choose on; the same
-//               pairs and the data's channel scale for both) becomes the
-//               candidate, and Candidate::family_choice says so with both
-//               figures. A family whose fit fails loses; if both fail, the
-//               neural candidate is returned with its failure.
+//   auto        both; the one whose free runs stay valid longer on the
+//               selection span (the held-out half each fit may choose on;
+//               ModelValidSteps, the data's channel scale, threshold 0.5)
+//               becomes the candidate, the lower one-step error on the
+//               selection pairs breaking a tie; Candidate::family_choice
+//               says so with the figures of both. Multi-step, because on
+//               noisy data both families sit at the noise floor of the
+//               one-step error while their forecasts differ (measured in
+//               the skill benchmark: docs/performance.md). A family whose
+//               fit fails loses; if both fail, the neural candidate is
+//               returned with its failure.
 // The judge then compares the candidate with the active model as always,
 // whatever either's family.
 //

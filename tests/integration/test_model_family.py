@@ -39,7 +39,7 @@ class ModelFamilyTest(PlantRig):
             # Clean Lorenz-63 at 10 ms: the exact polynomial fit is far
             # ahead of 400 iterations of the network.
             self.assertEqual(model["family"], "polynomial_map", model)
-            self.assertIn("polynomial map chosen (one-step error on", model["family_reason"])
+            self.assertIn("polynomial map chosen (free runs valid for", model["family_reason"])
             self.assertIn("polynomial degree", model["family_reason"])
             stored = d.sql("SELECT json_extract(details, '$.family'), json_extract(details, '$.family_choice') "
                            "FROM models WHERE status = 'active'")
@@ -84,7 +84,7 @@ class OfflineFamilyTest(PlantRig):
         self.assertIn("(polynomial_map)", out.stdout)
         auto = run_cli("train", "-c", cfg, "--csv", data, "-o", os.path.join(self.dir, "auto.model"), "--family",
                        "auto", "--iterations", "200", "--no-constraints")
-        self.assertRegex(auto.stdout, r"family auto: polynomial map chosen \(one-step validation error on \d+ pairs")
+        self.assertRegex(auto.stdout, r"family auto: polynomial map chosen \(free runs valid for [0-9.]+ steps \(polynomial\) vs [0-9.]+ \(neural\)")
         bad = run_cli("train", "-c", cfg, "--csv", data, "-o", model, "--family", "spline", code=2)
         self.assertIn("--family", bad.stderr)
         # A start fitted to 31 rows (0.3 s, one value missing): the command

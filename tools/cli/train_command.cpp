@@ -235,11 +235,17 @@ int RunTrain(const TrainArgs& a) {
   if (family == ModelFamily::kAuto && chosen != nullptr) {
     // Both on the same pairs and scale: the polynomial fit's validation
     // pairs (one step, both states complete) and the data's channel std.
+    // As the daemon chooses (schedule/family_choice.h): the longer valid
+    // free runs over the validation span, the one-step error breaking a tie.
     const OneStepPairs v = OneStepPairsOf(grid, set.validation);
     const double neural_error = PairError(*neural, v, norm->stddev);
-    const bool poly_wins = chosen_error < neural_error;
-    std::printf("family auto: %s map chosen (one-step validation error on %zu pairs: polynomial %.3e, neural %.3e)\n",
-                poly_wins ? "polynomial" : "neural flow", v.size(), chosen_error, neural_error);
+    const double poly_steps = ModelValidSteps(*chosen, grid, set.validation_begin, grid.size(), norm->stddev).mean;
+    const double neural_steps = ModelValidSteps(*neural, grid, set.validation_begin, grid.size(), norm->stddev).mean;
+    const bool poly_wins = poly_steps > neural_steps || (poly_steps == neural_steps && chosen_error < neural_error);
+    std::printf("family auto: %s map chosen (free runs valid for %.1f steps (polynomial) vs %.1f (neural) on the "
+                "validation span; one-step validation error on %zu pairs: polynomial %.3e, neural %.3e)\n",
+                poly_wins ? "polynomial" : "neural flow", poly_steps, neural_steps, v.size(), chosen_error,
+                neural_error);
     if (poly_wins) return WriteModel(a, chosen, chosen_error, std::move(contents));
   }
   contents.metadata.emplace_back("iterations", std::to_string(fit->iterations));
@@ -251,7 +257,7 @@ int RunTrain(const TrainArgs& a) {
 void AddTrainCommand(CLI::App& app, int* exit_code) {
   auto args = std::make_shared<TrainArgs>();
   CLI::App* cmd = app.add_subcommand("train", "Fit a feed's flow map to a file of samples and write a model file");
-  cmd->footer("Fit a feed's one-step map to a file of samples (ingest-format CSV or NDJSON lines, e.g. from `lyapcast simulate`)\nand write a model file. Settings default to the feed's model and retrain sections; the newest\nretrain.validation fraction of the data is held out and reported.\nFamilies (--family, default model.family): neural (the flow-map network, trained by AdamW),\npolynomial (a ridge regression of the one-step increment on monomials of the state, solved\nexactly; degree and penalty chosen on the held-out span), auto (both; the lower one-step\nerror on the held-out span is written).\nExamples:\n  lyapcast train --config config/demo.yaml --feed loop-a --csv loop.csv --out loop-a.model\n  lyapcast train --config config/demo.yaml --feed loop-a --csv loop.csv --out loop-a.model --family auto");
+  cmd->footer("Fit a feed's one-step map to a file of samples (ingest-format CSV or NDJSON lines, e.g. from `lyapcast simulate`)\nand write a model file. Settings default to the feed's model and retrain sections; the newest\nretrain.validation fraction of the data is held out and reported.\nFamilies (--family, default model.family): neural (the flow-map network, trained by AdamW),\npolynomial (a ridge regression of the one-step increment on monomials of the state, solved\nexactly; degree and penalty chosen on the held-out span), auto (both; the one whose free runs\nstay valid longer on the held-out span is written).\nExamples:\n  lyapcast train --config config/demo.yaml --feed loop-a --csv loop.csv --out loop-a.model\n  lyapcast train --config config/demo.yaml --feed loop-a --csv loop.csv --out loop-a.model --family auto");
   cmd->add_option("--config,-c", args->config, "config file defining the feed")->required();
   cmd->add_option("--feed", args->feed, "feed id (may be left out when the config has one feed)");
   cmd->add_option("--csv", args->csv, "sample file, '-' for stdin")->required();
@@ -265,7 +271,7 @@ void AddTrainCommand(CLI::App& app, int* exit_code) {
   cmd->add_option("--seed", args->seed, "seed of the initial weights and the batches (default 1)");
   cmd->add_flag("--no-constraints", args->no_constraints, "ignore the feed's dynamics constraints");
   cmd->add_option("--family", args->family,
-                  "neural, polynomial, or auto (both; the lower one-step validation error wins); default "
+                  "neural, polynomial, or auto (both; the longer valid free runs on the validation span win); default "
                   "model.family")
       ->check(CLI::IsMember({"neural", "polynomial", "auto"}));
   cmd->add_option("--degree", args->degree, "polynomial degree 1 to 6, or auto (2 to 6, chosen on the validation "
