@@ -386,7 +386,9 @@ def main():
               f"(spread {spread_:.4f}; {rel * 100:+.1f} %){flag}")
         print(f"  Lyapunov time {lyap_time:.4g}, step {sysm.dt:g} = 1/{lyap_time / sysm.dt:.0f} of it, {n} samples")
         for cond in conditions:
-            res = run_condition(a, sysm, cond, clean, lyap_time, cli, work, si)
+            # The system's place in the full list: a run of a subset draws the same
+            # noise and drops as a full run.
+            res = run_condition(a, sysm, cond, clean, lyap_time, cli, work, list(SYSTEMS).index(name))
             entry["conditions"][cond] = res
             print_condition(name, cond, res)
             sys.stdout.flush()
