@@ -36,10 +36,11 @@ Result<Candidate> TrainPolynomial(const RetrainData& data, const FeedConfig& fee
     out.fit_status = fit.status();
     return out;
   }
-  out.fit.iterations = fit->candidates;
+  out.fit.iterations = 0;  // an exact fit: no optimizer steps
   out.fit.validation_error = fit->validation_error;
   out.model = fit->model;
-  out.family_note = fmt::format("polynomial degree {}, ridge {:g}, {} pairs", fit->degree, fit->ridge, train.size());
+  out.family_note = fmt::format("polynomial degree {}, ridge {:g}, {} pairs, best of {} degree/ridge candidates",
+                                fit->degree, fit->ridge, train.size(), fit->candidates);
   return out;
 }
 

@@ -416,8 +416,11 @@ void Scheduler::FinishJob(const JobStart& start, const JobEstimates& estimates,
         ++f.s.promoted;
         if (o.promoted) f.s.estimates.model = o.promoted->record.lambda_max;
         Log(SchedulerLogLevel::kInfo,
-            fmt::format("feed {}: job {} promoted version {} in {:.1f}s ({} iterations): {}", fc.id, job_id,
-                        o.version.value_or(0), seconds, o.fit.iterations, o.reason));
+            fmt::format("feed {}: job {} promoted version {} in {:.1f}s ({}): {}", fc.id, job_id,
+                        o.version.value_or(0), seconds,
+                        o.fit.iterations > 0 ? fmt::format("{} iterations", o.fit.iterations)
+                                             : std::string("exact fit"),
+                        o.reason));
         break;
       case RetrainVerdict::kRejected:
         ++f.s.rejected;

@@ -192,6 +192,7 @@ TEST(RunRetrain, PolynomialAndAutoFamiliesAreTrainedJudgedStoredAndServed) {
   RetrainDetails details = ParseRetrainDetails(db.ActiveRecord().details);
   EXPECT_EQ(details.family, "polynomial_map");
   EXPECT_NE(details.family_note.find("polynomial degree"), std::string::npos) << details.family_note;
+  EXPECT_EQ(details.iterations, 0) << "an exact fit takes no optimizer steps";
   EXPECT_TRUE(details.family_choice.empty());
   // Stored and decoded again: the same map.
   auto stored = MakeActiveModel(db.ActiveRecord());
