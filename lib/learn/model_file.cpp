@@ -76,6 +76,12 @@ int ChannelsOf(const FlowMap<T>& map) {
 }
 int ChannelsOf(const PolynomialPtr& map) { return map == nullptr ? 0 : map->shape().channels; }
 
+template <typename T>
+double DtOf(const FlowMap<T>& map) {
+  return map.empty() ? 0.0 : map.dt();
+}
+double DtOf(const PolynomialPtr& map) { return map == nullptr ? 0.0 : map->shape().dt; }
+
 void PutStepAndUnit(std::string* out, const ModelFileContents& contents) {
   PutU64(out, static_cast<std::uint64_t>(contents.step_micros.count()));
   PutU64(out, static_cast<std::uint64_t>(contents.time_unit_micros.count()));
@@ -96,6 +102,7 @@ void PutPolynomial(std::string* out, const PolynomialMap& map, const ModelFileCo
   PutU64(out, static_cast<std::uint64_t>(map.readout().size()));
   PutValues(out, map.readout().data(), map.readout().size());
 }
+
 
 template <typename T>
 void PutModel(std::string* out, const FlowMap<T>& map, const std::vector<std::string>& channels) {
@@ -119,6 +126,17 @@ void PutValuesOf(std::string* out, const FlowMap<T>& map) {
   const Eigen::Index p = map.layout().network_size;
   PutU64(out, static_cast<std::uint64_t>(p));
   PutValues(out, map.parameters().data(), p);
+}
+
+// The body up to the metadata, by family.
+template <typename T>
+void PutBody(std::string* out, const FlowMap<T>& map, const ModelFileContents& contents) {
+  PutModel(out, map, contents.channels);
+  PutStepAndUnit(out, contents);
+  PutValuesOf(out, map);
+}
+void PutBody(std::string* out, const PolynomialPtr& map, const ModelFileContents& contents) {
+  PutPolynomial(out, *map, contents);
 }
 
 // ---- reading ---------------------------------------------------------------
@@ -423,24 +441,11 @@ std::uint64_t Fnv1a64(std::string_view bytes) {
 Result<std::string> Serialize(const ModelFileContents& contents) {
   if (Status st = CheckContents(contents); !st.ok()) return st;
   std::string out(kModelFileMagic, sizeof kModelFileMagic);
-  const auto* polynomial = std::get_if<PolynomialPtr>(&contents.model);
   // A neural flow map is written as version 2, which older builds read.
-  PutU32(&out, polynomial != nullptr ? 3 : 2);
+  PutU32(&out, contents.is_neural() ? 2 : 3);
   PutU32(&out, kModelFileHeaderLength);
   PutU64(&out, 0);  // body length, patched below
-  if (polynomial != nullptr) {
-    PutPolynomial(&out, **polynomial, contents);
-  } else {
-    std::visit(
-        [&](const auto& map) {
-          if constexpr (!std::is_same_v<std::decay_t<decltype(map)>, PolynomialPtr>) {
-            PutModel(&out, map, contents.channels);
-            PutStepAndUnit(&out, contents);
-            PutValuesOf(&out, map);
-          }
-        },
-        contents.model);
-  }
+  std::visit([&](const auto& map) { PutBody(&out, map, contents); }, contents.model);
   PutU32(&out, static_cast<std::uint32_t>(contents.metadata.size()));
   for (const auto& [key, value] : contents.metadata) {
     PutStr(&out, key);
@@ -602,16 +607,7 @@ Result<std::shared_ptr<const ForecastModel>> MakeForecastModel(const ModelFileCo
 }
 
 double ModelFileContents::dt() const {
-  if (const auto* p = std::get_if<PolynomialPtr>(&model)) return *p ? (*p)->shape().dt : 0.0;
-  return std::visit(
-      [](const auto& map) -> double {
-        if constexpr (std::is_same_v<std::decay_t<decltype(map)>, PolynomialPtr>) {
-          return 0.0;  // handled above
-        } else {
-          return map.empty() ? 0.0 : map.dt();
-        }
-      },
-      model);
+  return std::visit([](const auto& map) { return DtOf(map); }, model);
 }
 
 Status SetFileModel(const std::shared_ptr<const ForecastModel>& model, ModelFileContents* contents) {
