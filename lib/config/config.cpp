@@ -319,7 +319,7 @@ DynamicsConfig ReadDynamics(const Value& v, const std::vector<std::string>& chan
 }
 
 ModelConfig ReadModel(const Value& v) {
-  const MapReader m = v.Map({"family", "degree", "hidden", "activation", "rollout", "max_gap"});
+  const MapReader m = v.Map({"family", "degree", "denoise", "hidden", "activation", "rollout", "max_gap"});
   ModelConfig c;
   if (auto x = m.Get("family")) {
     const char* const allowed = "neural, polynomial or auto";
@@ -343,6 +343,17 @@ ModelConfig ReadModel(const Value& v) {
       c.degrees = {2, 3, 4, 5, 6};
     } else if (ec == std::errc() && end == text.data() + text.size() && degree >= 1 && degree <= 6) {
       c.degrees = {degree};
+    } else {
+      x->FailMustBe(allowed);
+    }
+  }
+  if (auto x = m.Get("denoise")) {
+    const char* const allowed = "auto or off";
+    const std::string d = x->Text(allowed);
+    if (d == "auto") {
+      c.denoise = true;
+    } else if (d == "off") {
+      c.denoise = false;
     } else {
       x->FailMustBe(allowed);
     }

@@ -103,6 +103,11 @@ struct ModelConfig {
   // Polynomial degrees tried (the best on held-out pairs wins); model.degree
   // in the config: one degree, or auto = {2, ..., 6}.
   std::vector<int> degrees = {2, 3, 4, 5, 6};
+  // model.denoise: auto (true) lets the polynomial fit also refit on states
+  // smoothed by its own dynamics and keep that when its free runs on held-out
+  // data last longer (docs/design.md "Fitting through sensor noise"); off
+  // (false) fits the measured states only.
+  bool denoise = true;
   std::vector<int> hidden = {64, 64};  // hidden layer widths
   Activation activation = Activation::kTanh;
   // Unrolled steps trained on contiguous data; longest composition G^k trained

@@ -2,8 +2,10 @@
 
 #include <algorithm>
 #include <cmath>
+#include <iterator>
 #include <limits>
 
+#include "learn/history_fit.h"
 #include "learn/trainer.h"
 
 namespace lyapcast {
@@ -50,8 +52,32 @@ std::vector<double> ModelOneStepError(const ForecastModel& model, const GridSeri
   return out;
 }
 
+namespace {
+
+// The state at grid point s fitted to it and up to `history` points before
+// it in its segment; `measured` when there is no history or the fit fails.
+Eigen::VectorXd FittedStart(const ForecastModel& model, const GridSeries& grid, std::size_t s, int history,
+                            const Eigen::VectorXd& scale, const Eigen::VectorXd& measured) {
+  const std::size_t segment = *std::prev(std::upper_bound(grid.segment_begins.begin(), grid.segment_begins.end(), s));
+  const std::size_t first = s - std::min<std::size_t>(static_cast<std::size_t>(history), s - segment);
+  if (first == s) return measured;
+  const int c = grid.channels;
+  Eigen::MatrixXd obs(c, static_cast<Eigen::Index>(s - first + 1));
+  for (std::size_t i = first; i <= s; ++i) {
+    for (int ch = 0; ch < c; ++ch) {
+      const bool present = grid.present[i] != 0 && ((grid.target_missing(i) >> ch) & 1U) == 0;
+      obs(ch, static_cast<Eigen::Index>(i - first)) = present ? grid.row(i)[ch] : std::nan("");
+    }
+  }
+  auto fit = FitStateToHistory(model, obs, scale);
+  return fit.ok() && fit->start.allFinite() ? fit->start : measured;
+}
+
+}  // namespace
+
 ValidSteps ModelValidSteps(const ForecastModel& model, const GridSeries& grid, std::size_t begin, std::size_t end,
-                           const Eigen::VectorXd& scale, int max_starts, int max_steps, double threshold) {
+                           const Eigen::VectorXd& scale, int max_starts, int max_steps, double threshold,
+                           int history) {
   ValidSteps out;
   end = std::min(end, grid.size());
   if (begin + 1 >= end || max_starts < 1) return out;
@@ -65,6 +91,7 @@ ValidSteps ModelValidSteps(const ForecastModel& model, const GridSeries& grid, s
     if (!grid.complete(s)) continue;
     const std::size_t stop = std::min(end, grid.segment_end(s));
     x = Eigen::Map<const Eigen::VectorXd>(grid.row(s), c);
+    if (history > 0) x = FittedStart(model, grid, s, history, scale, x);
     int valid = 0;
     bool failed = false;
     for (std::size_t k = s + 1; k < stop && valid < max_steps; ++k) {

@@ -33,6 +33,11 @@ std::vector<double> ModelOneStepError(const ForecastModel& model, const GridSeri
 // first exceeds `threshold` is that start's score (the steps to the end of
 // the data or to max_steps when it never does). One-step error cannot
 // separate two models at the noise floor of noisy data; this can.
+// history > 0: each run starts from the state FitStateToHistory
+// (learn/history_fit.h) fits to the start's grid point and the `history`
+// points before it in its segment (missing channels left out), as a
+// forecast whose start is fitted to recent samples; the start's own sample
+// otherwise, or when that fit fails.
 struct ValidSteps {
   double mean = 0;     // mean over starts of the valid steps
   int starts = 0;      // starts scored
@@ -40,6 +45,6 @@ struct ValidSteps {
 };
 ValidSteps ModelValidSteps(const ForecastModel& model, const GridSeries& grid, std::size_t begin, std::size_t end,
                            const Eigen::VectorXd& scale, int max_starts = 50, int max_steps = 5000,
-                           double threshold = 0.5);
+                           double threshold = 0.5, int history = 0);
 
 }  // namespace lyapcast

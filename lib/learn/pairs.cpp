@@ -161,12 +161,12 @@ TrajectorySet BuildTrajectories(const GridSeries& grid, const TrajectoryOptions&
   return out;
 }
 
-namespace {
-
-bool IsPair(const GridSeries& grid, std::size_t i) {
+bool IsOneStepPair(const GridSeries& grid, std::size_t i) {
   return i + 1 < grid.size() && i + 1 < grid.segment_end(i) && grid.complete(i) && grid.complete(i + 1) &&
          grid.target_missing(i + 1) == 0;
 }
+
+namespace {
 
 OneStepPairs Collect(const GridSeries& grid, const std::vector<std::size_t>& starts) {
   OneStepPairs p;
@@ -185,7 +185,7 @@ OneStepPairs Collect(const GridSeries& grid, const std::vector<std::size_t>& sta
 OneStepPairs OneStepPairsIn(const GridSeries& grid, std::size_t begin, std::size_t end) {
   std::vector<std::size_t> starts;
   for (std::size_t i = begin; i + 1 < std::min(end, grid.size()); ++i) {
-    if (IsPair(grid, i)) starts.push_back(i);
+    if (IsOneStepPair(grid, i)) starts.push_back(i);
   }
   return Collect(grid, starts);
 }
@@ -194,7 +194,7 @@ OneStepPairs OneStepPairsOf(const GridSeries& grid, const std::vector<Trajectory
   std::vector<std::size_t> starts;
   for (const Trajectory& t : trajectories) {
     const auto i = static_cast<std::size_t>(t.start);
-    if (t.horizon >= 1 && IsPair(grid, i)) starts.push_back(i);
+    if (t.horizon >= 1 && IsOneStepPair(grid, i)) starts.push_back(i);
   }
   return Collect(grid, starts);
 }

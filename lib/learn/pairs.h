@@ -106,6 +106,8 @@ struct OneStepPairs {
   std::size_t size() const { return static_cast<std::size_t>(from.cols()); }
 };
 
+// Whether grid points i, i + 1 form such a pair.
+bool IsOneStepPair(const GridSeries& grid, std::size_t i);
 // Every such pair with begin <= i and i + 1 < end.
 OneStepPairs OneStepPairsIn(const GridSeries& grid, std::size_t begin, std::size_t end);
 // The first step of each given trajectory, where it is such a pair.

@@ -5,6 +5,7 @@
 #include <chrono>
 
 #include "learn/polynomial_map.h"
+#include "learn/smoothed_refit.h"
 
 namespace lyapcast {
 
@@ -31,16 +32,33 @@ Result<Candidate> TrainPolynomial(const RetrainData& data, const FeedConfig& fee
   options.degrees = feed.model.degrees;
   auto fit = FitPolynomialMap(data.dt, n.mean, n.stddev, n.increment_scale, train.from, train.to, selection.from,
                               selection.to, options);
-  out.fit.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   if (!fit.ok()) {
+    out.fit.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
     out.fit_status = fit.status();
     return out;
   }
+  PolynomialFit chosen = std::move(fit).value();
+  std::string smoothing;
+  if (feed.model.denoise) {
+    // Scored on the selection span, which the fit may choose on; the judge
+    // span stays unseen.
+    SmoothedRefitOptions smooth;
+    smooth.max_gap = feed.model.max_gap;
+    auto refit = RefitOnSmoothedStates(chosen, data.grid, data.heldout_begin, data.dt, n, selection,
+                                       data.heldout_begin, data.judge_begin, smooth);
+    if (!refit.ok()) {
+      out.fit_status = refit.status();
+      return out;
+    }
+    chosen = std::move(refit->fit);
+    smoothing = "; " + refit->Note();
+  }
+  out.fit.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   out.fit.iterations = 0;  // an exact fit: no optimizer steps
-  out.fit.validation_error = fit->validation_error;
-  out.model = fit->model;
-  out.family_note = fmt::format("polynomial degree {}, ridge {:g}, {} pairs, best of {} degree/ridge candidates",
-                                fit->degree, fit->ridge, train.size(), fit->candidates);
+  out.fit.validation_error = chosen.validation_error;
+  out.model = chosen.model;
+  out.family_note = fmt::format("polynomial degree {}, ridge {:g}, {} pairs, best of {} degree/ridge candidates{}",
+                                chosen.degree, chosen.ridge, train.size(), chosen.candidates, smoothing);
   return out;
 }
 

@@ -8,6 +8,9 @@
 // newest chunk the neural fit trains on. The degree and the ridge penalty
 // are chosen on the selection half of the held-out data (one-step pairs of
 // data.selection); the judge half stays unseen, as for every candidate.
+// With model.denoise auto the fit is then refitted on states smoothed by its
+// own dynamics (learn/smoothed_refit.h), scored by free runs on the
+// selection span; the family note says which was kept and why.
 //
 // Pure functions; thread-safe.
 #pragma once

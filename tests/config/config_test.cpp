@@ -135,6 +135,7 @@ TEST(ConfigDefaults, MinimalStringGetsEveryDefault) {
   EXPECT_EQ(f.model.activation, Activation::kTanh);
   EXPECT_EQ(f.model.family, ModelFamily::kNeural);
   EXPECT_EQ(f.model.degrees, (std::vector<int>{2, 3, 4, 5, 6}));
+  EXPECT_TRUE(f.model.denoise);
   EXPECT_EQ(f.model.rollout, 4);
   EXPECT_EQ(f.model.max_gap, 8);
   EXPECT_DOUBLE_EQ(f.retrain.lyapunov_fraction, 0.5);
@@ -181,7 +182,7 @@ feeds:
       equations: {B2: "-_a", _a: "k*B2"}
       constants: {k: -1.5e-2}
       constraints: [{kind: residual, weight: 0, anneal: {mid: 1, width: 0.5}}]
-    model: {family: auto, degree: 3, hidden: [8], activation: silu, rollout: 1, max_gap: 2}
+    model: {family: auto, degree: 3, denoise: off, hidden: [8], activation: silu, rollout: 1, max_gap: 2}
     retrain: {lyapunov_fraction: 2, min_interval: 0s, max_interval: 1m, min_pairs: 1,
               replay: 0, validation: 0.5, iterations: 1, batch: 1, learning_rate: 0.1,
               weight_decay: 1e-4, clip: 3, time_budget: 2m, promote_tolerance: 0}
@@ -228,6 +229,7 @@ feeds:
   EXPECT_DOUBLE_EQ(f.dynamics->constraints[0].anneal.width, 0.5);
   EXPECT_EQ(f.model.family, ModelFamily::kAuto);
   EXPECT_EQ(f.model.degrees, (std::vector<int>{3}));
+  EXPECT_FALSE(f.model.denoise);
   EXPECT_EQ(f.model.hidden, (std::vector<int>{8}));
   EXPECT_EQ(f.model.activation, Activation::kSilu);
   EXPECT_EQ(f.model.rollout, 1);
@@ -470,6 +472,8 @@ INSTANTIATE_TEST_SUITE_P(
                   "must be neural, polynomial or auto; got 'spline'"},
         RangeCase{"degree", FeedWith("    model: {degree: 7}\n"), 4, "feeds[0].model.degree",
                   "must be auto or a polynomial degree from 1 to 6; got '7'"},
+        RangeCase{"denoise", FeedWith("    model: {denoise: yes}\n"), 4, "feeds[0].model.denoise",
+                  "must be auto or off; got 'yes'"},
         RangeCase{"degree_text", FeedWith("    model: {degree: high}\n"), 4, "feeds[0].model.degree",
                   "must be auto or a polynomial degree from 1 to 6; got 'high'"},
         RangeCase{"max_gap", FeedWith("    model: {max_gap: 0}\n"), 4, "feeds[0].model.max_gap", "an integer >= 1"},

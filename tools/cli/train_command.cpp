@@ -15,6 +15,7 @@
 #include "learn/model_file.h"
 #include "learn/pairs.h"
 #include "learn/polynomial_map.h"
+#include "learn/smoothed_refit.h"
 #include "learn/trainer.h"
 #include "physics/dynamics.h"
 
@@ -64,6 +65,15 @@ Result<PolynomialFit> FitPolynomialFamily(const FeedConfig& feed, const GridSeri
   auto fit = FitPolynomialMap(dt, norm.mean, norm.stddev, norm.increment_scale, train.from, train.to,
                               validation.from, validation.to, options);
   if (!fit.ok()) return fit.status();
+  if (feed.model.denoise) {
+    SmoothedRefitOptions smooth;
+    smooth.max_gap = feed.model.max_gap;
+    auto refit = RefitOnSmoothedStates(std::move(fit).value(), grid, set.validation_begin, dt, norm, validation,
+                                       set.validation_begin, grid.size(), smooth);
+    if (!refit.ok()) return refit.status();
+    std::printf("polynomial map: %s\n", refit->Note().c_str());
+    fit = std::move(refit->fit);
+  }
   const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   std::printf("polynomial map: degree %d, ridge %g chosen of %d candidates on %zu training and %zu validation "
               "pairs in %.2f s\n",
