@@ -4,6 +4,7 @@
 // the predictability horizon and the staleness figures (docs/http-api.md "Forecast").
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cmath>
 #include <iterator>
 
@@ -11,6 +12,8 @@
 #include "api_routes.h"
 #include "api_store.h"
 #include "core/wall_clock.h"
+#include "learn/alignment.h"
+#include "learn/history_fit.h"
 #include "runtime/feed_runtime.h"
 
 namespace lyapcast::api {
@@ -19,6 +22,7 @@ namespace {
 constexpr std::int64_t kMaxSteps = 100'000;
 constexpr std::int64_t kDefaultSteps = 100;
 constexpr int kFromLookbackSteps = 10;  // from=T uses a complete sample at most this many steps before T
+constexpr std::int64_t kMaxHistory = 1000;  // history=N: at most this many steps before the start
 
 std::string CsvNumber(double v) { return std::isfinite(v) ? fmt::format("{:.9g}", v) : ""; }
 
@@ -77,6 +81,7 @@ struct ForecastParams {
   std::int64_t steps = kDefaultSteps;
   bool csv = false;
   std::optional<DataTime> from;  // none: the newest sample, estimated (StartSample)
+  std::int64_t history = 0;      // > 0: the start fitted to this many steps before it (FitStart)
 };
 
 // steps | horizon, format, from; checked before the model so a bad
@@ -97,6 +102,9 @@ std::optional<HttpResponse> ParseParams(const FeedConfig& fc, const HttpRequest&
     if (!from.ok()) return FromStatus(from.status());
     p->from = *from;
   }
+  auto history = IntParam(req, "history", 0, kMaxHistory);
+  if (!history.ok()) return FromStatus(history.status());
+  p->history = history->value_or(0);
   p->steps = steps->value_or(kDefaultSteps);
   if (*horizon) {
     p->steps = (**horizon + fc.step - Micros(1)) / fc.step;
@@ -156,8 +164,63 @@ std::optional<HttpResponse> StartSample(const ApiContext& c, std::uint32_t feed,
   return Error(409, "no-data", fmt::format("feed {} has no complete sample to start from", fc.id));
 }
 
+// history=N: the start replaced by the state the model's trajectory passes
+// through while staying closest to the stored samples of the N steps before
+// it and the start's own measured channels (FitStateToHistory,
+// learn/history_fit.h; docs/design.md "Forecast start"). Each grid point
+// k = 0..N at start.t - (N - k) * step is formed by the alignment rule,
+// carried values left out. Returns the response's start_fit object; on a
+// fit that cannot be made the start stays as it was and start_fit says why.
+json FitStart(const ApiContext& c, std::uint32_t feed, std::int64_t history, const ForecastModel& model,
+              Sample* start) {
+  const FeedConfig& fc = c.config->feeds[feed];
+  const int channels = static_cast<int>(fc.channels.size());
+  const AlignmentOptions align(fc.step, Micros{}, Micros{}, fc.hold);
+  const Micros reach = std::max(align.max_span_or_default(), align.longest_hold());
+  auto read = c.store->ReadSamples(feed, start->t - history * fc.step - reach, start->t + Micros(1),
+                                   static_cast<int>(std::min<std::int64_t>(100 * (history + 2), 100'000)));  // dense feeds: several samples a step
+  json out = {{"history_steps", history}};
+  if (!read.ok()) {
+    out["used"] = false;
+    out["reason"] = read.status().message();
+    return out;
+  }
+  std::vector<Sample>& samples = read->samples;
+  // The start itself (its estimated channels are not measurements).
+  if (samples.empty() || samples.back().t != start->t) {
+    out["used"] = false;
+    out["reason"] = "the start is not a stored sample";
+    return out;
+  }
+  Eigen::MatrixXd obs(channels, history + 1);
+  std::vector<double> row(static_cast<std::size_t>(channels));
+  for (std::int64_t k = 0; k <= history; ++k) {
+    std::uint64_t carried = 0;
+    const std::uint64_t missing =
+        StateAt(samples, start->t - (history - k) * fc.step, channels, align, row.data(), &carried);
+    for (int ch = 0; ch < channels; ++ch) {
+      const bool absent = ((missing | carried) >> ch) & 1U;
+      obs(ch, static_cast<Eigen::Index>(k)) = absent ? std::nan("") : row[static_cast<std::size_t>(ch)];
+    }
+  }
+  auto fit = FitStateToHistory(model, obs, model.error_scale());
+  if (!fit.ok() || !fit->start.allFinite()) {
+    out["used"] = false;
+    out["reason"] = fit.ok() ? std::string("the fitted start is not finite") : fit.status().message();
+    return out;
+  }
+  for (int ch = 0; ch < channels; ++ch) start->values[static_cast<std::size_t>(ch)] = fit->start[ch];
+  out["used"] = true;
+  out["measurements"] = fit->observations;
+  out["rms_before"] = fit->rms_before;
+  out["rms_after"] = fit->rms_after;
+  out["iterations"] = fit->iterations;
+  return out;
+}
+
 // Everything of the JSON body but the points, in the document's order.
-json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& served, json estimated) {
+json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& served, json estimated,
+              json start_fit) {
   json lyapunov = nullptr;
   if (view.exponent) {
     lyapunov = {{"per_s", view.exponent->lambda_max},
@@ -181,6 +244,7 @@ json HeadJson(const FeedConfig& fc, const FeedView& view, const ServedForecast& 
               {"from", TimeJson(f.from)},
               {"start", std::move(start_values)},
               {"estimated", std::move(estimated)},
+              {"start_fit", std::move(start_fit)},
               {"lyapunov", std::move(lyapunov)},
               {"horizon", std::move(horizon)},
               {"staleness", StalenessJson(view)},
@@ -203,6 +267,12 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
   json estimated = json::array();
   std::shared_ptr<const ActiveModel> model;  // the version that predicted part of the start, if any
   if (auto none = StartSample(c, feed, params.from, &start, &estimated, &model)) return *none;
+  json start_fit = nullptr;
+  if (params.history > 0) {
+    // One version fits the start and runs the forecast.
+    if (!model) model = c.scheduler->active(feed);
+    start_fit = FitStart(c, feed, params.history, *model->model, &start);
+  }
 
   const FeedView view = ViewFeed(c, feed, WallNow());
   // Predictability horizon from the exponent the cadence paces by.
@@ -218,7 +288,7 @@ HttpResponse Forecast(const ApiContext& c, std::uint32_t feed, const HttpRequest
     return r;
   }
   r.status = 200;
-  r.body = JsonBody(HeadJson(fc, view, *served, std::move(estimated)), served->forecast);
+  r.body = JsonBody(HeadJson(fc, view, *served, std::move(estimated), std::move(start_fit)), served->forecast);
   return r;
 }
 

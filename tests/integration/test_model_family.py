@@ -57,6 +57,21 @@ class ModelFamilyTest(PlantRig):
             code, fc = d.http_get("/v1/feeds/lorenz/forecast?horizon=2s")
             self.assertEqual(code, 200, fc)
             self.assertEqual(fc["model_version"], model["version"])
+            self.assertIsNone(fc["start_fit"])
+            # history=N: the start fitted to the N steps of samples before
+            # it; the model's trajectory misfit can only go down.
+            code, fitted = d.http_get("/v1/feeds/lorenz/forecast?horizon=2s&history=20")
+            self.assertEqual(code, 200, fitted)
+            fit = fitted["start_fit"]
+            self.assertTrue(fit["used"], fit)
+            self.assertEqual(fit["history_steps"], 20)
+            self.assertGreaterEqual(fit["measurements"], 3 * 15, fit)
+            self.assertLessEqual(fit["rms_after"], fit["rms_before"] + 1e-12, fit)
+            self.assertEqual(len(fitted["start"]), 3)
+            for bad in ("-1", "1001", "x"):
+                code, err = d.http_get(f"/v1/feeds/lorenz/forecast?history={bad}")
+                self.assertEqual(code, 400, err)
+                self.assertIn("history", str(err))
             self.assertAlmostEqual(model["lyapunov_per_s"], 0.9056, delta=0.09)
             out = run_cli("status", "--url", url, "--feed", "lorenz")
             self.assertIn("family    polynomial_map: polynomial map chosen", out.stdout)
