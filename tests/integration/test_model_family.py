@@ -72,6 +72,11 @@ class ModelFamilyTest(PlantRig):
                 code, err = d.http_get(f"/v1/feeds/lorenz/forecast?history={bad}")
                 self.assertEqual(code, 400, err)
                 self.assertIn("history", str(err))
+            # The CLI's remote form asks for it and says how well it fitted.
+            out = run_cli("forecast", "--feed", "lorenz", "--url", url, "--steps", "3", "--history", "20")
+            self.assertIn("start fitted to 20 steps of history", out.stdout)
+            bad = run_cli("forecast", "--feed", "lorenz", "--url", url, "--history", "many", code=2)
+            self.assertIn("--history 'many'", bad.stderr)
             self.assertAlmostEqual(model["lyapunov_per_s"], 0.9056, delta=0.09)
             out = run_cli("status", "--url", url, "--feed", "lorenz")
             self.assertIn("family    polynomial_map: polynomial map chosen", out.stdout)

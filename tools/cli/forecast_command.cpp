@@ -9,6 +9,7 @@
 #include <fmt/format.h>
 
 #include <algorithm>
+#include <charconv>
 #include <cmath>
 #include <cstdio>
 #include <fstream>
@@ -196,6 +197,15 @@ void PrintForecastTable(const json& f) {
       std::printf(" (%s Lyapunov times)", Num(lt).c_str());
     std::printf("\n");
   }
+  if (const json* fit = Field(f, "start_fit"); fit != nullptr && fit->is_object()) {
+    if (Bool(Field(*fit, "used")).value_or(false)) {
+      std::printf("start fitted to %s steps of history (%s values): misfit RMS %s of the channel std (from %s)\n",
+                  Num(Number(Field(*fit, "history_steps"))).c_str(), Num(Number(Field(*fit, "measurements"))).c_str(),
+                  Num(Number(Field(*fit, "rms_after"))).c_str(), Num(Number(Field(*fit, "rms_before"))).c_str());
+    } else {
+      std::printf("start not fitted to history: %s\n", Text(Field(*fit, "reason")).c_str());
+    }
+  }
   const std::string advisory = Text(Field(f, "advisory"));
   std::printf("%s\n\n", advisory.empty() ? "Forecasts are advisory." : advisory.c_str());
 
@@ -284,6 +294,18 @@ int RunRemoteForecast(const ForecastArgs& a) {
     query = "horizon=" + UrlEncode(a.horizon);
   }
   if (!a.from.empty()) query += (query.empty() ? "" : "&") + std::string("from=") + UrlEncode(a.from);
+  if (!a.history.empty()) {
+    // --feed: a number of steps (the daemon reads the samples itself).
+    int history = 0;
+    const auto [end, ec] = std::from_chars(a.history.data(), a.history.data() + a.history.size(), history);
+    if (ec != std::errc() || end != a.history.data() + a.history.size() || history < 0 || history > 1000) {
+      return PrintError(kCmd, fmt::format("--history '{}': with --feed, a number of model steps from 0 to 1000 (the "
+                                          "start is fitted to the stored samples of that many steps before it)",
+                                          a.history)),
+             kExitUsage;
+    }
+    query += (query.empty() ? "" : "&") + fmt::format("history={}", history);
+  }
   if (a.csv) query += (query.empty() ? "" : "&") + std::string("format=csv");
   const std::string target = *path + "/forecast" + (query.empty() ? "" : "?" + query);
 
@@ -314,7 +336,8 @@ void AddForecastCommand(CLI::App& app, int* exit_code) {
           "  --feed ID     ask a running daemon: a forecast from the feed's newest complete sample (or the sample at\n"
           "                data time --from T), --steps N model steps (default 100) or --horizon D of data time, with\n"
           "                the predictability horizon; rows past it are marked *. --csv and --json print the\n"
-          "                daemon's CSV (time,<channels>,beyond_horizon) or JSON.\n"
+          "                daemon's CSV (time,<channels>,beyond_horizon) or JSON. --history N fits the start to\n"
+          "                the stored samples of the N model steps before it (noisy sensors; see below).\n"
           "  --model FILE  offline: iterate a model file's flow map from --from STATE (one number per channel)\n"
           "                and print CSV (step, time, channels); time is seconds after the start, or absolute\n"
           "                epoch seconds with --start. (`lyapcast train` writes model files, and so does\n"
@@ -327,6 +350,7 @@ void AddForecastCommand(CLI::App& app, int* exit_code) {
           "Examples:\n"
           "  lyapcast forecast --feed loop-a --horizon 30s\n"
           "  lyapcast forecast --feed loop-a --steps 200 --from 2026-01-01T00:20:00Z --csv > f.csv\n"
+          "  lyapcast forecast --feed loop-a --horizon 30s --history 20\n"
           "  lyapcast forecast --model loop-a.model --from 1.2,-0.4,20 --steps 200\n"
           "  lyapcast forecast --model loop-a.model --history last-50-rows.csv --steps 200\n") +
       kRemoteFooter);
@@ -337,7 +361,8 @@ void AddForecastCommand(CLI::App& app, int* exit_code) {
                   "start at (RFC 3339 or epoch seconds; default latest)");
   cmd->add_option("--history", args->history,
                   "--model: CSV of the recent states (one row per model step, oldest first, the last is the start); "
-                  "the start is fitted to them instead of --from");
+                  "the start is fitted to them instead of --from. --feed: N, the start is fitted to the stored "
+                  "samples of the N model steps before it (0 to 1000)");
   CLI::Option* steps = cmd->add_option("--steps", args->steps, "number of model steps (default 100)");
   CLI::Option* horizon = cmd->add_option("--horizon", args->horizon,
                                          "--feed: forecast this much data time, e.g. 30s (instead of --steps)");
