@@ -79,6 +79,8 @@ struct Options {
   int first_iterations = 1000;
   int compare_io_threads = 1;  // 0: no comparison
   bool keep = false;
+  std::string family = "neural";  // model.family of the feed
+  int history = 0;                // > 0: forecasts ask for a start fitted to this many steps (history=N)
 };
 
 pid_t g_daemon = -1;  // the running daemon child, stopped on the way out
@@ -210,7 +212,7 @@ class HttpConnection {
 // ---------------------------------------------------------------------------
 // The daemon as a child process, on ephemeral loopback ports.
 
-std::string ConfigText(int iterations) {
+std::string ConfigText(int iterations, const std::string& family) {
   // Lorenz-63 (sigma 10, rho 28, beta 8/3). Cadence and drift retrains are
   // pushed out of the way (min_interval 1h, a change threshold no stationary
   // stream reaches) so the only jobs are the first model and the one asked for.
@@ -224,7 +226,7 @@ std::string ConfigText(int iterations) {
          "    dynamics:\n"
          "      equations: {x: \"s*(y - x)\", y: \"x*(r - z) - y\", z: \"x*y - b*z\"}\n"
          "      constants: {s: 10, r: 28, b: 2.6666666666666667}\n"
-         "    model: {hidden: [64, 64], activation: tanh}\n"
+         "    model: {hidden: [64, 64], activation: tanh, family: " + family + "}\n"
          "    retrain: {min_interval: 1h, max_interval: 1h, min_pairs: 2000, iterations: " +
          std::to_string(iterations) +
          ", time_budget: 30m}\n"
@@ -233,10 +235,12 @@ std::string ConfigText(int iterations) {
 
 class DaemonProcess {
  public:
-  DaemonProcess(const std::string& binary, const fs::path& dir, int iterations, int io_threads) : dir_(dir) {
+  DaemonProcess(const std::string& binary, const fs::path& dir, int iterations, int io_threads,
+                const std::string& family)
+      : dir_(dir) {
     fs::create_directories(dir);
     const fs::path config = dir / "bench.yaml";
-    std::ofstream(config) << ConfigText(iterations);
+    std::ofstream(config) << ConfigText(iterations, family);
     const fs::path ready = dir / "ready.json";
     fs::remove(ready);
     log_ = dir / "daemon.log";
@@ -481,8 +485,9 @@ struct ForecastResult {
 };
 
 // `warmup` untimed requests, then `n` timed ones, sequential on one connection.
-ForecastResult MeasureForecasts(HttpConnection& http, int steps, int n, int warmup, pid_t daemon = -1) {
-  const std::string target = std::string("/v1/feeds/") + kFeed + "/forecast?steps=" + std::to_string(steps);
+ForecastResult MeasureForecasts(HttpConnection& http, int steps, int history, int n, int warmup, pid_t daemon = -1) {
+  const std::string target = std::string("/v1/feeds/") + kFeed + "/forecast?steps=" + std::to_string(steps) +
+                             (history > 0 ? "&history=" + std::to_string(history) : std::string());
   ForecastResult out;
   for (int i = 0; i < warmup; ++i) {
     const Response r = http.Request("GET", target);
@@ -664,14 +669,14 @@ void WaitForModel(HttpConnection& http, double timeout_s, const fs::path& log) {
 // model, idle forecasts, status load, then forecasts under a running retrain.
 RunResult RunOnce(const Options& o, const fs::path& dir, LorenzStream& stream, int io_threads, bool status_only) {
   RunResult out;
-  DaemonProcess daemon(o.daemon, dir, o.iterations, io_threads);
+  DaemonProcess daemon(o.daemon, dir, o.iterations, io_threads, o.family);
   Ingest(daemon.ingest_port(), stream.Next(300));  // 3 s of data newer than the model: the retrain's chunk
   HttpConnection http(daemon.http_port());
   WaitForModel(http, 60, daemon.log());
 
   if (!status_only) {
     const bool before = CadenceRunning(StatusBody(http));
-    out.idle = MeasureForecasts(http, o.steps, o.requests, 20, daemon.pid());
+    out.idle = MeasureForecasts(http, o.steps, o.history, o.requests, 20, daemon.pid());
     out.reference = MeasureTrivial(http, o.requests);
     out.idle_quiet = !before && !CadenceRunning(StatusBody(http));
   }
@@ -687,9 +692,9 @@ RunResult RunOnce(const Options& o, const fs::path& dir, LorenzStream& stream, i
   const long job = std::stol(m[1]);
   for (int i = 0; i < 500 && JobState(http, job) == "queued"; ++i) std::this_thread::sleep_for(std::chrono::milliseconds(10));
   // Warm-up under load, then the check, then the timed requests, then the check.
-  MeasureForecasts(http, o.steps, 0, 20);
+  MeasureForecasts(http, o.steps, o.history, 0, 20);
   const bool running_before = JobState(http, job) == "running" && CadenceRunning(StatusBody(http));
-  out.loaded = MeasureForecasts(http, o.steps, o.requests, 0, daemon.pid());
+  out.loaded = MeasureForecasts(http, o.steps, o.history, o.requests, 0, daemon.pid());
   out.job_state_after = JobState(http, job);
   const bool running_after = out.job_state_after == "running" && CadenceRunning(StatusBody(http));
   out.loaded_throughout = running_before && running_after;
@@ -718,10 +723,13 @@ int main(int argc, char** argv) {
     else if (a == "--iterations") o.iterations = std::stoi(next());
     else if (a == "--compare-io-threads") o.compare_io_threads = std::stoi(next());
     else if (a == "--keep") o.keep = true;
+    else if (a == "--family") o.family = next();
+    else if (a == "--history") o.history = std::stoi(next());
     else if (a == "--help" || a == "-h") {
       std::cout <<
           "usage: api_bench [--daemon PATH] [--runs N] [--requests N] [--steps N] [--clients N]\n"
           "                 [--duration S] [--warmup S] [--iterations N] [--compare-io-threads N] [--keep]\n"
+          "                 [--family neural|polynomial|auto] [--history N]\n"
           "Measures the HTTP API of a real lyapcastd over loopback, on a 3-channel Lorenz-63 feed\n"
           "(10 ms step) with the default 3-64-64-3 tanh model:\n"
           "  forecast   p50/p99/max latency of --requests (2000) sequential\n"
@@ -739,13 +747,19 @@ int main(int argc, char** argv) {
           "connection (round trip and scheduling noise), the daemon's CPU time and minor page\n"
           "faults (/proc/<pid>/stat) and the CPU other processes took meanwhile (/proc/stat).\n"
           "--daemon defaults to ../../daemon/lyapcastd next to this program; --keep keeps the\n"
-          "temporary folder (databases, daemon logs). Targets: forecast p99 under 10 ms while\n"
+          "temporary folder (databases, daemon logs). --family sets the feed's model.family (default\n"
+          "neural; with auto the first model is the polynomial map on this clean feed and the retrain\n"
+          "still trains the network, so it outlasts the measurement); --history N asks every\n"
+          "forecast for a start fitted to N steps of stored samples (default 0: none).\n"
+          "Targets: forecast p99 under 10 ms while\n"
           "retraining; status at least 5000 requests/s. Prints human lines, then one JSON line.\n";
       return 0;
     } else Die("unknown option " + a + " (see --help)");
   }
   if (!fs::exists(o.daemon)) Die("no daemon at " + o.daemon + " (use --daemon)");
   if (o.runs < 1 || o.requests < 1 || o.steps < 1 || o.clients < 1 || o.duration_s <= 0) Die("bad option value");
+  if (o.family != "neural" && o.family != "polynomial" && o.family != "auto") Die("--family: neural, polynomial or auto");
+  if (o.history < 0 || o.history > 1000) Die("--history: 0 to 1000");
   const fs::path root = fs::temp_directory_path() / ("lyapcast-api-bench-" + std::to_string(getpid()));
   const fs::path dir = root / "daemon";
   const std::string load_before = LoadAverage();
@@ -758,12 +772,16 @@ int main(int argc, char** argv) {
   // Setup: the first model, trained with few iterations so it comes quickly.
   {
     const auto t = Clock::now();
-    DaemonProcess daemon(o.daemon, dir, o.first_iterations, 0);
+    DaemonProcess daemon(o.daemon, dir, o.first_iterations, 0, o.family);
     Ingest(daemon.ingest_port(), stream.Next(4000));  // 40 s of data
     HttpConnection http(daemon.http_port());
     WaitForModel(http, 120, daemon.log());
+    const std::string status = StatusBody(http);
+    std::smatch family;
+    std::regex_search(status, family, std::regex(R"re("family":"(\w+)")re"));
     daemon.Stop();
-    std::printf("setup: first model (%d iterations) on 40 s of Lorenz-63 data in %.1f s\n", o.first_iterations,
+    std::printf("setup: first model (%d iterations, model.family %s: serves %s) on 40 s of Lorenz-63 data in %.1f s\n",
+                o.first_iterations, o.family.c_str(), family.size() > 1 ? family[1].str().c_str() : "?",
                 Seconds(Clock::now() - t));
     std::fflush(stdout);
   }
@@ -875,7 +893,7 @@ int main(int argc, char** argv) {
               load_after.c_str(), std::thread::hardware_concurrency());
 
   std::ostringstream json;
-  json << R"({"bench":"api","runs":)" << o.runs << R"(,"load_average_start":")" << load_before
+  json << R"({"bench":"api","family":")" << o.family << R"(","history":)" << o.history << R"(,"runs":)" << o.runs << R"(,"load_average_start":")" << load_before
        << R"(","load_average_end":")" << load_after << R"(","forecast":{"steps":)" << o.steps << R"(,"requests":)"
        << o.requests << R"(,"body_bytes":)" << runs.front().idle.body_bytes << R"(,"idle":)" << latency_json(idle)
        << R"(,"idle_first_byte_p50_ms":)" << Fixed(idle_fb, 3) << R"(,"idle_daemon_cpu_ms_per_request":)"

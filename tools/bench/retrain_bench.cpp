@@ -2,7 +2,7 @@
 // Lorenz-63 (sigma 10, rho 28, beta 8/3; docs/references.md "Systems"), time unit 1 s,
 // model step 10 ms, channels x, y, z, model 3-64-64-3 tanh (config default).
 //
-//   build/tools/bench/retrain_bench [--runs 3] [--seed 1] [--quick] [--verbose]
+//   build/tools/bench/retrain_bench [--runs 3] [--seed 1] [--quick] [--verbose] [--family neural]
 //
 // About 2.5 minutes on one core (--quick: about 1 minute).
 //
@@ -148,7 +148,12 @@ struct Settings {
   std::uint64_t seed = 1;
   bool quick = false;
   bool verbose = false;
+  ModelFamily family = ModelFamily::kNeural;
 };
+
+// --family: every feed of the run fits this model family (set once by main
+// before any feed is made).
+ModelFamily g_family = ModelFamily::kNeural;
 
 // ---------------------------------------------------------------- the feed
 
@@ -182,6 +187,7 @@ FeedConfig LorenzFeed(std::vector<ConstraintConfig> constraints = {}) {
   d.constraints = std::move(constraints);
   f.dynamics = std::move(d);
   f.retrain = PlantRetrain();
+  f.model.family = g_family;
   return f;
 }
 
@@ -597,11 +603,12 @@ bool SameWeights(const ContinualRun& a, const ContinualRun& b) {
 void PrintHelp() {
   std::printf(
       "retrain_bench: cost and forecast skill of continual retraining (Lorenz-63, rho 28 -> 38)\n\n"
-      "  retrain_bench [--runs N] [--seed S] [--quick] [--verbose]\n\n"
+      "  retrain_bench [--runs N] [--seed S] [--quick] [--verbose] [--family F]\n\n"
       "  --runs N     repetitions of the timed 2000-iteration warm start (median; default 3)\n"
       "  --seed S     base seed of every training job (default 1)\n"
       "  --quick      a ~1 minute smoke run: 1 run, a shorter stream, smaller first-model budget\n"
-      "  --verbose    one line per retrain\n\n"
+      "  --verbose    one line per retrain\n"
+      "  --family F   model.family of every retrain: neural (default), polynomial or auto\n\n"
       "Prints human-readable lines, then one JSON line. Run on a quiet machine.\n");
 }
 
@@ -620,6 +627,18 @@ bool ParseArgs(int argc, char** argv, Settings* s) {
       s->runs = std::atoi(argv[++i]);
     } else if (a == "--seed" && has_value) {
       s->seed = std::strtoull(argv[++i], nullptr, 10);
+    } else if (a == "--family" && has_value) {
+      const std::string f = argv[++i];
+      if (f == "neural") {
+        s->family = ModelFamily::kNeural;
+      } else if (f == "polynomial") {
+        s->family = ModelFamily::kPolynomial;
+      } else if (f == "auto") {
+        s->family = ModelFamily::kAuto;
+      } else {
+        std::fprintf(stderr, "retrain_bench: --family '%s': neural, polynomial or auto\n", f.c_str());
+        return false;
+      }
     } else {
       std::fprintf(stderr, "retrain_bench: unknown or incomplete argument '%s' (see --help)\n", a.c_str());
       return false;
@@ -637,6 +656,7 @@ bool ParseArgs(int argc, char** argv, Settings* s) {
 int main(int argc, char** argv) {
   Settings settings;
   if (!ParseArgs(argc, argv, &settings)) return 2;
+  g_family = settings.family;
   if (settings.quick) settings.runs = 1;
   const auto started = Clock::now();
   TempDir dir;
@@ -646,8 +666,9 @@ int main(int argc, char** argv) {
   if (settings.quick) plan = StreamPlan{40, 70, 110, 3000};
 
   // ---- 1. cost of a warm-start retrain
+  std::printf("model.family %s\n", ModelFamilyName(settings.family));
   std::printf("1. warm-start RunRetrain, 2000 iterations, lockstep (60 s window + 10 s new data, 3-64-64-3 tanh, "
-              "batch 256, rollout 4), %d run(s):\n",
+              "batch 256, rollout 4; a polynomial fit refits on the whole window), %d run(s):\n",
               settings.runs);
   const Truth steady = Simulate(IndexAt(70), IndexAt(70), kRho);
   std::vector<double> walls, fits;
@@ -719,12 +740,13 @@ int main(int argc, char** argv) {
   const double total = ElapsedSeconds(started);
   std::printf("\ntotal wall time %.1fs\n", total);
   std::printf(
-      R"({"bench":"retrain","quick":%s,"runs":%d,"seed":%llu,"warm_retrain":{"iterations":2000,"wall_s":%s,)"
+      R"({"bench":"retrain","family":"%s","quick":%s,"runs":%d,"seed":%llu,"warm_retrain":{"iterations":2000,"wall_s":%s,)"
       R"("fit_s":%s,"iterations_per_s":%s,"fit_iterations_per_s":%s},"lambda_before":%s,"lambda_after":%s,)"
       R"("rho_before":%.0f,"rho_after":%.0f,"drift":%s,"target_ratio":2.0,"target_met":%s,"sparse_stride":%d,)"
       R"("sparse_plain":%s,"sparse_velocity":%s,"sparse_arms_identical":%s,"total_wall_s":%s})"
       "\n",
-      settings.quick ? "true" : "false", settings.runs, static_cast<unsigned long long>(settings.seed),
+      ModelFamilyName(settings.family), settings.quick ? "true" : "false", settings.runs,
+      static_cast<unsigned long long>(settings.seed),
       Json(wall, 3).c_str(), Json(fit, 3).c_str(), Json(2000 / wall, 0).c_str(), Json(2000 / fit, 0).c_str(),
       Json(lambda_before).c_str(), Json(lambda_after).c_str(), kRho, kRhoAfter, RunJson(full).c_str(),
       ratio >= 2 ? "true" : "false", kSparseStride, RunJson(plain).c_str(), RunJson(constrained).c_str(),
