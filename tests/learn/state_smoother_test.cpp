@@ -9,41 +9,12 @@
 #include <cmath>
 #include <random>
 
-#include "learn/learn_test_util.h"
-#include "learn/polynomial_map.h"
-#include "physics/integrators.h"
+#include "learn/euler_lorenz_rig.h"
 
 namespace lyapcast {
 namespace {
 
-// The Euler map of Lorenz-63 at dt, as an exact polynomial map (degree 2,
-// fitted without noise), and a trajectory of it (as history_fit_test.cpp).
-struct Rig {
-  static constexpr double kDt = 0.01;
-  Eigen::MatrixXd traj;  // 3 x 4001
-  std::shared_ptr<const PolynomialMap> model;
-  Eigen::VectorXd std;
-
-  Rig() {
-    Eigen::VectorXd x = IntegrateRk4(testing::Lorenz63, Eigen::Vector3d(1, 1, 1), 20.0, 0.005);
-    traj.resize(3, 4001);
-    for (int i = 0; i <= 4000; ++i) {
-      traj.col(i) = x;
-      Eigen::Vector3d f;
-      testing::Lorenz63(x.data(), f.data());
-      x += kDt * f;
-    }
-    const Eigen::VectorXd mean = traj.rowwise().mean();
-    std = ((traj.colwise() - mean).array().square().rowwise().mean()).sqrt().matrix();
-    PolynomialFitOptions o;
-    o.degrees = {2};
-    o.ridges = {0.0};
-    auto fit = FitPolynomialMap(kDt, mean, std, Eigen::Vector3d(0.75, 1.2, 1.0), traj.leftCols(3000),
-                                traj.middleCols(1, 3000), traj.middleCols(3000, 1000), traj.middleCols(3001, 1000), o);
-    EXPECT_TRUE(fit.ok());
-    model = fit->model;
-  }
-};
+using Rig = testing::EulerLorenzRig;
 
 double NormalizedRms(const Eigen::MatrixXd& a, const Eigen::MatrixXd& b, const Eigen::VectorXd& std) {
   return std::sqrt((std.cwiseInverse().asDiagonal() * (a - b)).squaredNorm() / static_cast<double>(a.size()));
