@@ -306,9 +306,11 @@ def main():
     p.add_argument("--conditions", default="clean,noisy")
     p.add_argument("--starts", type=int, default=50, help="forecast starts over the test slice")
     p.add_argument("--iterations", type=int, default=20000, help="lyapcast train --iterations")
-    p.add_argument("--history", type=float, default=0.0,
+    p.add_argument("--history", type=float, default=0.5,
                    help="lyapcast's forecast start is fitted to this many Lyapunov times of observations up to it "
-                        "(forecast --history); 0: the observed state alone (default 0: with a model fitted to noisy data it shortened the forecasts, see docs/performance.md)")
+                        "(forecast --history, as the daemon's forecast?history=N); 0: the observed state alone "
+                        "(default 0.5: with the smoothed polynomial fit it lengthened noisy forecasts, see "
+                        "docs/performance.md)")
     p.add_argument("--family", default="auto", choices=["neural", "polynomial", "auto"],
                    help="lyapcast train --family (default auto: the daemon's choice between its families)")
     p.add_argument("--seed", type=int, default=1)
